@@ -1,0 +1,322 @@
+"""Recipes: the column mapping as a small TOML file, from command-line options, and written back out.
+
+A recipe looks like::
+
+    [columns]
+    taxon = "species"
+    specimen = "animal"
+    junction = "node"
+    parent = "r_parent"
+    daughters = ["r_d1", "r_d2", "r_d3"]
+
+    [measurement]
+    measure = "radius"        # or "diameter"
+    unit = "um"
+    rel_error = 0.05          # known relative error of every reading, and/or
+    se = "se_px"              # absolute standard errors: one column, or one per size column
+    repeats = "repeats.csv"   # repeat readings; a path relative to the recipe file
+
+    [input]
+    sheet = "junctions"       # Excel sheet holding the table
+
+Every key is optional except ``parent`` and ``daughters``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import os
+import tomllib
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from allobranch.errors import OutputExistsError, Problem, RecipeError
+from allobranch.intake.mapping import MEASURES, ColumnMapping
+from allobranch.intake.units import canonical_unit
+
+#: Recipe sections and the mapping fields each may hold; used by the reader, the writer and messages.
+RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
+    "columns": ("taxon", "specimen", "junction", "parent", "daughters"),
+    "measurement": ("measure", "unit", "rel_error", "se", "repeats"),
+    "input": ("sheet",),
+}
+
+OPTIONS_ORIGIN = "<options>"
+
+
+def _problem(origin: str, key: str | None, message: str, hint: str, code: str = "bad_recipe") -> Problem:
+    return Problem("fatal", origin, None, key, message, hint, code)
+
+
+def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN) -> ColumnMapping:
+    """Check a mapping for internal consistency and return it with canonical unit and measure spellings.
+
+    Parameters
+    ----------
+    mapping : ColumnMapping
+        The mapping to check.
+    origin : str
+        Recipe file name or ``"<options>"``, used in messages.
+
+    Returns
+    -------
+    ColumnMapping
+        The same mapping with ``unit`` and ``measure`` in canonical spelling (e.g. ``"µm"`` -> ``"um"``).
+
+    Raises
+    ------
+    RecipeError
+        Listing every problem: fewer than two daughter columns, a column used twice, a wrong number of
+        standard-error columns, a relative error outside (0, 1), an unknown measure or unit.
+    """
+    problems: list[Problem] = []
+    roles = {"parent": (mapping.parent,), "daughters": mapping.daughters, "taxon": (mapping.taxon,),
+             "specimen": (mapping.specimen,), "junction": (mapping.junction,), "se": mapping.se}
+    for key, names in roles.items():
+        for name in names:
+            if name is not None and (not isinstance(name, str) or not name.strip()):
+                problems.append(_problem(origin, key, f"column name {name!r} is not a non-empty text", "write the column name as it appears in the header"))
+    if not mapping.parent:
+        problems.append(_problem(origin, "parent", "no parent column given", "name the column holding the parent segment's size"))
+    if len(mapping.daughters) < 2:
+        problems.append(_problem(origin, "daughters", f"{len(mapping.daughters)} daughter column(s) given; a junction has at least two daughters", "list two or more daughter columns, e.g. d1,d2 (a third column may be empty where a junction has two)"))
+    used = [c for c in (mapping.parent, *mapping.daughters, mapping.taxon, mapping.specimen, mapping.junction, *mapping.se) if c]
+    twice = sorted({c for c in used if used.count(c) > 1})
+    if twice:
+        problems.append(_problem(origin, None, f"column(s) {', '.join(repr(c) for c in twice)} used for more than one role", "map each column to one role only (parent, daughters, taxon, specimen, junction, se)"))
+    if mapping.se and len(mapping.se) not in (1, 1 + len(mapping.daughters)):
+        problems.append(_problem(origin, "se", f"{len(mapping.se)} standard-error columns given for {1 + len(mapping.daughters)} size columns", "give one SE column for all readings of a row, or one per size column (parent first, then the daughters in order)"))
+    if mapping.rel_error is not None:
+        r = mapping.rel_error
+        if isinstance(r, bool) or not isinstance(r, (int, float)) or not math.isfinite(r) or not 0 < r < 1:
+            problems.append(_problem(origin, "rel_error", f"relative error {r!r} is not a fraction between 0 and 1", "give it as a fraction, e.g. 0.05 for 5 %"))
+    measure = mapping.measure.strip().lower() if isinstance(mapping.measure, str) else mapping.measure
+    if measure not in MEASURES:
+        problems.append(_problem(origin, "measure", f"unknown measure {mapping.measure!r}", f"use one of: {', '.join(MEASURES)}"))
+    unit = mapping.unit
+    try:
+        unit = canonical_unit(mapping.unit, origin=origin)
+    except RecipeError as exc:
+        problems.extend(exc.problems)
+    if mapping.sheet is not None and (isinstance(mapping.sheet, bool) or not isinstance(mapping.sheet, (str, int))):
+        problems.append(_problem(origin, "sheet", f"sheet {mapping.sheet!r} is neither a name nor a position", "give the sheet's name"))
+    if problems:
+        raise RecipeError(problems)
+    return dataclasses.replace(mapping, unit=unit, measure=measure)
+
+
+def load_recipe(path: str | os.PathLike) -> ColumnMapping:
+    """Read a TOML recipe into a :class:`ColumnMapping`.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The recipe file (see the module docstring for its layout). A relative ``repeats`` path is taken
+        relative to the recipe file's folder when such a file exists there; otherwise it is kept as written
+        (it may name an Excel sheet, or a file beside the table).
+
+    Returns
+    -------
+    ColumnMapping
+        The checked mapping.
+
+    Raises
+    ------
+    RecipeError
+        If the file is missing or not valid TOML, has unknown sections or keys, values of the wrong type,
+        or an inconsistent mapping; every problem is listed with the recipe file and key.
+    """
+    origin = str(path)
+    p = Path(path)
+    try:
+        with p.open("rb") as fh:
+            doc = tomllib.load(fh)
+    except FileNotFoundError:
+        raise RecipeError([_problem(origin, None, "recipe file not found", "check the path")]) from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise RecipeError([_problem(origin, None, f"not a valid TOML file ({exc})", "compare with the example recipe in the documentation")]) from None
+    except OSError as exc:
+        raise RecipeError([_problem(origin, None, f"cannot read the recipe ({exc.strerror})", "check the path and permissions")]) from None
+
+    problems: list[Problem] = []
+    values: dict[str, Any] = {}
+    for section, content in doc.items():
+        if section not in RECIPE_SECTIONS:
+            problems.append(_problem(origin, section, f"unknown section [{section}]", f"use the sections: {', '.join(f'[{s}]' for s in RECIPE_SECTIONS)}"))
+            continue
+        if not isinstance(content, dict):
+            problems.append(_problem(origin, section, f"'{section}' must be a section [{section}], not a value", f"write [{section}] on its own line followed by its keys"))
+            continue
+        for key, value in content.items():
+            if key not in RECIPE_SECTIONS[section]:
+                problems.append(_problem(origin, f"{section}.{key}", f"unknown key '{key}' in [{section}]", f"allowed keys in [{section}]: {', '.join(RECIPE_SECTIONS[section])}"))
+                continue
+            problems.extend(_check_type(origin, section, key, value))
+            values[key] = value
+    for key in ("parent", "daughters"):
+        if key not in values and not any(p.column == f"columns.{key}" for p in problems):
+            problems.append(_problem(origin, f"columns.{key}", f"the recipe does not name the '{key}' column(s)", f"add '{key} = ...' under [columns]"))
+    if problems:
+        raise RecipeError(problems)
+    if isinstance(values.get("rel_error"), int):
+        values["rel_error"] = float(values["rel_error"])
+    repeats = values.get("repeats")
+    if repeats is not None and not Path(repeats).is_absolute() and (p.parent / repeats).exists():
+        values["repeats"] = str((p.parent / repeats).resolve())
+    return check_mapping(ColumnMapping(**values), origin)
+
+
+def _check_type(origin: str, section: str, key: str, value: Any) -> list[Problem]:
+    where = f"{section}.{key}"
+    if key == "daughters":
+        ok = isinstance(value, list) and all(isinstance(v, str) for v in value)
+        expected = 'a list of column names, e.g. ["d1", "d2"]'
+    elif key == "se":
+        ok = isinstance(value, str) or (isinstance(value, list) and all(isinstance(v, str) for v in value))
+        expected = 'a column name or a list of column names'
+    elif key == "rel_error":
+        ok = isinstance(value, (int, float)) and not isinstance(value, bool)
+        expected = "a number, e.g. 0.05"
+    elif key == "sheet":
+        ok = isinstance(value, (str, int)) and not isinstance(value, bool)
+        expected = "a sheet name"
+    else:
+        ok = isinstance(value, str)
+        expected = "text in quotes"
+    if ok:
+        return []
+    return [_problem(origin, where, f"'{key}' has the wrong type ({type(value).__name__}: {value!r})", f"give {expected}")]
+
+
+def _split(value: str | Sequence[str] | None) -> tuple[str, ...] | None:
+    if value is None:
+        return None
+    if isinstance(value, str):
+        return tuple(v.strip() for v in value.split(",") if v.strip())
+    return tuple(value)
+
+
+def mapping_from_options(
+    *,
+    base: ColumnMapping | None = None,
+    parent: str | None = None,
+    daughters: str | Sequence[str] | None = None,
+    taxon: str | None = None,
+    specimen: str | None = None,
+    junction: str | None = None,
+    measure: str | None = None,
+    unit: str | None = None,
+    rel_error: float | None = None,
+    se: str | Sequence[str] | None = None,
+    repeats: str | None = None,
+    sheet: str | int | None = None,
+) -> ColumnMapping:
+    """Build a mapping from option values, on top of an optional base mapping (e.g. a recipe).
+
+    Parameters
+    ----------
+    base : ColumnMapping, optional
+        Starting mapping; every option that is not ``None`` overrides its value.
+    parent, taxon, specimen, junction : str, optional
+        Column names.
+    daughters, se : str or sequence of str, optional
+        Column names, as a sequence or one comma-separated text (``"d1,d2,d3"``).
+    measure : {"radius", "diameter"}, optional
+        Whether sizes are radii or diameters.
+    unit : str, optional
+        Length unit (see :data:`allobranch.intake.units.ALLOWED_UNITS`).
+    rel_error : float, optional
+        Known relative error of every reading, a fraction in (0, 1).
+    repeats : str, optional
+        Repeat-readings file (or Excel sheet name).
+    sheet : str or int, optional
+        Excel sheet holding the junction table.
+
+    Returns
+    -------
+    ColumnMapping
+        The checked mapping.
+
+    Raises
+    ------
+    RecipeError
+        If neither the base nor the options name the parent and daughter columns, or the mapping is
+        inconsistent (see :func:`check_mapping`).
+
+    Examples
+    --------
+    >>> mapping_from_options(parent="p", daughters="a,b", unit="µm").unit
+    'um'
+    """
+    updates: dict[str, Any] = {
+        "parent": parent, "daughters": _split(daughters), "taxon": taxon, "specimen": specimen,
+        "junction": junction, "measure": measure, "unit": unit, "rel_error": rel_error,
+        "se": _split(se), "repeats": repeats, "sheet": sheet,
+    }
+    updates = {k: v for k, v in updates.items() if v is not None}
+    if base is None:
+        missing = [k for k in ("parent", "daughters") if k not in updates]
+        if missing:
+            raise RecipeError([_problem(OPTIONS_ORIGIN, k, f"no '{k}' column given", "give --parent and --daughters (or a recipe with --recipe)") for k in missing])
+        mapping = ColumnMapping(**updates)
+    else:
+        mapping = dataclasses.replace(base, **updates)
+    return check_mapping(mapping, OPTIONS_ORIGIN)
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    # JSON string escapes are valid TOML basic-string escapes.
+    return json.dumps(str(value), ensure_ascii=False)
+
+
+def write_recipe(mapping: ColumnMapping, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
+    """Write a mapping as a TOML recipe that :func:`load_recipe` reads back to the same mapping.
+
+    Parameters
+    ----------
+    mapping : ColumnMapping
+        The mapping to write.
+    path : str or path-like
+        Destination file. A ``repeats`` file path is written relative to the recipe's folder.
+    overwrite : bool
+        Replace an existing file; by default an existing file is never overwritten.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    Raises
+    ------
+    OutputExistsError
+        If the file exists and ``overwrite`` is false.
+    """
+    dest = Path(path)
+    if dest.exists() and not overwrite:
+        raise OutputExistsError(f"{dest}: the recipe file already exists; choose another name or remove it first")
+    values = mapping.to_dict()
+    if "repeats" in values and Path(values["repeats"]).is_file():
+        values["repeats"] = os.path.relpath(Path(values["repeats"]).resolve(), dest.resolve().parent)
+    lines = ["# allobranch recipe: how the table's columns map onto junctions", ""]
+    for section, keys in RECIPE_SECTIONS.items():
+        present = [k for k in keys if k in values]
+        if not present:
+            continue
+        lines.append(f"[{section}]")
+        lines.extend(f"{k} = {_toml_value(values[k])}" for k in present)
+        lines.append("")
+    try:
+        with dest.open("w" if overwrite else "x", encoding="utf-8") as fh:
+            fh.write("\n".join(lines))
+    except FileExistsError:
+        raise OutputExistsError(f"{dest}: the recipe file already exists; choose another name or remove it first") from None
+    return dest

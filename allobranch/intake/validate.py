@@ -1,0 +1,442 @@
+"""Turn a raw table (and optional repeat readings) into a validated :class:`JunctionTable`.
+
+All fatal problems are collected before anything is raised, so the user can fix the whole file at once.
+Rows that are kept but look suspicious are flagged, and blank rows are reported as excluded; nothing is
+dropped or changed silently. Row numbers are those the user sees in the file (header = row 1).
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+from collections import defaultdict
+from collections.abc import Hashable
+
+import numpy as np
+import pandas as pd
+
+from allobranch.errors import InputError, Problem
+from allobranch.intake.mapping import ColumnMapping
+from allobranch.intake.readers import RawTable
+from allobranch.intake.table import JunctionTable, ValidationReport
+from allobranch.intake.units import radius_factor
+
+#: Taxon label used when no taxon column is mapped.
+DEFAULT_TAXON = "all"
+
+#: Cell texts read as "no value" (compared case-insensitively after trimming spaces).
+MISSING_MARKERS: frozenset[str] = frozenset({"", "na", "n/a", "nan", "null", "none", "#n/a", "<na>", "-nan"})
+
+#: Columns of a repeat-readings table; ``specimen`` may be left out when specimens are not mapped.
+REPEAT_COLUMNS: tuple[str, ...] = ("specimen", "junction", "segment", "value")
+
+# Thresholds for flagging (not excluding) extreme junctions. They are common screening practice for
+# segmentation errors, not taken from any published source.
+MIN_DAUGHTER_PARENT_RATIO = 0.05
+MIN_SIBLING_RATIO = 0.1
+
+
+# -- cell parsing --------------------------------------------------------------------------------------
+def _is_missing(value: object) -> bool:
+    if value is None or value is pd.NA:
+        return True
+    if isinstance(value, float) and math.isnan(value):
+        return True
+    return isinstance(value, str) and value.strip().lower() in MISSING_MARKERS
+
+
+def _to_float(value: object, decimal: str) -> float | None:
+    """Parse one cell; ``None`` when it is not a number (missing cells are NaN)."""
+    if _is_missing(value):
+        return math.nan
+    if isinstance(value, bool | np.bool_):
+        return None
+    if isinstance(value, numbers.Real):
+        return float(value)
+    if not isinstance(value, str):
+        return None
+    text = value.strip()
+    if "_" in text:
+        return None
+    if decimal == "," and "," in text:
+        if "." in text or text.count(",") > 1:
+            return None
+        text = text.replace(",", ".")
+    try:
+        return float(text)
+    except ValueError:
+        return None
+
+
+def parse_numbers(cells: pd.Series, decimal: str = ".") -> tuple[np.ndarray, np.ndarray]:
+    """Parse a column of cells as numbers without altering them.
+
+    Parameters
+    ----------
+    cells : pandas.Series
+        Cells as read (text or native values).
+    decimal : {".", ","}
+        Decimal mark of numbers written as text.
+
+    Returns
+    -------
+    values : numpy.ndarray
+        Floats; NaN for empty cells and for cells that are not numbers.
+    not_number : numpy.ndarray of bool
+        True where a cell holds something that is not a number (text such as ``"12 um"`` or ``"?"``).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> parse_numbers(pd.Series(["1,5", "", "x"]), decimal=",")
+    (array([1.5, nan, nan]), array([False, False,  True]))
+    """
+    parsed = [_to_float(v, decimal) for v in cells.tolist()]
+    bad = np.array([p is None for p in parsed], dtype=bool)
+    values = np.array([math.nan if p is None else p for p in parsed], dtype=float)
+    return values, bad
+
+
+def _label(value: object) -> str | None:
+    """A grouping label as text (``None`` when missing); whole-number floats lose their ``.0``."""
+    if _is_missing(value):
+        return None
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def _blank_rows(frame: pd.DataFrame) -> np.ndarray:
+    if frame.shape[1] == 0:
+        return np.zeros(len(frame), dtype=bool)
+    blank = np.ones(len(frame), dtype=bool)
+    for col in frame.columns:
+        cells = frame[col].tolist()
+        blank &= np.array([v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
+                           or (isinstance(v, str) and not v.strip()) for v in cells], dtype=bool)
+    return blank
+
+
+def _fmt(value: float) -> str:
+    return f"{value:g}"
+
+
+class _Collector:
+    """Accumulates problems for one file."""
+
+    def __init__(self, label: str) -> None:
+        self.label = label
+        self.fatal: list[Problem] = []
+        self.other: list[Problem] = []
+
+    def add(self, severity: str, row: int | None, column: Hashable | None, message: str, hint: str,
+            code: str) -> None:
+        problem = Problem(severity, self.label, None if row is None else int(row),
+                          None if column is None else str(column), message, hint, code)
+        (self.fatal if severity == "fatal" else self.other).append(problem)
+
+
+# -- the junction table ---------------------------------------------------------------------------------
+def _check_columns(raw: RawTable, mapping: ColumnMapping) -> None:
+    roles: list[tuple[str, str]] = [(mapping.parent, "parent"), *((d, "daughter") for d in mapping.daughters)]
+    roles += [(c, r) for c, r in ((mapping.taxon, "taxon"), (mapping.specimen, "specimen"),
+                                  (mapping.junction, "junction")) if c is not None]
+    roles += [(c, "standard error") for c in mapping.se]
+    present = [str(c) for c in raw.frame.columns]
+    missing = [(c, r) for c, r in roles if c not in present]
+    if missing:
+        have = ", ".join(repr(c) for c in present)
+        raise InputError([
+            Problem("fatal", raw.label, 1, c, f"the {role} column '{c}' is not in the file; its columns are: {have}",
+                    "check the spelling and capitals of the column name in your options or recipe", "missing_column")
+            for c, role in missing
+        ])
+
+
+def _parse_sizes(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping,
+                 out: _Collector) -> np.ndarray:
+    """Sizes as floats, shape (n, 1 + K): parent first, then daughter columns in the user's order."""
+    sizes = np.empty((len(sub), len(mapping.size_columns)))
+    for j, col in enumerate(mapping.size_columns):
+        role = "parent" if j == 0 else f"daughter {j}"
+        values, bad = parse_numbers(sub[col], raw.decimal)
+        for i in np.flatnonzero(bad):
+            out.add("fatal", rows[i], col, f"{sub[col].iloc[i]!r} is not a number",
+                    "write sizes as plain numbers (decimal "
+                    + ("comma" if raw.decimal == "," else "point") + "), or leave the cell empty for no value",
+                    "not_numeric")
+        if j <= 2:
+            for i in np.flatnonzero(np.isnan(values) & ~bad):
+                out.add("fatal", rows[i], col, f"the {role} size is missing",
+                        "fill it in, or remove the row: every junction needs a parent and at least two daughters"
+                        " (the first two daughter columns)", "missing_size")
+        for i in np.flatnonzero(np.isinf(values)):
+            out.add("fatal", rows[i], col, f"the {role} size is infinite", "write a finite positive size",
+                    "nonfinite_size")
+        for i in np.flatnonzero(np.isfinite(values) & (values <= 0)):
+            out.add("fatal", rows[i], col, f"the {role} size is {_fmt(values[i])}; sizes must be positive",
+                    "correct the value, or leave a third or later daughter cell empty if that daughter is absent",
+                    "nonpositive_size")
+        sizes[:, j] = values
+    return sizes
+
+
+def _parse_se(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping,
+              sizes: np.ndarray, out: _Collector) -> np.ndarray:
+    """Standard errors aligned with ``sizes`` (NaN where not given or where the size is absent)."""
+    se = np.full(sizes.shape, np.nan)
+    if not mapping.se:
+        return se
+    for j, col in enumerate(mapping.se):
+        values, bad = parse_numbers(sub[col], raw.decimal)
+        for i in np.flatnonzero(bad):
+            out.add("fatal", rows[i], col, f"standard error {sub[col].iloc[i]!r} is not a number",
+                    "write standard errors as plain non-negative numbers", "not_numeric")
+        for i in np.flatnonzero(~np.isnan(values) & ~(np.isfinite(values) & (values >= 0))):
+            out.add("fatal", rows[i], col, f"standard error {_fmt(values[i])} is negative or infinite",
+                    "write standard errors as finite non-negative numbers", "bad_se")
+        if len(mapping.se) == 1:
+            se[:] = values[:, None]
+        else:
+            se[:, j] = values
+    present = ~np.isnan(sizes)
+    for i, j in zip(*np.nonzero(present & np.isnan(se)), strict=True):
+        col = mapping.se[0] if len(mapping.se) == 1 else mapping.se[j]
+        out.add("flag", rows[i], col, f"no standard error for {mapping.size_columns[j]!r}",
+                "kept; the model will treat this reading's absolute error as unknown", "se_missing")
+    if len(mapping.se) > 1:
+        for i, j in zip(*np.nonzero(~present & ~np.isnan(se)), strict=True):
+            out.add("flag", rows[i], mapping.se[j], f"a standard error is given but {mapping.size_columns[j]!r} is empty",
+                    "kept, but this standard error is not used; check the row", "se_without_size")
+    se[~present] = np.nan
+    return se
+
+
+def _labels(sub: pd.DataFrame, col: str | None, rows: np.ndarray, default: list[str], role: str,
+            out: _Collector) -> list[str]:
+    """Labels of a grouping column as text, or ``default`` when the column is not mapped."""
+    if col is None:
+        return default
+    labels = [_label(v) for v in sub[col].tolist()]
+    for i, lab in enumerate(labels):
+        if lab is None:
+            out.add("fatal", rows[i], col, f"the {role} label is missing",
+                    f"fill in the {role} for this row", "missing_label")
+    return [lab if lab is not None else "" for lab in labels]
+
+
+def _check_groups(taxon: list[str], specimen: list[str], junction: list[str], rows: np.ndarray,
+                  mapping: ColumnMapping, out: _Collector) -> None:
+    if mapping.specimen is not None:
+        taxa_of: dict[str, dict[str, list[int]]] = defaultdict(lambda: defaultdict(list))
+        for t, s, r in zip(taxon, specimen, rows, strict=True):
+            if s:
+                taxa_of[s][t].append(int(r))
+        for s, by_taxon in taxa_of.items():
+            if len(by_taxon) > 1:
+                where = "; ".join(f"'{t}' (rows {', '.join(map(str, rs[:5]))}{', ...' if len(rs) > 5 else ''})"
+                                  for t, rs in by_taxon.items())
+                second = list(by_taxon.values())[1][0]
+                out.add("fatal", second, mapping.specimen, f"specimen '{s}' is listed under more than one taxon: {where}",
+                        "a specimen belongs to one taxon; correct the taxon or give the specimens distinct labels",
+                        "specimen_in_two_taxa")
+    if mapping.junction is not None:
+        seen: dict[tuple[str, str, str], list[int]] = defaultdict(list)
+        for t, s, j, r in zip(taxon, specimen, junction, rows, strict=True):
+            if j:
+                seen[(t, s, j)].append(int(r))
+        for (_, s, j), rs in seen.items():
+            if len(rs) > 1:
+                out.add("fatal", rs[1], mapping.junction,
+                        f"junction '{j}' appears more than once in specimen '{s}' (rows {', '.join(map(str, rs))})",
+                        "junction labels must be unique within a specimen; correct the label or remove the duplicate",
+                        "duplicate_junction")
+
+
+def _flag_geometry(radii: np.ndarray, raw_sizes: np.ndarray, rows: np.ndarray, mapping: ColumnMapping,
+                   out: _Collector) -> None:
+    """Flag daughters at least as large as the parent, and extreme size ratios (rows kept)."""
+    parent = radii[:, 0]
+    daughters = radii[:, 1:]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = daughters / parent[:, None]
+        sibling = np.nanmin(daughters, axis=1) / np.nanmax(daughters, axis=1)
+    for i, k in zip(*np.nonzero(ratio >= 1), strict=True):
+        out.add("flag", rows[i], mapping.daughters[k],
+                f"daughter size {_fmt(raw_sizes[i, k + 1])} is not smaller than the parent's {_fmt(raw_sizes[i, 0])}",
+                "kept; no branching exponent exists for this junction on its own (check the measurement)",
+                "daughter_ge_parent")
+    for i, k in zip(*np.nonzero(ratio < MIN_DAUGHTER_PARENT_RATIO), strict=True):
+        out.add("flag", rows[i], mapping.daughters[k],
+                f"daughter/parent ratio {ratio[i, k]:.3g} is below {MIN_DAUGHTER_PARENT_RATIO:g}",
+                "kept; check the measurement or that this is a true daughter of the parent", "extreme_ratio")
+    for i in np.flatnonzero(sibling < MIN_SIBLING_RATIO):
+        k = int(np.nanargmin(daughters[i]))
+        out.add("flag", rows[i], mapping.daughters[k],
+                f"smallest daughter is {1 / sibling[i]:.3g} times smaller than its largest sibling",
+                "kept; check the measurement or that this is a true daughter of the parent", "extreme_ratio")
+
+
+def _compact(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Move present daughters left, keeping their order; return the order used."""
+    order = np.argsort(np.isnan(values), axis=1, kind="stable")
+    return np.take_along_axis(values, order, axis=1), order
+
+
+def build_junction_table(raw: RawTable, mapping: ColumnMapping, repeats: RawTable | None = None) -> JunctionTable:
+    """Validate a raw table against a mapping and build the junction table.
+
+    Parameters
+    ----------
+    raw : RawTable
+        The table as read by :func:`allobranch.intake.readers.read_table`.
+    mapping : ColumnMapping
+        The checked mapping (see :func:`allobranch.intake.recipe.check_mapping`).
+    repeats : RawTable, optional
+        Repeat readings with columns ``specimen`` (optional when specimens are not mapped), ``junction``,
+        ``segment`` (``"parent"`` or one of the daughter column names) and ``value``.
+
+    Returns
+    -------
+    JunctionTable
+        Radii in mm (px for pixel units), one row per junction, with a report of flags and excluded rows.
+
+    Raises
+    ------
+    InputError
+        Listing every fatal problem in the table and the repeat readings.
+    """
+    _check_columns(raw, mapping)
+    out = _Collector(raw.label)
+    blank = _blank_rows(raw.frame)
+    for r in raw.rows[blank]:
+        out.add("excluded", r, None, "blank row", "not used; delete it if the row was meant to be empty", "blank_row")
+    if blank.all():
+        out.add("fatal", None, None, "the table has no data rows (only blank rows)",
+                "add one row per junction below the header", "empty_table")
+        raise InputError(out.fatal + out.other)
+    sub = raw.frame.loc[~blank]
+    rows = raw.rows[~blank]
+
+    raw_sizes = _parse_sizes(raw, sub, rows, mapping, out)
+    raw_se = _parse_se(raw, sub, rows, mapping, raw_sizes, out)
+    taxon = _labels(sub, mapping.taxon, rows, [DEFAULT_TAXON] * len(sub), "taxon", out)
+    specimen = _labels(sub, mapping.specimen, rows, list(taxon), "specimen", out)
+    junction = _labels(sub, mapping.junction, rows, [str(r) for r in rows], "junction", out)
+    _check_groups(taxon, specimen, junction, rows, mapping, out)
+
+    factor = radius_factor(mapping.unit, mapping.measure)
+    radii = raw_sizes * factor
+    se = raw_se * factor
+    valid = np.all(np.isfinite(radii[:, :3]) & (radii[:, :3] > 0), axis=1)
+    _flag_geometry(radii[valid], raw_sizes[valid], rows[valid], mapping, out)
+
+    daughters, order = _compact(radii[:, 1:])
+    se_daughters = np.take_along_axis(se[:, 1:], order, axis=1)
+    n_daughters = (~np.isnan(daughters)).sum(axis=1)
+    k_max = int(n_daughters.max())
+    data = pd.DataFrame({
+        "taxon": taxon, "specimen": specimen, "junction": junction,
+        "source_row": rows.astype(int), "n_daughters": n_daughters.astype(int), "parent": radii[:, 0],
+    })
+    for k in range(k_max):
+        data[f"d{k + 1}"] = daughters[:, k]
+    data["se_parent"] = se[:, 0]
+    for k in range(k_max):
+        data[f"se_d{k + 1}"] = se_daughters[:, k]
+
+    repeat_frame = None
+    if repeats is not None:
+        slot = np.argsort(order, axis=1)  # slot[i, user_daughter] = position after compaction
+        repeat_frame, rep_out = _build_repeats(repeats, mapping, data, slot, ~np.isnan(radii[:, 1:]), factor)
+        out.fatal += rep_out.fatal
+        out.other += rep_out.other
+    def order_key(p: Problem) -> tuple[bool, int]:
+        return (p.file != raw.label, p.row or 0)
+
+    if out.fatal:
+        raise InputError(sorted(out.fatal, key=order_key))
+    report = ValidationReport(problems=sorted(out.other, key=order_key), n_rows_read=len(raw.frame))
+    return JunctionTable(data=data, mapping=mapping, report=report, source=raw.label, repeats=repeat_frame)
+
+
+# -- repeat readings ---------------------------------------------------------------------------------------
+def _build_repeats(raw: RawTable, mapping: ColumnMapping, data: pd.DataFrame, slot: np.ndarray,
+                   present: np.ndarray, factor: float) -> tuple[pd.DataFrame, _Collector]:
+    out = _Collector(raw.label)
+    columns = [str(c) for c in raw.frame.columns]
+    needed = [c for c in REPEAT_COLUMNS if not (c == "specimen" and mapping.specimen is None)]
+    missing = [c for c in needed if c not in columns]
+    if missing:
+        for c in missing:
+            out.add("fatal", 1, c, f"the repeat-readings table has no '{c}' column; its columns are: "
+                    + ", ".join(repr(c) for c in columns),
+                    f"name the columns {', '.join(REPEAT_COLUMNS)} (one row per repeat reading)", "missing_column")
+        return pd.DataFrame(columns=list(REPEAT_COLUMNS)), out
+    blank = _blank_rows(raw.frame)
+    for r in raw.rows[blank]:
+        out.add("excluded", r, None, "blank row", "not used; delete it if the row was meant to be empty", "blank_row")
+    sub = raw.frame.loc[~blank]
+    rows = raw.rows[~blank]
+
+    index: dict[tuple[str, str], int] = {}
+    by_junction: dict[str, list[int]] = defaultdict(list)
+    for i, (s, j) in enumerate(zip(data["specimen"], data["junction"], strict=True)):
+        index[(s, j)] = i
+        by_junction[j].append(i)
+    has_specimen = "specimen" in columns
+    daughters_named = {name: k for k, name in enumerate(mapping.daughters)}
+    allowed = ", ".join(repr(n) for n in ("parent", *mapping.daughters))
+
+    values, bad = parse_numbers(sub["value"], raw.decimal)
+    out_rows: list[dict[str, object]] = []
+    specimens = [_label(v) for v in sub["specimen"].tolist()] if has_specimen else [None] * len(sub)
+    junctions = [_label(v) for v in sub["junction"].tolist()]
+    segments = [_label(v) for v in sub["segment"].tolist()]
+    for i, row in enumerate(rows):
+        value = values[i]
+        if bad[i]:
+            out.add("fatal", row, "value", f"{sub['value'].iloc[i]!r} is not a number",
+                    "write repeat readings as plain numbers", "not_numeric")
+        elif not (np.isfinite(value) and value > 0):
+            what = "missing" if np.isnan(value) else f"{_fmt(value)}"
+            out.add("fatal", row, "value", f"the repeat reading is {what}; readings must be positive numbers",
+                    "correct the value or remove the row", "bad_repeat")
+        s, j, seg = specimens[i], junctions[i], segments[i]
+        if j is None or (has_specimen and s is None):
+            out.add("fatal", row, "junction" if j is None else "specimen", "the label is missing",
+                    "fill in which junction this reading belongs to", "missing_label")
+            continue
+        if has_specimen:
+            target = index.get((s, j))
+            if target is None:
+                out.add("fatal", row, "junction", f"there is no junction '{j}' in specimen '{s}' in the junction table",
+                        "check the specimen and junction labels against the junction table", "unknown_junction")
+                continue
+        else:
+            matches = by_junction.get(j, [])
+            if len(matches) != 1:
+                problem = "no" if not matches else "more than one"
+                out.add("fatal", row, "junction", f"{problem} junction '{j}' in the junction table",
+                        "check the label; add a 'specimen' column when junction labels repeat across specimens",
+                        "unknown_junction")
+                continue
+            target = matches[0]
+        if seg is None:
+            out.add("fatal", row, "segment", "the segment is missing", f"use one of: {allowed}", "missing_label")
+            continue
+        if seg in ("parent", mapping.parent):
+            segment = "parent"
+        elif seg in daughters_named:
+            k = daughters_named[seg]
+            if not present[target, k]:
+                out.add("fatal", row, "segment", f"junction '{j}' has no value in column '{seg}'",
+                        "a repeat reading must refer to a segment measured in the junction table", "unknown_segment")
+                continue
+            segment = f"d{slot[target, k] + 1}"
+        else:
+            out.add("fatal", row, "segment", f"unknown segment {seg!r}", f"use one of: {allowed}", "unknown_segment")
+            continue
+        out_rows.append({"specimen": data["specimen"].iat[target], "junction": j, "segment": segment,
+                         "value": value * factor})
+    return pd.DataFrame(out_rows, columns=list(REPEAT_COLUMNS)), out
