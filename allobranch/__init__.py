@@ -12,6 +12,7 @@ __version__ = "0.1.0"
 from allobranch.errors import AllobranchError, InputError, Problem  # noqa: E402
 from allobranch.intake.mapping import ColumnMapping  # noqa: E402
 from allobranch.intake.table import JunctionTable, ValidationReport  # noqa: E402
+from allobranch.intake import read_junctions  # noqa: E402
 
 __all__ = [
     "__version__",
@@ -21,4 +22,5 @@ __all__ = [
     "ColumnMapping",
     "JunctionTable",
     "ValidationReport",
+    "read_junctions",
 ]
