@@ -1,0 +1,150 @@
+"""``allobranch check``: read and validate a junction table, report what was found, describe it naively."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from allobranch.cli.options import add_mapping_arguments, table_from_args
+from allobranch.errors import OutputExistsError
+from allobranch.geometry import NAIVE_NOTE, junction_geometry, naive_summary
+from allobranch.intake.recipe import write_recipe
+from allobranch.intake.table import JunctionTable
+from allobranch.intake.units import from_internal_radius
+
+#: File written into ``--out``.
+JUNCTIONS_FILE = "junctions.csv"
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Add the ``check`` sub-command."""
+    parser = subparsers.add_parser(
+        "check",
+        help="validate a junction table and describe it",
+        description="Read and validate a junction table, list every flagged and excluded row, and show naive "
+        "per-junction exponents by taxon (which ignore measurement error). Exit code 0 when the table "
+        "is usable, 2 when it is not.",
+    )
+    add_mapping_arguments(parser)
+    parser.add_argument("--out", metavar="DIR", help=f"write per-junction geometry to DIR/{JUNCTIONS_FILE}")
+    parser.add_argument("--save-recipe", metavar="FILE", dest="save_recipe",
+                        help="write the column mapping used to a TOML recipe FILE")
+    parser.add_argument("--force", action="store_true", help="overwrite existing output files")
+    parser.set_defaults(func=run)
+
+
+def junction_output(table: JunctionTable, geometry: pd.DataFrame) -> pd.DataFrame:
+    """Per-junction geometry with the radii converted back to the user's unit.
+
+    Parameters
+    ----------
+    table : JunctionTable
+        The validated table.
+    geometry : pandas.DataFrame
+        :func:`allobranch.geometry.junction_geometry` of ``table``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Identification columns, ``parent_radius_<unit>``, ``d1_radius_<unit>``..., then the geometry columns.
+    """
+    ident = ["taxon", "specimen", "junction", "source_row", "n_daughters"]
+    out = geometry[ident].copy()
+    for col in ["parent", *table.daughter_columns]:
+        out[f"{col}_radius_{table.unit}"] = from_internal_radius(table.data[col].to_numpy(), table.unit)
+    return pd.concat([out, geometry.drop(columns=ident)], axis=1)
+
+
+def _refuse_overwrite(dest: Path, force: bool, option: str) -> None:
+    if dest.exists() and not force:
+        raise OutputExistsError(f"{dest} already exists; use --force to overwrite it or choose another {option}")
+
+
+def _write_csv(frame: pd.DataFrame, dest: Path, force: bool) -> None:
+    _refuse_overwrite(dest, force, "--out")
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            frame.to_csv(fh, index=False)
+        os.replace(tmp, dest)
+    finally:
+        if os.path.exists(tmp):
+            os.remove(tmp)
+
+
+def _error_note(table: JunctionTable) -> str:
+    m = table.mapping
+    parts = []
+    if m.rel_error is not None:
+        parts.append(f"relative error {m.rel_error:g}")
+    if m.se:
+        parts.append(f"standard errors from {', '.join(m.se)}")
+    if table.repeats is not None:
+        parts.append(f"{len(table.repeats)} repeat readings")
+    if not parts:
+        return ("none given (the model cannot then tell measurement error from biological deviation; "
+                "give --rel-error, --se or --repeats if you can)")
+    return "; ".join(parts)
+
+
+def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
+    """The text printed by ``allobranch check``.
+
+    Parameters
+    ----------
+    table : JunctionTable
+        The validated table.
+    summary : pandas.DataFrame
+        :func:`allobranch.geometry.naive_summary` by taxon.
+
+    Returns
+    -------
+    str
+        Counts, every flag and excluded row, and the naive summary.
+    """
+    d = table.data
+    hist = d["n_daughters"].value_counts().sort_index()
+    lines = [
+        f"Table: {table.source}",
+        f"  rows read: {table.report.n_rows_read}; junctions used: {table.n_junctions}; "
+        f"taxa: {len(table.taxa)}; specimens: {len(table.specimens)}",
+        "  daughters per junction: " + ", ".join(f"{k}: {v}" for k, v in hist.items()),
+        f"  sizes: {table.mapping.measure} in {table.unit}; measurement error: {_error_note(table)}",
+    ]
+    for title, items in (("Flagged rows (kept)", table.report.flags), ("Excluded rows (not used)", table.report.excluded)):
+        lines.append(f"{title}: {len(items)}")
+        lines.extend(f"  {p.format()}" for p in items)
+    lines.append(f"Naive summary by taxon -- {NAIVE_NOTE}:")
+    shown = summary.drop(columns=["method"])
+    with pd.option_context("display.width", 200, "display.max_columns", 20):
+        lines.extend("  " + s for s in shown.to_string(index=False, float_format=lambda x: f"{x:.3g}").splitlines())
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``allobranch check``; returns the exit code."""
+    # Refuse to overwrite before doing any work, so nothing is half-written.
+    if args.out:
+        _refuse_overwrite(Path(args.out) / JUNCTIONS_FILE, args.force, "--out")
+    if args.save_recipe:
+        _refuse_overwrite(Path(args.save_recipe), args.force, "--save-recipe file")
+    table = table_from_args(args)
+    geometry = junction_geometry(table)
+    print(format_check_report(table, naive_summary(geometry, by=("taxon",))))
+    if args.save_recipe:
+        path = write_recipe(table.mapping, args.save_recipe, overwrite=args.force)
+        print(f"Recipe written to {path}")
+    if args.out:
+        dest = Path(args.out) / JUNCTIONS_FILE
+        _write_csv(junction_output(table, geometry), dest, args.force)
+        print(f"Per-junction geometry written to {dest} (radii in {table.unit})")
+    n_no_root = int(np.isnan(geometry["exponent"]).sum())
+    if n_no_root:
+        print(f"Note: {n_no_root} junction(s) have no per-junction exponent; they stay in the table for the model.")
+    return 0

@@ -1,0 +1,97 @@
+"""Column-mapping options shared by the sub-commands that read a junction table (check, fit, compare)."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from allobranch.intake import read_junctions
+from allobranch.intake.mapping import MEASURES, ColumnMapping
+from allobranch.intake.recipe import load_recipe, mapping_from_options
+from allobranch.intake.table import JunctionTable
+from allobranch.intake.units import ALLOWED_UNITS
+
+
+def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool = True) -> None:
+    """Add the junction-table argument and the column-mapping options to a sub-command parser.
+
+    Parameters
+    ----------
+    parser : argparse.ArgumentParser
+        The sub-command's parser.
+    with_table : bool
+        Also add the positional ``TABLE`` argument (stored as ``args.table``).
+    """
+    if with_table:
+        parser.add_argument("table", metavar="TABLE",
+                            help="junction table: .csv, .tsv, semicolon-separated text (decimal comma), .parquet "
+                                 "or .xlsx; one row per junction")
+    group = parser.add_argument_group(
+        "column mapping",
+        "Name the columns of TABLE, or give a recipe file with --recipe. Options given beside --recipe "
+        "override the recipe's values.",
+    )
+    group.add_argument("--recipe", metavar="FILE", help="TOML recipe holding the column mapping")
+    group.add_argument("--parent", metavar="COL", help="column with the parent segment's size")
+    group.add_argument("--daughters", metavar="COL,COL[,COL...]",
+                       help="daughter size columns, comma-separated; third and later may be empty in a row")
+    group.add_argument("--taxon", metavar="COL", help="taxon column (default: one taxon named 'all')")
+    group.add_argument("--specimen", metavar="COL", help="specimen column (default: one specimen per taxon)")
+    group.add_argument("--junction", metavar="COL", help="junction label column (default: the row number)")
+    group.add_argument("--measure", choices=MEASURES, help="sizes are radii or diameters (default: radius)")
+    group.add_argument("--unit", metavar="UNIT",
+                       help=f"length unit of the sizes, one of {', '.join(ALLOWED_UNITS)} (default: mm)")
+    group.add_argument("--rel-error", metavar="FRACTION", type=float, dest="rel_error",
+                       help="known relative measurement error of every reading, e.g. 0.05 for 5%%")
+    group.add_argument("--se", metavar="COL[,COL...]",
+                       help="absolute standard-error column: one for every reading of a row, or one per size "
+                            "column (parent first)")
+    group.add_argument("--repeats", metavar="FILE",
+                       help="table of repeat readings (columns specimen, junction, segment, value); for an "
+                            "Excel TABLE also a sheet name")
+    group.add_argument("--sheet", metavar="NAME", help="Excel sheet holding the junctions (default: the first)")
+
+
+def mapping_from_args(args: argparse.Namespace) -> ColumnMapping:
+    """Build the column mapping from parsed options (recipe first, then the options over it).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments from a parser prepared with :func:`add_mapping_arguments`.
+
+    Returns
+    -------
+    ColumnMapping
+        The checked mapping.
+    """
+    base = load_recipe(args.recipe) if args.recipe else None
+    repeats = args.repeats
+    if repeats is not None and Path(repeats).is_file():
+        repeats = str(Path(repeats).resolve())  # a path typed on the command line is relative to here
+    return mapping_from_options(
+        base=base, parent=args.parent, daughters=args.daughters, taxon=args.taxon, specimen=args.specimen,
+        junction=args.junction, measure=args.measure, unit=args.unit, rel_error=args.rel_error, se=args.se,
+        repeats=repeats, sheet=args.sheet,
+    )
+
+
+def table_from_args(args: argparse.Namespace) -> JunctionTable:
+    """Read and validate ``args.table`` with the mapping given by the options.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments from a parser prepared with :func:`add_mapping_arguments`.
+
+    Returns
+    -------
+    JunctionTable
+        The validated junction table.
+
+    Raises
+    ------
+    allobranch.errors.InputError
+        When the table or the mapping cannot be used (the CLI prints the message and exits with code 2).
+    """
+    return read_junctions(args.table, mapping_from_args(args))
