@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import math
 import os
 import tomllib
 from collections.abc import Sequence
@@ -46,12 +45,20 @@ RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
 
 OPTIONS_ORIGIN = "<options>"
 
+#: The recipe section of every mapping field.
+FIELD_SECTION: dict[str, str] = {key: section for section, keys in RECIPE_SECTIONS.items() for key in keys}
 
-def _problem(origin: str, key: str | None, message: str, hint: str, code: str = "bad_recipe") -> Problem:
-    return Problem("fatal", origin, None, key, message, hint, code)
+
+def _problem(origin: str, key: str | None, message: str, hint: str) -> Problem:
+    """A fatal recipe/option problem; ``key`` is shown at the start of the message."""
+    return Problem("fatal", origin, None, None, f"{key}: {message}" if key else message, hint, "bad_recipe")
 
 
-def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN) -> ColumnMapping:
+def _key(field: str, in_recipe: bool) -> str:
+    return f"[{FIELD_SECTION[field]}] {field}" if in_recipe else field
+
+
+def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_recipe: bool = False) -> ColumnMapping:
     """Check a mapping for internal consistency and return it with canonical unit and measure spellings.
 
     Parameters
@@ -60,6 +67,8 @@ def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN) -> Colum
         The mapping to check.
     origin : str
         Recipe file name or ``"<options>"``, used in messages.
+    in_recipe : bool
+        Name keys as recipe keys (``[measurement] rel_error``) rather than field names in messages.
 
     Returns
     -------
@@ -73,36 +82,46 @@ def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN) -> Colum
         standard-error columns, a relative error outside (0, 1), an unknown measure or unit.
     """
     problems: list[Problem] = []
+
+    def add(field: str | None, message: str, hint: str) -> None:
+        problems.append(_problem(origin, field and _key(field, in_recipe), message, hint))
+
     roles = {"parent": (mapping.parent,), "daughters": mapping.daughters, "taxon": (mapping.taxon,),
              "specimen": (mapping.specimen,), "junction": (mapping.junction,), "se": mapping.se}
-    for key, names in roles.items():
+    for field, names in roles.items():
         for name in names:
             if name is not None and (not isinstance(name, str) or not name.strip()):
-                problems.append(_problem(origin, key, f"column name {name!r} is not a non-empty text", "write the column name as it appears in the header"))
+                add(field, f"column name {name!r} is not a non-empty text",
+                    "write the column name as it appears in the header")
     if not mapping.parent:
-        problems.append(_problem(origin, "parent", "no parent column given", "name the column holding the parent segment's size"))
+        add("parent", "no parent column given", "name the column holding the parent segment's size")
     if len(mapping.daughters) < 2:
-        problems.append(_problem(origin, "daughters", f"{len(mapping.daughters)} daughter column(s) given; a junction has at least two daughters", "list two or more daughter columns, e.g. d1,d2 (a third column may be empty where a junction has two)"))
-    used = [c for c in (mapping.parent, *mapping.daughters, mapping.taxon, mapping.specimen, mapping.junction, *mapping.se) if c]
+        add("daughters", f"{len(mapping.daughters)} daughter column(s) given; a junction has at least two daughters",
+            "list two or more daughter columns, e.g. d1,d2 (a third column may be empty where a junction has two)")
+    used = [c for c in (mapping.parent, *mapping.daughters, mapping.taxon, mapping.specimen, mapping.junction,
+                        *mapping.se) if c]
     twice = sorted({c for c in used if used.count(c) > 1})
     if twice:
-        problems.append(_problem(origin, None, f"column(s) {', '.join(repr(c) for c in twice)} used for more than one role", "map each column to one role only (parent, daughters, taxon, specimen, junction, se)"))
+        add(None, f"column(s) {', '.join(repr(c) for c in twice)} used for more than one role",
+            "map each column to one role only (parent, daughters, taxon, specimen, junction, se)")
     if mapping.se and len(mapping.se) not in (1, 1 + len(mapping.daughters)):
-        problems.append(_problem(origin, "se", f"{len(mapping.se)} standard-error columns given for {1 + len(mapping.daughters)} size columns", "give one SE column for all readings of a row, or one per size column (parent first, then the daughters in order)"))
-    if mapping.rel_error is not None:
-        r = mapping.rel_error
-        if isinstance(r, bool) or not isinstance(r, (int, float)) or not math.isfinite(r) or not 0 < r < 1:
-            problems.append(_problem(origin, "rel_error", f"relative error {r!r} is not a fraction between 0 and 1", "give it as a fraction, e.g. 0.05 for 5 %"))
+        add("se", f"{len(mapping.se)} standard-error columns given for {1 + len(mapping.daughters)} size columns",
+            "give one SE column for all readings of a row, or one per size column (parent first, then the "
+            "daughters in order)")
+    r = mapping.rel_error
+    if r is not None and (isinstance(r, bool) or not isinstance(r, (int, float)) or not 0 < r < 1):
+        add("rel_error", f"relative error {r!r} is not a fraction between 0 and 1",
+            "give it as a fraction, e.g. 0.05 for 5 %")
     measure = mapping.measure.strip().lower() if isinstance(mapping.measure, str) else mapping.measure
     if measure not in MEASURES:
-        problems.append(_problem(origin, "measure", f"unknown measure {mapping.measure!r}", f"use one of: {', '.join(MEASURES)}"))
+        add("measure", f"unknown measure {mapping.measure!r}", f"use one of: {', '.join(MEASURES)}")
     unit = mapping.unit
     try:
-        unit = canonical_unit(mapping.unit, origin=origin)
+        unit = canonical_unit(mapping.unit, origin=origin, key=_key("unit", in_recipe))
     except RecipeError as exc:
         problems.extend(exc.problems)
     if mapping.sheet is not None and (isinstance(mapping.sheet, bool) or not isinstance(mapping.sheet, (str, int))):
-        problems.append(_problem(origin, "sheet", f"sheet {mapping.sheet!r} is neither a name nor a position", "give the sheet's name"))
+        add("sheet", f"sheet {mapping.sheet!r} is neither a name nor a position", "give the sheet's name")
     if problems:
         raise RecipeError(problems)
     return dataclasses.replace(mapping, unit=unit, measure=measure)
@@ -137,58 +156,72 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
     except FileNotFoundError:
         raise RecipeError([_problem(origin, None, "recipe file not found", "check the path")]) from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise RecipeError([_problem(origin, None, f"not a valid TOML file ({exc})", "compare with the example recipe in the documentation")]) from None
+        raise RecipeError([_problem(origin, None, f"not a valid TOML file ({exc})",
+                                    "compare with the example recipe in the documentation")]) from None
     except OSError as exc:
-        raise RecipeError([_problem(origin, None, f"cannot read the recipe ({exc.strerror})", "check the path and permissions")]) from None
+        raise RecipeError([_problem(origin, None, f"cannot read the recipe ({exc.strerror})",
+                                    "check the path and permissions")]) from None
 
     problems: list[Problem] = []
     values: dict[str, Any] = {}
+    wrong_type: set[str] = set()
+    sections = ", ".join(f"[{s}]" for s in RECIPE_SECTIONS)
     for section, content in doc.items():
         if section not in RECIPE_SECTIONS:
-            problems.append(_problem(origin, section, f"unknown section [{section}]", f"use the sections: {', '.join(f'[{s}]' for s in RECIPE_SECTIONS)}"))
+            problems.append(_problem(origin, f"[{section}]", "unknown section", f"use the sections {sections}"))
             continue
         if not isinstance(content, dict):
-            problems.append(_problem(origin, section, f"'{section}' must be a section [{section}], not a value", f"write [{section}] on its own line followed by its keys"))
+            problems.append(_problem(origin, section, f"'{section}' must be a section [{section}], not a value",
+                                     f"write [{section}] on its own line followed by its keys"))
             continue
         for key, value in content.items():
             if key not in RECIPE_SECTIONS[section]:
-                problems.append(_problem(origin, f"{section}.{key}", f"unknown key '{key}' in [{section}]", f"allowed keys in [{section}]: {', '.join(RECIPE_SECTIONS[section])}"))
+                problems.append(_problem(origin, f"[{section}] {key}", "unknown key",
+                                         f"allowed keys in [{section}]: {', '.join(RECIPE_SECTIONS[section])}"))
                 continue
-            problems.extend(_check_type(origin, section, key, value))
-            values[key] = value
+            problem = _check_type(origin, key, value)
+            if problem is None:
+                values[key] = value
+            else:
+                problems.append(problem)
+                wrong_type.add(key)
     for key in ("parent", "daughters"):
-        if key not in values and not any(p.column == f"columns.{key}" for p in problems):
-            problems.append(_problem(origin, f"columns.{key}", f"the recipe does not name the '{key}' column(s)", f"add '{key} = ...' under [columns]"))
-    if problems:
-        raise RecipeError(problems)
+        if key not in values and key not in wrong_type:
+            problems.append(_problem(origin, _key(key, True), "missing",
+                                     f"add '{key} = ...' under [columns] naming the {key} column(s)"))
     if isinstance(values.get("rel_error"), int):
         values["rel_error"] = float(values["rel_error"])
     repeats = values.get("repeats")
     if repeats is not None and not Path(repeats).is_absolute() and (p.parent / repeats).exists():
         values["repeats"] = str((p.parent / repeats).resolve())
-    return check_mapping(ColumnMapping(**values), origin)
+    # Check the rest of the mapping even when parent/daughters are unusable, so every problem is listed.
+    placeholders = {"parent": "\0parent", "daughters": ("\0d1", "\0d2")}
+    try:
+        mapping = check_mapping(ColumnMapping(**{**placeholders, **values}), origin, in_recipe=True)
+    except RecipeError as exc:
+        problems.extend(exc.problems)
+    if problems:
+        raise RecipeError(problems)
+    return mapping
 
 
-def _check_type(origin: str, section: str, key: str, value: Any) -> list[Problem]:
-    where = f"{section}.{key}"
-    if key == "daughters":
-        ok = isinstance(value, list) and all(isinstance(v, str) for v in value)
-        expected = 'a list of column names, e.g. ["d1", "d2"]'
-    elif key == "se":
-        ok = isinstance(value, str) or (isinstance(value, list) and all(isinstance(v, str) for v in value))
-        expected = 'a column name or a list of column names'
-    elif key == "rel_error":
-        ok = isinstance(value, (int, float)) and not isinstance(value, bool)
-        expected = "a number, e.g. 0.05"
-    elif key == "sheet":
-        ok = isinstance(value, (str, int)) and not isinstance(value, bool)
-        expected = "a sheet name"
-    else:
-        ok = isinstance(value, str)
-        expected = "text in quotes"
-    if ok:
-        return []
-    return [_problem(origin, where, f"'{key}' has the wrong type ({type(value).__name__}: {value!r})", f"give {expected}")]
+#: Expected TOML type of every recipe key, as (check, description for the message).
+_EXPECTED: dict[str, tuple[Any, str]] = {
+    "daughters": (lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v),
+                  'a list of column names, e.g. ["d1", "d2"]'),
+    "se": (lambda v: isinstance(v, str) or (isinstance(v, list) and all(isinstance(x, str) for x in v)),
+           "a column name or a list of column names"),
+    "rel_error": (lambda v: isinstance(v, (int, float)) and not isinstance(v, bool), "a number, e.g. 0.05"),
+    "sheet": (lambda v: isinstance(v, (str, int)) and not isinstance(v, bool), "a sheet name"),
+}
+_TEXT = (lambda v: isinstance(v, str), "text in quotes")
+
+
+def _check_type(origin: str, key: str, value: Any) -> Problem | None:
+    ok, expected = _EXPECTED.get(key, _TEXT)
+    if ok(value):
+        return None
+    return _problem(origin, _key(key, True), f"wrong type ({type(value).__name__}: {value!r})", f"give {expected}")
 
 
 def _split(value: str | Sequence[str] | None) -> tuple[str, ...] | None:
@@ -260,7 +293,8 @@ def mapping_from_options(
     if base is None:
         missing = [k for k in ("parent", "daughters") if k not in updates]
         if missing:
-            raise RecipeError([_problem(OPTIONS_ORIGIN, k, f"no '{k}' column given", "give --parent and --daughters (or a recipe with --recipe)") for k in missing])
+            raise RecipeError([_problem(OPTIONS_ORIGIN, k, f"no '{k}' column given",
+                                        "give --parent and --daughters (or a recipe with --recipe)") for k in missing])
         mapping = ColumnMapping(**updates)
     else:
         mapping = dataclasses.replace(base, **updates)
