@@ -129,3 +129,18 @@ def test_subprocess_success(table):
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
     assert "junctions used: 6" in proc.stdout
+
+
+def test_bad_destinations_fail_before_work(table, tmp_path, capsys):
+    a_file = tmp_path / "a_file"
+    a_file.write_text("x")
+    assert main(["check", str(table), *FLAGS, "--out", str(a_file)]) == 2
+    captured = capsys.readouterr()
+    assert "must be a folder" in captured.err and captured.out == ""
+    assert main(["check", str(table), *FLAGS, "--save-recipe", str(tmp_path / "nodir" / "r.toml")]) == 2
+    assert "does not exist" in capsys.readouterr().err
+
+
+def test_no_root_reasons_reported(table, capsys):
+    assert main(["check", str(table), *FLAGS]) == 0
+    assert "daughter_ge_parent: 1" in capsys.readouterr().out

@@ -7,11 +7,10 @@ import os
 import tempfile
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from allobranch.cli.options import add_mapping_arguments, table_from_args
-from allobranch.errors import OutputExistsError
+from allobranch.errors import AllobranchError, OutputExistsError
 from allobranch.geometry import NAIVE_NOTE, junction_geometry, naive_summary
 from allobranch.intake.recipe import write_recipe
 from allobranch.intake.table import JunctionTable
@@ -66,9 +65,13 @@ def _refuse_overwrite(dest: Path, force: bool, option: str) -> None:
 
 
 def _write_csv(frame: pd.DataFrame, dest: Path, force: bool) -> None:
+    """Write via a temporary file in the same folder, so an interrupted run leaves no partial file."""
     _refuse_overwrite(dest, force, "--out")
-    dest.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
+    try:
+        dest.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
+    except OSError as exc:
+        raise AllobranchError(f"{dest.parent}: cannot create the output folder or file ({exc.strerror})") from None
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             frame.to_csv(fh, index=False)
@@ -109,15 +112,21 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
         Counts, every flag and excluded row, and the naive summary.
     """
     d = table.data
+    m = table.mapping
     hist = d["n_daughters"].value_counts().sort_index()
+    roles = [f"parent '{m.parent}'", "daughters " + ", ".join(f"'{c}'" for c in m.daughters)]
+    roles += [f"{role} '{col}'" for role, col in (("taxon", m.taxon), ("specimen", m.specimen),
+                                                    ("junction", m.junction)) if col]
     lines = [
         f"Table: {table.source}",
+        "  columns: " + "; ".join(roles),
         f"  rows read: {table.report.n_rows_read}; junctions used: {table.n_junctions}; "
         f"taxa: {len(table.taxa)}; specimens: {len(table.specimens)}",
         "  daughters per junction: " + ", ".join(f"{k}: {v}" for k, v in hist.items()),
         f"  sizes: {table.mapping.measure} in {table.unit}; measurement error: {_error_note(table)}",
     ]
-    for title, items in (("Flagged rows (kept)", table.report.flags), ("Excluded rows (not used)", table.report.excluded)):
+    sections = (("Flagged rows (kept)", table.report.flags), ("Excluded rows (not used)", table.report.excluded))
+    for title, items in sections:
         lines.append(f"{title}: {len(items)}")
         lines.extend(f"  {p.format()}" for p in items)
     lines.append(f"Naive summary by taxon -- {NAIVE_NOTE}:")
@@ -129,22 +138,31 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch check``; returns the exit code."""
-    # Refuse to overwrite before doing any work, so nothing is half-written.
+    # Check the destinations before doing any work, so a run fails early rather than half-way.
     if args.out:
+        if Path(args.out).exists() and not Path(args.out).is_dir():
+            raise AllobranchError(f"{args.out}: --out must be a folder, but this is a file")
         _refuse_overwrite(Path(args.out) / JUNCTIONS_FILE, args.force, "--out")
     if args.save_recipe:
+        if not Path(args.save_recipe).resolve().parent.is_dir():
+            raise AllobranchError(f"{args.save_recipe}: the folder for --save-recipe does not exist")
         _refuse_overwrite(Path(args.save_recipe), args.force, "--save-recipe file")
     table = table_from_args(args)
     geometry = junction_geometry(table)
     print(format_check_report(table, naive_summary(geometry, by=("taxon",))))
     if args.save_recipe:
-        path = write_recipe(table.mapping, args.save_recipe, overwrite=args.force)
+        try:
+            path = write_recipe(table.mapping, args.save_recipe, overwrite=args.force)
+        except OSError as exc:
+            raise AllobranchError(f"{args.save_recipe}: cannot write the recipe ({exc.strerror})") from None
         print(f"Recipe written to {path}")
     if args.out:
         dest = Path(args.out) / JUNCTIONS_FILE
         _write_csv(junction_output(table, geometry), dest, args.force)
         print(f"Per-junction geometry written to {dest} (radii in {table.unit})")
-    n_no_root = int(np.isnan(geometry["exponent"]).sum())
-    if n_no_root:
-        print(f"Note: {n_no_root} junction(s) have no per-junction exponent; they stay in the table for the model.")
+    reasons = geometry["no_root_reason"].dropna().value_counts()
+    if len(reasons):
+        why = ", ".join(f"{reason}: {count}" for reason, count in reasons.items())
+        print(f"Note: {int(reasons.sum())} junction(s) have no per-junction exponent ({why}); they stay in the "
+              "table for the model.")
     return 0
