@@ -21,7 +21,13 @@ JUNCTIONS_FILE = "junctions.csv"
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
-    """Add the ``check`` sub-command."""
+    """Add the ``check`` sub-command.
+
+    Parameters
+    ----------
+    subparsers : argparse._SubParsersAction
+        The top-level parser's sub-command collection.
+    """
     parser = subparsers.add_parser(
         "check",
         help="validate a junction table and describe it",
@@ -137,7 +143,19 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``allobranch check``; returns the exit code."""
+    """Run ``allobranch check``.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments (mapping options, ``out``, ``save_recipe``, ``force``).
+
+    Returns
+    -------
+    int
+        0 when the table is usable; unusable input raises an :class:`~allobranch.errors.AllobranchError`,
+        which the command-line entry point reports with exit code 2.
+    """
     # Check the destinations before doing any work, so a run fails early rather than half-way.
     if args.out:
         if Path(args.out).exists() and not Path(args.out).is_dir():
