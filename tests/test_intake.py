@@ -262,7 +262,8 @@ def test_specimen_under_two_taxa(tmp_path):
 
 def test_missing_label_is_fatal(tmp_path):
     with pytest.raises(InputError) as exc:
-        read_junctions(_write(tmp_path, "t,p,d1,d2\nA,1,0.6,0.5\n,1,0.6,0.5\n"), taxon="t", parent="p", daughters="d1,d2")
+        read_junctions(_write(tmp_path, "t,p,d1,d2\nA,1,0.6,0.5\n,1,0.6,0.5\n"), taxon="t", parent="p",
+                       daughters="d1,d2")
     assert [(p.row, p.column, p.code) for p in exc.value.problems] == [(3, "t", "missing_label")]
 
 
@@ -399,7 +400,8 @@ def test_recipe_se_list_and_sheet(tmp_path):
         ('[columns]\nparent = "p"\ndaughters = "a"\n', "[columns] daughters"),
         ('[columns]\nparent = 3\ndaughters = ["a", "b"]\n', "[columns] parent"),
         ('[columns]\ndaughters = ["a", "b"]\n', "[columns] parent"),
-        ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = "5%"\n', "[measurement] rel_error"),
+        ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = "5%"\n',
+         "[measurement] rel_error"),
         ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = 5\n', "[measurement] rel_error"),
         ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nunit = "furlong"\n', "[measurement] unit"),
         ('[colums]\nparent = "p"\n', "[colums]"),

@@ -76,7 +76,8 @@ def solve_exponent(parent: np.ndarray, daughters: np.ndarray) -> tuple[np.ndarra
     exponent = np.full(n, np.nan)
     reason = np.full(n, None, dtype=object)
     present = ~np.isnan(daughters)
-    sizes_ok = np.isfinite(parent) & (parent > 0) & np.all(~present | (np.isfinite(daughters) & (daughters > 0)), axis=1)
+    daughters_ok = np.all(~present | (np.isfinite(daughters) & (daughters > 0)), axis=1)
+    sizes_ok = np.isfinite(parent) & (parent > 0) & daughters_ok
     reason[~sizes_ok] = "invalid_sizes"
     two = present.sum(axis=1) >= 2
     reason[sizes_ok & ~two] = "fewer_than_two_daughters"

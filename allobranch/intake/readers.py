@@ -140,7 +140,8 @@ def _decode(path: Path, label: str) -> str:
     try:
         data = path.read_bytes()
     except OSError as exc:
-        raise _fatal(label, f"cannot read the file ({exc.strerror})", "check the file's permissions", "unreadable") from None
+        raise _fatal(label, f"cannot read the file ({exc.strerror})", "check the file's permissions",
+                     "unreadable") from None
     if not data.strip():
         raise _fatal(label, "the file is empty", "export the table again, with a header row", "empty_table")
     for magic, what in _MAGIC:
@@ -217,7 +218,8 @@ def _read_text(path: Path, label: str) -> RawTable:
             "parse_error",
         ) from None
     except pd.errors.EmptyDataError:
-        raise _fatal(label, "the file has no header row", "put the column names on the first line", "empty_table") from None
+        raise _fatal(label, "the file has no header row", "put the column names on the first line",
+                     "empty_table") from None
     rows = np.arange(len(frame)) + header_line + 1
     return RawTable(frame=frame, label=label, rows=rows, decimal=decimal, kind=kind, path=path.resolve())
 
@@ -299,7 +301,8 @@ def _read_excel(path: Path, label: str, sheet: str | int | None) -> RawTable:
 
     first = next((i for i, r in enumerate(cells) if not blank(r)), None)
     if first is None:
-        raise _fatal(f"{label} [sheet {chosen!r}]", "the sheet is empty", "put a header row and data on it", "empty_table")
+        raise _fatal(f"{label} [sheet {chosen!r}]", "the sheet is empty", "put a header row and data on it",
+                     "empty_table")
     # Trailing empty rows are invisible in a spreadsheet (often just formatting), so they are not data rows.
     last = max(i for i, r in enumerate(cells) if not blank(r))
     header = cells[first]

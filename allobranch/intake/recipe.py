@@ -352,5 +352,7 @@ def write_recipe(mapping: ColumnMapping, path: str | os.PathLike, *, overwrite: 
         with dest.open("w" if overwrite else "x", encoding="utf-8") as fh:
             fh.write("\n".join(lines))
     except FileExistsError:
-        raise OutputExistsError(f"{dest}: the recipe file already exists; choose another name or remove it first") from None
+        raise OutputExistsError(
+            f"{dest}: the recipe file already exists; choose another name or remove it first"
+        ) from None
     return dest

@@ -206,7 +206,8 @@ def _parse_se(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: Colum
                 "kept; the model will treat this reading's absolute error as unknown", "se_missing")
     if len(mapping.se) > 1:
         for i, j in zip(*np.nonzero(~present & ~np.isnan(se)), strict=True):
-            out.add("flag", rows[i], mapping.se[j], f"a standard error is given but {mapping.size_columns[j]!r} is empty",
+            out.add("flag", rows[i], mapping.se[j],
+                    f"a standard error is given but {mapping.size_columns[j]!r} is empty",
                     "kept, but this standard error is not used; check the row", "se_without_size")
     se[~present] = np.nan
     return se
@@ -237,7 +238,8 @@ def _check_groups(taxon: list[str], specimen: list[str], junction: list[str], ro
                 where = "; ".join(f"'{t}' (rows {', '.join(map(str, rs[:5]))}{', ...' if len(rs) > 5 else ''})"
                                   for t, rs in by_taxon.items())
                 second = list(by_taxon.values())[1][0]
-                out.add("fatal", second, mapping.specimen, f"specimen '{s}' is listed under more than one taxon: {where}",
+                out.add("fatal", second, mapping.specimen,
+                        f"specimen '{s}' is listed under more than one taxon: {where}",
                         "a specimen belongs to one taxon; correct the taxon or give the specimens distinct labels",
                         "specimen_in_two_taxa")
     if mapping.junction is not None:
