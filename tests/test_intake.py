@@ -270,7 +270,7 @@ def test_missing_label_is_fatal(tmp_path):
 @pytest.mark.parametrize("rel_error", [0.0, 1.0, -0.1, 1.5, float("nan")])
 def test_rel_error_outside_unit_interval(rel_error):
     with pytest.raises(RecipeError, match="rel_error|relative error"):
-        read_junctions(_frame(), rel_error=rel_error, **{k: v for k, v in MAP.items()})
+        read_junctions(_frame(), rel_error=rel_error, **MAP)
 
 
 def test_fewer_than_two_daughter_columns():
