@@ -1,0 +1,171 @@
+"""PyTensor operations wrapping the fused junction-likelihood kernels.
+
+Two forms, chosen by :func:`allobranch.model.build.build_model`:
+
+* ``"fast"`` -- measurement error and asymmetry scale fixed: inputs ``a_spec, sigma_dev, nu`` and the
+  precomputed daughter posteriors; analytic derivatives.
+* ``"full"`` -- measurement error and asymmetry scale sampled: inputs ``a_spec, sigma_dev, sigma_rel,
+  sigma_asym, nu`` and the raw data; complex-step derivatives.
+
+Each Op returns the per-junction log-likelihood (one term per junction, all its readings), and its gradient
+Op returns one vector ``[d a_spec..., d scalar parameters...]``. The Ops run in PyTensor's Python/C mode and
+are also registered with PyTensor's numba backend so that nutpie can compile the whole model.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytensor.tensor as pt
+from pytensor.gradient import DisconnectedType
+from pytensor.graph.basic import Apply
+from pytensor.graph.op import Op
+
+from allobranch.model import kernel
+
+#: Number of parameter inputs (the first inputs) of each form.
+N_PARAMS = {"fast": 3, "full": 5}
+
+
+def _fast_call(student, a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
+    return kernel.fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, student)
+
+
+def _full_call(student, srel_free, a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx):
+    skip = np.array([False, False, not srel_free, False, not student])
+    return kernel.junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, student, skip)
+
+
+class JunctionLoglik(Op):
+    """Per-junction marginal log-likelihood, shape ``(n_junctions,)``."""
+
+    __props__ = ("kind", "student", "srel_free")
+
+    def __init__(self, kind: str, student: bool, srel_free: bool = False) -> None:
+        if kind not in N_PARAMS:
+            raise ValueError(f"kind must be one of {sorted(N_PARAMS)}")
+        self.kind = kind
+        self.student = bool(student)
+        self.srel_free = bool(srel_free)
+
+    def make_node(self, *inputs):
+        inputs = [pt.as_tensor_variable(x) for x in inputs]
+        return Apply(self, inputs, [pt.dvector()])
+
+    def _terms(self, inputs):
+        args = [np.asarray(x) for x in inputs]
+        p = N_PARAMS[self.kind]
+        params = [args[0]] + [float(x) for x in args[1:p]]
+        if self.kind == "fast":
+            return _fast_call(self.student, *params, *args[p:])
+        return _full_call(self.student, self.srel_free, *params, *args[p:])
+
+    def perform(self, node, inputs, outputs):
+        outputs[0][0] = self._terms(inputs)[0]
+
+    def connection_pattern(self, node):
+        p = N_PARAMS[self.kind]
+        return [[i < p] for i in range(len(node.inputs))]
+
+    def grad(self, inputs, output_grads):
+        p = N_PARAMS[self.kind]
+        flat = JunctionLoglikGrad(self.kind, self.student, self.srel_free)(*inputs, output_grads[0])
+        n_spec = inputs[0].shape[0]
+        grads = [flat[:n_spec]] + [flat[n_spec + i] for i in range(p - 1)]
+        return grads + [DisconnectedType()() for _ in inputs[p:]]
+
+
+class JunctionLoglikGrad(Op):
+    """Gradient of :class:`JunctionLoglik` times an upstream vector, as one flat vector."""
+
+    __props__ = ("kind", "student", "srel_free")
+
+    def __init__(self, kind: str, student: bool, srel_free: bool = False) -> None:
+        self.kind = kind
+        self.student = bool(student)
+        self.srel_free = bool(srel_free)
+
+    def make_node(self, *inputs):
+        inputs = [pt.as_tensor_variable(x) for x in inputs]
+        return Apply(self, inputs, [pt.dvector()])
+
+    def perform(self, node, inputs, outputs):
+        *data, gout = inputs
+        _, dll, _, _ = JunctionLoglik(self.kind, self.student, self.srel_free)._terms(data)
+        spec_idx = np.asarray(data[-1])
+        da, ds = kernel.aggregate_gradient(np.asarray(gout, dtype=float), dll, spec_idx, data[0].shape[0])
+        outputs[0][0] = _flatten(self.kind, da, ds)
+
+
+def _flatten(kind: str, da: np.ndarray, ds: np.ndarray) -> np.ndarray:
+    # ds is ordered (sigma_dev, sigma_rel, sigma_asym, nu)
+    if kind == "fast":
+        return np.concatenate([da, ds[[0, 3]]])
+    return np.concatenate([da, ds])
+
+
+def _register_numba() -> None:
+    """Teach PyTensor's numba backend (used by nutpie) to compile the Ops."""
+    try:
+        from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
+    except ImportError:  # pragma: no cover - older PyTensor
+        return
+
+    @register_funcify_default_op_cache_key(JunctionLoglik)
+    def _funcify_loglik(op, node, **kwargs):
+        student, srel_free = op.student, op.srel_free
+        if op.kind == "fast":
+
+            @numba_njit
+            def fast(a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
+                return kernel.fast_terms(
+                    y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev.item(), nu.item(), student
+                )[0]
+
+            return fast
+        skip = np.array([False, False, not srel_free, False, not student])
+
+        @numba_njit
+        def full(a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx):
+            return kernel.junction_terms(
+                y0, Y, M, V0, V, spec_idx, a_spec, sdev.item(), srel.item(), sasym.item(), nu.item(),
+                student, skip,
+            )[0]
+
+        return full
+
+    @register_funcify_default_op_cache_key(JunctionLoglikGrad)
+    def _funcify_grad(op, node, **kwargs):
+        student, srel_free = op.student, op.srel_free
+        if op.kind == "fast":
+
+            @numba_njit
+            def fast_grad(a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, gout):
+                _, dll, _, _ = kernel.fast_terms(
+                    y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev.item(), nu.item(), student
+                )
+                da, ds = kernel.aggregate_gradient(gout, dll, spec_idx, a_spec.shape[0])
+                out = np.empty(a_spec.shape[0] + 2)
+                out[: a_spec.shape[0]] = da
+                out[a_spec.shape[0]] = ds[0]
+                out[a_spec.shape[0] + 1] = ds[3]
+                return out
+
+            return fast_grad
+        skip = np.array([False, False, not srel_free, False, not student])
+
+        @numba_njit
+        def full_grad(a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx, gout):
+            _, dll, _, _ = kernel.junction_terms(
+                y0, Y, M, V0, V, spec_idx, a_spec, sdev.item(), srel.item(), sasym.item(), nu.item(),
+                student, skip,
+            )
+            da, ds = kernel.aggregate_gradient(gout, dll, spec_idx, a_spec.shape[0])
+            out = np.empty(a_spec.shape[0] + 4)
+            out[: a_spec.shape[0]] = da
+            out[a_spec.shape[0]:] = ds
+            return out
+
+        return full_grad
+
+
+_register_numba()

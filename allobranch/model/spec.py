@@ -1,0 +1,129 @@
+"""Model specification: what to fit, independent of how it is sampled.
+
+A :class:`ModelSpec` can be built and checked without PyMC; :func:`allobranch.model.build.build_model` turns
+it and a junction table into a PyMC model in one place.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field, replace
+from typing import Any, Mapping
+
+#: Allowed likelihood forms.
+LIKELIHOODS: tuple[str, ...] = ("marginal", "latent")
+#: Allowed distributions of the junction-level biological deviation.
+DEVIATIONS: tuple[str, ...] = ("normal", "student_t")
+#: Allowed parametrisations of the hierarchy.
+PARAMETRIZATIONS: tuple[str, ...] = ("auto", "noncentered", "centered")
+#: Junctions per specimen above which ``auto`` uses a centred specimen level (the data then dominate
+#: each specimen's exponent; common practice, no source: centred suits well-informed groups).
+CENTERED_ABOVE = 50
+
+
+@dataclass(frozen=True)
+class Priors:
+    """Weakly informative default priors, on the scale of the problem.
+
+    All scales refer to the exponent ``a`` or to natural-log radii (0.1 on the log scale is about a 10 %
+    change of a radius).
+
+    Parameters
+    ----------
+    mu_mean, mu_sd : float
+        Normal prior of the population exponent: ``Normal(2.5, 1)`` puts about 87 % of its mass on
+        the plausible range 1-4 and covers every classic law (3/2, 2, 7/3, 3).
+    tau_taxon : float
+        Half-normal scale of the between-taxon standard deviation of the exponent (default 0.5).
+    tau_specimen : float
+        Half-normal scale of the between-specimen (within taxon) standard deviation (default 0.25).
+    sigma_dev : float
+        Half-normal scale of the junction-level biological deviation of log parent radius from the law
+        (default 0.1, i.e. about 10 %).
+    sigma_meas : float
+        Half-normal scale of the relative measurement error when it is estimated (default 0.1).
+    nu_alpha, nu_beta : float
+        Gamma(alpha, rate beta) prior of the Student-t degrees of freedom (default Gamma(2, 0.1), mean 20).
+    """
+
+    mu_mean: float = 2.5
+    mu_sd: float = 1.0
+    tau_taxon: float = 0.5
+    tau_specimen: float = 0.25
+    sigma_dev: float = 0.1
+    sigma_meas: float = 0.1
+    nu_alpha: float = 2.0
+    nu_beta: float = 0.1
+
+    def __post_init__(self) -> None:
+        for name, value in asdict(self).items():
+            if name != "mu_mean" and not value > 0:
+                raise ValueError(f"prior '{name}' must be positive, got {value!r}")
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """What to fit.
+
+    Parameters
+    ----------
+    taxon_level, specimen_level : bool or None
+        Include the taxon / specimen level of the exponent hierarchy. ``None`` (default) includes a level
+        when it has more than one group somewhere.
+    deviation : {"normal", "student_t"}
+        Distribution of the junction-level biological deviation of the parent from the law.
+    likelihood : {"marginal", "latent"}
+        ``marginal`` (default, fast) integrates the true daughter radii out with a second-order delta
+        method, leaving no per-junction parameters; ``latent`` keeps every true daughter radius as a
+        parameter (exact, slow; used to validate the fast form).
+    parametrization : {"auto", "noncentered", "centered"}
+        Parametrisation of the hierarchy; ``auto`` is non-centred except for a specimen level whose median
+        specimen has more than :data:`CENTERED_ABOVE` junctions.
+    fixed_exponent : float or None
+        Fix the exponent of every taxon to this value (a point law for the whole data set); the specimen
+        level, if any, still varies around it.
+    fixed_taxa : mapping of str to float
+        Fix the exponent of the named taxa only; the rest of the model is unchanged.
+    priors : Priors
+        Prior scales.
+    """
+
+    taxon_level: bool | None = None
+    specimen_level: bool | None = None
+    deviation: str = "normal"
+    likelihood: str = "marginal"
+    parametrization: str = "auto"
+    fixed_exponent: float | None = None
+    fixed_taxa: Mapping[str, float] = field(default_factory=dict)
+    priors: Priors = field(default_factory=Priors)
+
+    def __post_init__(self) -> None:
+        for name, allowed in (
+            ("deviation", DEVIATIONS),
+            ("likelihood", LIKELIHOODS),
+            ("parametrization", PARAMETRIZATIONS),
+        ):
+            if getattr(self, name) not in allowed:
+                raise ValueError(f"{name} must be one of {', '.join(allowed)}; got {getattr(self, name)!r}")
+        if self.fixed_exponent is not None and self.fixed_taxa:
+            raise ValueError("give either fixed_exponent (all taxa) or fixed_taxa (some taxa), not both")
+        for label, value in {"fixed_exponent": self.fixed_exponent, **dict(self.fixed_taxa)}.items():
+            if value is not None and not (0 < float(value) < 20):
+                raise ValueError(f"fixed exponent for {label!r} must lie in (0, 20), got {value!r}")
+        object.__setattr__(self, "fixed_taxa", {str(k): float(v) for k, v in dict(self.fixed_taxa).items()})
+
+    def with_(self, **changes: Any) -> "ModelSpec":
+        """Return a copy with some fields changed."""
+        return replace(self, **changes)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain-dict form for provenance."""
+        out = asdict(self)
+        out["fixed_taxa"] = dict(self.fixed_taxa)
+        return out
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> "ModelSpec":
+        """Inverse of :meth:`to_dict`."""
+        data = dict(data)
+        data["priors"] = Priors(**data.get("priors", {}))
+        return cls(**data)
