@@ -1,0 +1,143 @@
+"""Helpers shared by the figure modules: input checks, law reference lines and legends."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+
+import numpy as np
+import pandas as pd
+
+from allobranch.reporting.style import law_styles
+
+#: Columns of an exponents table (one row per level x group).
+EXPONENT_COLUMNS: tuple[str, ...] = (
+    "level", "group", "taxon", "mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk",
+)
+#: Allowed values of the exponents table's ``level`` column, top to bottom in a forest plot.
+LEVELS: tuple[str, ...] = ("population", "taxon", "specimen")
+
+#: Laws given as the comparison stage's table or as ``{label: exponent}``.
+LawsLike = pd.DataFrame | Mapping[str, float]
+
+
+def require_columns(table: pd.DataFrame, columns: Iterable[str], name: str) -> None:
+    """Raise ``ValueError`` naming every column ``table`` lacks.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The table handed to a plot function.
+    columns : iterable of str
+        Required column names.
+    name : str
+        What the table is called in the message (e.g. ``"exponents"``).
+    """
+    if not isinstance(table, pd.DataFrame):
+        raise TypeError(f"{name} must be a pandas DataFrame; got {type(table).__name__}")
+    missing = [c for c in columns if c not in table.columns]
+    if missing:
+        raise ValueError(f"the {name} table lacks column(s) {missing}; it has {list(table.columns)}")
+    if table.empty:
+        raise ValueError(f"the {name} table has no rows")
+
+
+def check_levels(exponents: pd.DataFrame) -> None:
+    """Raise ``ValueError`` if ``level`` holds a value outside :data:`LEVELS`."""
+    bad = sorted(set(exponents["level"].astype(str)) - set(LEVELS))
+    if bad:
+        raise ValueError(f"the exponents table's level column must hold {LEVELS}; found {bad}")
+
+
+def hdi_percent(table: pd.DataFrame) -> str:
+    """The HDI probability of a table as a label such as ``"90% HDI"`` (``"HDI"`` when not recorded)."""
+    prob = table.attrs.get("hdi_prob")
+    if prob is None:
+        return "HDI"
+    return f"{100 * float(prob):.4g}% HDI"
+
+
+def law_values(laws: LawsLike | None) -> list[tuple[str, float]]:
+    """Distinct ``(label, exponent)`` pairs of the point laws, in increasing order of exponent.
+
+    Parameters
+    ----------
+    laws : pandas.DataFrame, mapping or None
+        A laws table (columns ``law`` and ``value``; rows with NaN ``value``, the free model, are skipped)
+        or a mapping from label to exponent.
+
+    Returns
+    -------
+    list of (str, float)
+    """
+    if laws is None:
+        return []
+    if isinstance(laws, pd.DataFrame):
+        require_columns(laws, ("law", "value"), "laws")
+        pairs = laws[["law", "value"]].drop_duplicates().itertuples(index=False)
+        items = [(str(label), float(value)) for label, value in pairs]
+    else:
+        items = [(str(label), float(value)) for label, value in laws.items()]
+    items = [(label, value) for label, value in items if np.isfinite(value)]
+    bad = [label for label, value in items if value <= 0]
+    if bad:
+        raise ValueError(f"law exponents must be positive; check {bad}")
+    seen: dict[float, str] = {}
+    for label, value in items:
+        if value in seen and seen[value] != label:
+            raise ValueError(f"laws {seen[value]!r} and {label!r} have the same exponent {value:g}")
+        seen.setdefault(value, label)
+    return sorted(((label, value) for value, label in seen.items()), key=lambda pair: pair[1])
+
+
+def draw_law_lines(ax, laws: list[tuple[str, float]]) -> None:
+    """Draw a labelled vertical reference line at each law's exponent.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        Target axes.
+    laws : list of (str, float)
+        Output of :func:`law_values`.
+    """
+    styles = law_styles([v for _, v in laws])
+    for label, value in laws:
+        st = styles[value]
+        ax.axvline(value, color=st.color, linestyle=st.linestyle, linewidth=1.0, zorder=1, label=label,
+                   gid=f"law-line:{value!r}")
+
+
+def legend_above(ax, ncol: int | None = None, **kwargs):
+    """Place the Axes legend above the plot, where it cannot cover data or the axis label.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        Axes whose labelled artists go into the legend.
+    ncol : int, optional
+        Number of legend columns; two by default (one when there are at most two entries).
+    **kwargs
+        Passed to :meth:`matplotlib.axes.Axes.legend`.
+
+    Returns
+    -------
+    matplotlib.legend.Legend or None
+        None when nothing is labelled.
+    """
+    handles, labels = ax.get_legend_handles_labels()
+    if not handles:
+        return None
+    if ncol is None:
+        ncol = 1 if len(handles) <= 2 else 2
+    kwargs.setdefault("loc", "lower center")
+    kwargs.setdefault("bbox_to_anchor", (0.5, 1.02))
+    return ax.legend(handles, labels, ncol=ncol, borderaxespad=0.0, columnspacing=1.2, **kwargs)
+
+
+def padded_limits(values: Iterable[float], pad: float = 0.05) -> tuple[float, float]:
+    """Limits covering every finite value with a relative margin on both sides."""
+    arr = np.asarray([v for v in values if np.isfinite(v)], dtype=float)
+    if arr.size == 0:
+        return 0.0, 1.0
+    lo, hi = float(arr.min()), float(arr.max())
+    span = hi - lo if hi > lo else max(abs(hi), 1.0)
+    return lo - pad * span, hi + pad * span

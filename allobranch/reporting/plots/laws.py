@@ -1,0 +1,110 @@
+"""Law comparison: predictive accuracy (ELPD differences) beside Bayes factors, per scope."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from allobranch.reporting.plots._common import padded_limits, require_columns
+from allobranch.reporting.style import figure, house_style, law_styles
+
+#: Columns of the laws table this plot reads.
+LAWS_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd_diff", "dse", "weight", "log10_bf", "p_rope")
+#: Height of one law row and of a scope heading, in millimetres, when the figure is created here.
+ROW_MM = 7.5
+FRAME_MM = 24.0
+#: Bayes-factor guide lines: |log10 BF| = 1 is a factor of 10 either way.
+BF_GUIDES = (-1.0, 1.0)
+
+
+def _rows(laws_table: pd.DataFrame) -> tuple[list[tuple[int, float]], list[tuple[str, float]]]:
+    """Law rows ``(index, y)`` and scope headings ``(scope, y)``; "overall" first, then by appearance."""
+    scopes = list(dict.fromkeys(laws_table["scope"].astype(str)))
+    if "overall" in scopes:
+        scopes.remove("overall")
+        scopes.insert(0, "overall")
+    rows, headings = [], []
+    y = 0.0
+    for scope in scopes:
+        headings.append((scope, y))
+        y += 0.8
+        for i in laws_table.index[laws_table["scope"].astype(str) == scope]:
+            rows.append((i, y))
+            y += 1.0
+        y += 0.2
+    return rows, headings
+
+
+def _tick_label(row: pd.Series) -> str:
+    detail = [f"weight {row['weight']:.2f}"] if np.isfinite(row["weight"]) else []
+    if np.isfinite(row["p_rope"]):
+        detail.append(f"P(ROPE) {row['p_rope']:.2f}")
+    return f"{row['law']}\n{', '.join(detail)}" if detail else str(row["law"])
+
+
+def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
+    """ELPD differences with their standard errors and log10 Bayes factors, one row per hypothesis.
+
+    Parameters
+    ----------
+    laws_table : pandas.DataFrame
+        One row per hypothesis with ``scope`` (``"overall"`` or a taxon label), ``law`` (label),
+        ``value`` (exponent; NaN for the free model), ``elpd``, ``elpd_diff`` (difference to the best model
+        of the same scope as reported by :func:`arviz.compare`: 0 for the best, positive for worse),
+        ``dse`` (standard error of that difference), ``weight`` (stacking weight), ``log10_bf`` (log10
+        Bayes factor of the law against the free model; NaN for the free model) and ``p_rope`` (posterior
+        probability that the exponent lies within the region of practical equivalence of the law).
+    axes : sequence of two matplotlib.axes.Axes, optional
+        Left axes for ELPD differences, right axes for Bayes factors (sharing the y axis is advisable);
+        a single-column figure with two panels is created when omitted.
+
+    Returns
+    -------
+    numpy.ndarray of matplotlib.axes.Axes
+        The two axes. Rows are grouped by scope (``"overall"`` first) under a heading; tick labels carry
+        each law's stacking weight and ``P(ROPE)``.
+    """
+    require_columns(laws_table, LAWS_COLUMNS, "laws")
+    table = laws_table.reset_index(drop=True)
+    rows, headings = _rows(table)
+    styles = law_styles([v for v in table["value"] if np.isfinite(v)])
+    with house_style():
+        if axes is None:
+            _, axes = figure("single", height_mm=FRAME_MM + ROW_MM * (len(rows) + 0.8 * len(headings)),
+                             ncols=2, sharey=True, gridspec_kw={"wspace": 0.08})
+        axes = np.asarray(axes, dtype=object).ravel()
+        if axes.size != 2:
+            raise ValueError(f"axes must hold exactly two Axes; got {axes.size}")
+        ax_elpd, ax_bf = axes
+        for i, y in rows:
+            row = table.loc[i]
+            free = not np.isfinite(row["value"])
+            st = styles.get(float(row["value"])) if not free else None
+            color, marker = ("#000000", "o") if free else (st.color, st.marker)
+            mfc = "white" if free else color
+            ax_elpd.errorbar([row["elpd_diff"]], [y], xerr=[[row["dse"]], [row["dse"]]], fmt=marker, ms=4.5,
+                             color=color, mfc=mfc, elinewidth=1.1, zorder=3, gid=f"elpd:{row['scope']}:{row['law']}")
+            if free:
+                ax_bf.text(0.0, y, "reference", ha="center", va="center", fontsize=6, color="#555555",
+                           gid=f"bf-reference:{row['scope']}")
+            elif np.isfinite(row["log10_bf"]):
+                ax_bf.plot([row["log10_bf"]], [y], marker=marker, ms=4.5, color=color, linestyle="none",
+                           zorder=3, gid=f"bf:{row['scope']}:{row['law']}")
+        for scope, y in headings:
+            ax_elpd.text(0.0, y, scope, transform=ax_elpd.get_yaxis_transform(), ha="left", va="center",
+                         fontweight="bold", fontsize=7, gid=f"scope:{scope}")
+        ax_elpd.axvline(0.0, color="#888888", lw=0.6, zorder=1)
+        ax_bf.axvline(0.0, color="#888888", lw=0.6, zorder=1)
+        for g in BF_GUIDES:
+            ax_bf.axvline(g, color="#BBBBBB", lw=0.6, linestyle=":", zorder=1)
+        ax_elpd.set_yticks([y for _, y in rows], [_tick_label(table.loc[i]) for i, _ in rows])
+        ax_elpd.tick_params(axis="y", length=0)
+        ax_bf.tick_params(axis="y", length=0, labelleft=False)
+        bottom = rows[-1][1] + 0.6 if rows else 1.0
+        ax_elpd.set_ylim(bottom, -0.6)
+        lo, hi = padded_limits([*(table["elpd_diff"] - table["dse"]), *(table["elpd_diff"] + table["dse"]), 0.0])
+        ax_elpd.set_xlim(min(lo, -0.05 * (hi - lo)), hi)
+        ax_bf.set_xlim(*padded_limits([*table["log10_bf"], *BF_GUIDES]))
+        ax_elpd.set_xlabel("ELPD difference to best\n(0 = best; ± SE)")
+        ax_bf.set_xlabel("log10 Bayes factor,\nlaw vs free (> 0 favours law)")
+    return axes
