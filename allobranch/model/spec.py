@@ -13,6 +13,8 @@ from typing import Any, Mapping
 LIKELIHOODS: tuple[str, ...] = ("marginal", "latent")
 #: Allowed distributions of the junction-level biological deviation.
 DEVIATIONS: tuple[str, ...] = ("normal", "student_t")
+#: How the daughters' asymmetry scale is handled.
+ASYMMETRY: tuple[str, ...] = ("empirical", "sampled")
 #: Allowed parametrisations of the hierarchy.
 PARAMETRIZATIONS: tuple[str, ...] = ("auto", "noncentered", "centered")
 #: Junctions per specimen above which ``auto`` uses a centred specimen level (the data then dominate
@@ -41,6 +43,9 @@ class Priors:
         (default 0.1, i.e. about 10 %).
     sigma_meas : float
         Half-normal scale of the relative measurement error when it is estimated (default 0.1).
+    sigma_asym : float
+        Half-normal scale of the daughters' asymmetry (SD of a true log daughter radius about its
+        junction's mean; default 0.5) when it is sampled.
     nu_alpha, nu_beta : float
         Gamma(alpha, rate beta) prior of the Student-t degrees of freedom (default Gamma(2, 0.1), mean 20).
     """
@@ -51,6 +56,7 @@ class Priors:
     tau_specimen: float = 0.25
     sigma_dev: float = 0.1
     sigma_meas: float = 0.1
+    sigma_asym: float = 0.5
     nu_alpha: float = 2.0
     nu_beta: float = 0.1
 
@@ -78,6 +84,13 @@ class ModelSpec:
     parametrization : {"auto", "noncentered", "centered"}
         Parametrisation of the hierarchy; ``auto`` is non-centred except for a specimen level whose median
         specimen has more than :data:`CENTERED_ABOVE` junctions.
+    asymmetry : {"empirical", "sampled"}
+        The true daughters' spread about their junction mean (their asymmetry) has a normal prior with
+        scale ``sigma_asym``, which shrinks the apparent asymmetry that measurement error adds.
+        ``empirical`` (default) estimates ``sigma_asym`` per taxon by maximum marginal likelihood of the
+        daughters' readings before sampling (thousands of daughters pin it down, and it frees the sampler
+        from per-junction work); ``sampled`` gives it a prior and samples it (always so when the
+        measurement error itself is estimated).
     fixed_exponent : float or None
         Fix the exponent of every taxon to this value (a point law for the whole data set); the specimen
         level, if any, still varies around it.
@@ -92,6 +105,7 @@ class ModelSpec:
     deviation: str = "normal"
     likelihood: str = "marginal"
     parametrization: str = "auto"
+    asymmetry: str = "empirical"
     fixed_exponent: float | None = None
     fixed_taxa: Mapping[str, float] = field(default_factory=dict)
     priors: Priors = field(default_factory=Priors)
@@ -101,6 +115,7 @@ class ModelSpec:
             ("deviation", DEVIATIONS),
             ("likelihood", LIKELIHOODS),
             ("parametrization", PARAMETRIZATIONS),
+            ("asymmetry", ASYMMETRY),
         ):
             if getattr(self, name) not in allowed:
                 raise ValueError(f"{name} must be one of {', '.join(allowed)}; got {getattr(self, name)!r}")
