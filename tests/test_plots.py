@@ -127,6 +127,12 @@ def _rc_snapshot() -> dict:
     return copy.deepcopy({k: v for k, v in matplotlib.rcParams.items() if k != "backend"})
 
 
+def _legend_texts(ax) -> list[str]:
+    """Legend entries of an Axes, or of its figure when the plot put the legend there."""
+    legends = [ax.get_legend()] if ax.get_legend() is not None else ax.figure.legends
+    return [t.get_text() for lg in legends for t in lg.get_texts() if t.get_text()]
+
+
 def _law_line_values(ax, prefix: str) -> list[float]:
     return sorted(float(a.get_gid().split(":")[1]) for a in ax.get_children()
                   if (a.get_gid() or "").startswith(prefix))
@@ -254,9 +260,9 @@ def test_exponents_forest_rows_and_laws():
     labels = [t.get_text() for t in ax.get_yticklabels()]
     assert len(labels) == len(ex) == len(bars)
     assert labels[0] == "all taxa"
-    assert labels[1] == "Rattus" and labels[2].strip() == "R1"
+    assert labels[1] == "Rattus" and labels[2] == "R1"
     assert _law_line_values(ax, "law-line:") == [1.5, 2.0, 3.0]
-    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    legend = _legend_texts(ax)
     assert {"population", "taxon", "specimen", *LAWS} <= set(legend)
     assert "free" not in legend
     assert "90% HDI" in ax.get_xlabel()
@@ -290,8 +296,9 @@ def test_exponents_reject_bad_level_and_missing_columns():
 
 def test_exponents_draw_into_given_axes():
     fig, ax = plt.subplots()
-    assert plot_exponents(fake_exponents(), ax=ax) is ax
+    assert plot_exponents(fake_exponents(), laws=LAWS, ax=ax) is ax
     assert len(fig.axes) == 1
+    assert not fig.legends and ax.get_legend() is not None  # the caller's figure is left to the caller
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -314,7 +321,7 @@ def test_ratio_plane_points_curves_and_flags():
     assert len(scatters["junctions"].get_offsets()) == len(geo) - geo["flagged"].sum() - n_multi
     assert ax.get_xlabel() == "Larger daughter / parent radius"
     assert ax.get_ylabel() == "Smaller daughter / parent radius"
-    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    legend = _legend_texts(ax)
     assert "flagged junction" in legend and "Murray (a=3)" in legend
     assert any(t.startswith("population a, 90% HDI") for t in legend)
 
@@ -363,9 +370,12 @@ def test_law_comparison_two_panels_rows_and_scopes():
     headings = [t.get_text() for t in ax_elpd.texts if (t.get_gid() or "").startswith("scope:")]
     assert headings == ["overall", "Rattus"]
     assert sum(t.get_text() == "reference" for t in ax_bf.texts) == 2
-    assert "ELPD" in ax_elpd.get_xlabel() and "Bayes factor" in ax_bf.get_xlabel()
-    first = ax_elpd.get_yticklabels()[0].get_text()
-    assert first.startswith("free") and "weight 0.60" in first
+    assert "ELPD" in ax_elpd.get_xlabel() and "BF" in ax_bf.get_xlabel()
+    assert ax_elpd.get_yticklabels()[0].get_text() == "free"
+    weights = {t.get_gid(): t.get_text() for t in ax_elpd.texts if (t.get_gid() or "").startswith("weight:")}
+    assert len(weights) == len(laws) and weights["weight:overall:free"] == "w 0.60"
+    p_rope = [t for t in ax_bf.texts if (t.get_gid() or "").startswith("p_rope:")]
+    assert len(p_rope) == laws["p_rope"].notna().sum()
 
 
 def test_law_comparison_error_bars_are_plus_minus_se():
@@ -391,15 +401,15 @@ def test_law_comparison_rejects_wrong_axes():
 def test_ppc_panels_per_taxon_log_scale():
     ppc = fake_ppc(n_draws=30)
     axes = plot_ppc_parent(ppc, max_draws=20)
-    assert [ax.get_title() for ax in axes] == ["Rattus", "Sus", "Quercus"]
+    assert [ax.get_title() for ax in axes] == ["Rattus (n = 25)", "Sus (n = 40)", "Quercus (n = 18)"]
     for ax in axes:
         assert ax.get_xscale() == "log"
         assert ax.get_xlabel() == "Parent radius (mm)"
         predicted = [ln for ln in ax.lines if (ln.get_gid() or "").startswith("predicted:")]
         observed = [ln for ln in ax.lines if (ln.get_gid() or "").startswith("observed:")]
         assert len(predicted) == 20 and len(observed) == 1
-        legend = [t.get_text() for t in ax.get_legend().get_texts()]
-        assert legend[0] == "predicted (20 draws)" and legend[1].startswith("observed (n = ")
+    (legend,) = axes[0].figure.legends
+    assert [t.get_text() for t in legend.get_texts()] == ["predicted (20 draws)", "observed"]
     assert len(axes[0].figure.axes) == 3  # the fourth grid cell is removed
 
 
@@ -434,13 +444,13 @@ def test_naive_vs_model_rows_and_legend():
     ax = plot_naive_vs_model(table, laws=LAWS)
     labels = [t.get_text() for t in ax.get_yticklabels()]
     assert len(labels) == len(table)
-    assert labels[0] == "Rattus\n40 junctions, 5 no root"
+    assert labels[0] == "Rattus\nn = 40 (5 no root)"
     model = next(c for c in ax.containers if c.lines[0].get_gid() == "model")
     naive = next(c for c in ax.containers if c.lines[0].get_gid() == "naive")
     np.testing.assert_allclose(model.lines[0].get_xdata(), table["mean"])
     np.testing.assert_allclose(naive.lines[0].get_xdata(), table["naive_median"])
     assert len(model.lines[2][0].get_segments()) == len(table)
-    legend = " ".join(t.get_text() for t in ax.get_legend().get_texts())
+    legend = " ".join(_legend_texts(ax))
     assert "ignores measurement error" in legend and "90% HDI" in legend
     assert _law_line_values(ax, "law-line:") == [1.5, 2.0, 3.0]
 

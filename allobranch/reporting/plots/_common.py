@@ -6,6 +6,7 @@ from collections.abc import Iterable, Mapping
 
 import numpy as np
 import pandas as pd
+from matplotlib.patches import Patch
 
 from allobranch.reporting.style import law_styles
 
@@ -106,7 +107,7 @@ def draw_law_lines(ax, laws: list[tuple[str, float]]) -> None:
                    gid=f"law-line:{value!r}")
 
 
-def legend_above(ax, ncol: int | None = None, **kwargs):
+def legend_above(ax, ncol: int | None = None, *, figure_level: bool = False, **kwargs):
     """Place the Axes legend above the plot, where it cannot cover data or the axis label.
 
     Parameters
@@ -114,7 +115,12 @@ def legend_above(ax, ncol: int | None = None, **kwargs):
     ax : matplotlib.axes.Axes
         Axes whose labelled artists go into the legend.
     ncol : int, optional
-        Number of legend columns; two by default (one when there are at most two entries).
+        Columns when no law is drawn (entries then read row by row); by default one for at most two
+        entries, else two. When laws are drawn the legend has two columns: the data on the left, the laws
+        (artists whose gid starts with ``"law-"``) on the right.
+    figure_level : bool, default False
+        Centre the legend over the whole figure (for figures the plot function created itself, whose
+        constrained layout makes room for it) instead of over the Axes.
     **kwargs
         Passed to :meth:`matplotlib.axes.Axes.legend`.
 
@@ -126,11 +132,27 @@ def legend_above(ax, ncol: int | None = None, **kwargs):
     handles, labels = ax.get_legend_handles_labels()
     if not handles:
         return None
-    if ncol is None:
-        ncol = 1 if len(handles) <= 2 else 2
+    is_law = [(getattr(h, "get_gid", lambda: None)() or "").startswith("law-") for h in handles]
+    data = [(h, lab) for (h, lab), law in zip(zip(handles, labels), is_law) if not law]
+    laws = [(h, lab) for (h, lab), law in zip(zip(handles, labels), is_law) if law]
+    if data and laws:
+        nrows = max(len(data), len(laws))
+        blank = (Patch(visible=False), "")
+        entries = data + [blank] * (nrows - len(data)) + laws + [blank] * (nrows - len(laws))
+        ncol = 2
+    else:
+        entries = data or laws
+        if ncol is None:
+            ncol = 1 if len(entries) <= 2 else 2
+        # matplotlib fills columns top to bottom; reorder so the entries read left to right by rows
+        nrows = -(-len(entries) // ncol)
+        entries = [entries[r * ncol + c] for c in range(ncol) for r in range(nrows) if r * ncol + c < len(entries)]
+    args = ([h for h, _ in entries], [lab for _, lab in entries])
+    if figure_level:
+        return ax.figure.legend(*args, loc="outside upper center", ncols=ncol, columnspacing=1.2, **kwargs)
     kwargs.setdefault("loc", "lower center")
     kwargs.setdefault("bbox_to_anchor", (0.5, 1.02))
-    return ax.legend(handles, labels, ncol=ncol, borderaxespad=0.0, columnspacing=1.2, **kwargs)
+    return ax.legend(*args, ncols=ncol, borderaxespad=0.0, columnspacing=1.2, **kwargs)
 
 
 def padded_limits(values: Iterable[float], pad: float = 0.05) -> tuple[float, float]:

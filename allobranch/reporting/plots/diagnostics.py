@@ -41,8 +41,8 @@ def plot_diagnostics(idata: az.InferenceData, var_names: Sequence[str], *, width
     Returns
     -------
     numpy.ndarray of matplotlib.axes.Axes
-        Flat array: the rank-plot axes in ArviZ's order, then the energy axes. When the sampler recorded no
-        energy the last panel says so instead.
+        Flat array: the rank-plot axes in ArviZ's order (``ncols`` per row), then the energy axes, which
+        spans the last row. When the sampler recorded no energy the last panel says so instead.
 
     Notes
     -----
@@ -54,19 +54,22 @@ def plot_diagnostics(idata: az.InferenceData, var_names: Sequence[str], *, width
     if not var_names:
         raise ValueError("var_names must name at least one posterior variable")
     n_rank = _n_panels(idata, var_names)
-    n = n_rank + 1
-    ncols = max(1, min(int(ncols), n))
-    nrows = int(np.ceil(n / ncols))
+    ncols = max(1, min(int(ncols), n_rank))
+    nrows = int(np.ceil(n_rank / ncols)) + 1
     with house_style():
         fig, grid = figure(width, height_mm=PANEL_MM * nrows, nrows=nrows, ncols=ncols, squeeze=False)
-        grid = grid.ravel()
-        for extra in grid[n:]:
+        for extra in [*grid[:-1].ravel()[n_rank:], *grid[-1]]:
             extra.remove()
-        axes = grid[:n]
+        # the energy plot spans the last row so its legend and BFMI values have room
+        energy_ax = fig.add_subplot(grid[0, 0].get_subplotspec().get_gridspec()[-1, :])
+        axes = np.array([*grid[:-1].ravel()[:n_rank], energy_ax], dtype=object)
         az.plot_rank(idata, var_names=var_names, ax=axes[:n_rank], ref_line=True)
-        energy_ax = axes[n_rank]
         if "sample_stats" in idata.groups() and "energy" in idata.sample_stats:
             az.plot_energy(idata, ax=energy_ax, textsize=7, legend=True)
+            # move ArviZ's legend (densities and BFMI per chain) beside the panel, off the densities
+            handles, labels = energy_ax.get_legend_handles_labels()
+            energy_ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=6,
+                             borderaxespad=0.0)
         else:
             energy_ax.text(0.5, 0.5, "energy not recorded\nby the sampler", ha="center", va="center",
                            transform=energy_ax.transAxes)

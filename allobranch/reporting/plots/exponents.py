@@ -17,6 +17,12 @@ LEVEL_STYLE: dict[str, dict] = {
     "taxon": {"marker": "s", "ms": 4.0, "lw": 1.2, "color": "#333333"},
     "specimen": {"marker": "o", "ms": 3.0, "lw": 0.8, "color": "#777777"},
 }
+#: Tick-label look of each level: the hierarchy reads from weight and shade.
+TICK_STYLE: dict[str, dict] = {
+    "population": {"fontweight": "bold", "color": "#000000"},
+    "taxon": {"fontweight": "bold", "color": "#333333", "fontstyle": "normal"},
+    "specimen": {"fontweight": "normal", "color": "#555555"},
+}
 #: Vertical gap inserted between blocks (population, each taxon with its specimens).
 BLOCK_GAP = 0.6
 #: Height of one row in millimetres when the function creates its own figure.
@@ -43,7 +49,7 @@ def _forest_order(exponents: pd.DataFrame) -> list[tuple[int, float, str]]:
             y += 1
         for i in exponents.index[in_taxon & (level == "specimen")]:
             label = str(exponents.at[i, "group"])
-            label = f"    {label}" if len(taxon_rows) else f"{label} ({taxon})"
+            label = label if len(taxon_rows) else f"{label} ({taxon})"
             rows.append((i, y, label))
             y += 1
     return rows
@@ -87,6 +93,7 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
     exponents = exponents.reset_index(drop=True)
     pairs = law_values(laws)
     order = _forest_order(exponents)
+    created = ax is None
     with house_style():
         ax = new_axes(ax, height_mm=FRAME_MM + ROW_MM * (order[-1][1] + 1))
         labelled: set[str] = set()
@@ -104,8 +111,7 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
         draw_law_lines(ax, pairs)
         ax.set_yticks([y for _, y, _ in order], [label for _, _, label in order])
         for tick, (i, _, _) in zip(ax.get_yticklabels(), order):
-            if exponents.at[i, "level"] == "population":
-                tick.set_fontweight("bold")
+            tick.set(**TICK_STYLE[exponents.at[i, "level"]])
         ax.set_ylim(order[-1][1] + 0.7, -0.7)
         ax.tick_params(axis="y", length=0)
         values = [*exponents["hdi_low"], *exponents["hdi_high"], *(v for _, v in pairs)]
@@ -113,7 +119,7 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
         ax.set_xlabel(f"Branching exponent a (posterior mean, {hdi_percent(exponents)})")
         ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
         ax.set_axisbelow(True)
-        legend_above(ax, ncol=3)
+        legend_above(ax, figure_level=created)
     return ax
 
 
@@ -154,26 +160,27 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
     table = table.reset_index(drop=True)
     pairs = law_values(laws)
     n = len(table)
+    created = ax is None
     with house_style():
-        ax = new_axes(ax, height_mm=FRAME_MM + 7.0 * n)
+        ax = new_axes(ax, height_mm=FRAME_MM + 11.0 * n)
         y = np.arange(n, dtype=float)
         col = {c: table[c].to_numpy(dtype=float) for c in ("mean", "hdi_low", "hdi_high", "naive_median",
                                                              "naive_q25", "naive_q75")}
         ax.errorbar(
             col["mean"], y - DODGE, xerr=[col["mean"] - col["hdi_low"], col["hdi_high"] - col["mean"]],
             fmt="o", ms=4, color=MODEL_COLOR, elinewidth=1.3, zorder=3,
-            label=f"model: posterior mean, {hdi_percent(table)}", gid="model",
+            label=f"model: posterior\nmean, {hdi_percent(table)}", gid="model",
         )
         naive = ax.errorbar(
             col["naive_median"], y + DODGE,
             xerr=[col["naive_median"] - col["naive_q25"], col["naive_q75"] - col["naive_median"]],
             fmt="s", ms=4, mfc="white", color=NAIVE_COLOR, elinewidth=1.0, zorder=3,
-            label="naive: median and IQR of per-junction\nexponents (ignores measurement error)", gid="naive",
+            label="naive: median and IQR of\nper-junction exponents\n(ignores measurement error)", gid="naive",
         )
         naive[-1][0].set_linestyle((0, (3, 1.5)))
         draw_law_lines(ax, pairs)
         labels = [
-            f"{g}\n{int(nj)} junctions, {int(nn)} no root"
+            f"{g}\nn = {int(nj)} ({int(nn)} no root)"
             for g, nj, nn in zip(table["group"], table["n_junctions"], table["n_no_root"])
         ]
         ax.set_yticks(y, labels)
@@ -185,5 +192,5 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
         ax.set_xlabel("Branching exponent a")
         ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
         ax.set_axisbelow(True)
-        legend_above(ax, ncol=1 if not pairs else 2)
+        legend_above(ax, figure_level=created)
     return ax

@@ -11,7 +11,7 @@ from allobranch.reporting.style import figure, house_style, law_styles
 #: Columns of the laws table this plot reads.
 LAWS_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd_diff", "dse", "weight", "log10_bf", "p_rope")
 #: Height of one law row and of a scope heading, in millimetres, when the figure is created here.
-ROW_MM = 7.5
+ROW_MM = 8.0
 FRAME_MM = 24.0
 #: Bayes-factor guide lines: |log10 BF| = 1 is a factor of 10 either way.
 BF_GUIDES = (-1.0, 1.0)
@@ -35,11 +35,9 @@ def _rows(laws_table: pd.DataFrame) -> tuple[list[tuple[int, float]], list[tuple
     return rows, headings
 
 
-def _tick_label(row: pd.Series) -> str:
-    detail = [f"weight {row['weight']:.2f}"] if np.isfinite(row["weight"]) else []
-    if np.isfinite(row["p_rope"]):
-        detail.append(f"P(ROPE) {row['p_rope']:.2f}")
-    return f"{row['law']}\n{', '.join(detail)}" if detail else str(row["law"])
+def _annotate(ax, x: float, y: float, text: str, gid: str) -> None:
+    """Small text just above a row's marker."""
+    ax.text(x, y - 0.3, text, ha="center", va="bottom", fontsize=6, color="#333333", gid=gid)
 
 
 def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
@@ -61,8 +59,9 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
     Returns
     -------
     numpy.ndarray of matplotlib.axes.Axes
-        The two axes. Rows are grouped by scope (``"overall"`` first) under a heading; tick labels carry
-        each law's stacking weight and ``P(ROPE)``.
+        The two axes. Rows are grouped by scope (``"overall"`` first) under a heading; each ELPD point is
+        annotated with its stacking weight (``w``) and each Bayes factor with ``P(ROPE)`` (``P``). The
+        free model has no Bayes factor against itself and is marked "reference".
     """
     require_columns(laws_table, LAWS_COLUMNS, "laws")
     table = laws_table.reset_index(drop=True)
@@ -84,12 +83,17 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
             mfc = "white" if free else color
             ax_elpd.errorbar([row["elpd_diff"]], [y], xerr=[[row["dse"]], [row["dse"]]], fmt=marker, ms=4.5,
                              color=color, mfc=mfc, elinewidth=1.1, zorder=3, gid=f"elpd:{row['scope']}:{row['law']}")
+            if np.isfinite(row["weight"]):
+                _annotate(ax_elpd, row["elpd_diff"], y, f"w {row['weight']:.2f}", f"weight:{row['scope']}:{row['law']}")
             if free:
-                ax_bf.text(0.0, y, "reference", ha="center", va="center", fontsize=6, color="#555555",
+                ax_bf.text(0.0, y, "reference", ha="center", va="center", fontsize=6, color="#555555", zorder=4,
+                           bbox={"facecolor": "white", "edgecolor": "none", "pad": 0.5},
                            gid=f"bf-reference:{row['scope']}")
             elif np.isfinite(row["log10_bf"]):
                 ax_bf.plot([row["log10_bf"]], [y], marker=marker, ms=4.5, color=color, linestyle="none",
                            zorder=3, gid=f"bf:{row['scope']}:{row['law']}")
+                if np.isfinite(row["p_rope"]):
+                    _annotate(ax_bf, row["log10_bf"], y, f"P {row['p_rope']:.2f}", f"p_rope:{row['scope']}:{row['law']}")
         for scope, y in headings:
             ax_elpd.text(0.0, y, scope, transform=ax_elpd.get_yaxis_transform(), ha="left", va="center",
                          fontweight="bold", fontsize=7, gid=f"scope:{scope}")
@@ -97,14 +101,15 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
         ax_bf.axvline(0.0, color="#888888", lw=0.6, zorder=1)
         for g in BF_GUIDES:
             ax_bf.axvline(g, color="#BBBBBB", lw=0.6, linestyle=":", zorder=1)
-        ax_elpd.set_yticks([y for _, y in rows], [_tick_label(table.loc[i]) for i, _ in rows])
+        ax_elpd.set_yticks([y for _, y in rows], [str(table.at[i, "law"]) for i, _ in rows])
         ax_elpd.tick_params(axis="y", length=0)
         ax_bf.tick_params(axis="y", length=0, labelleft=False)
         bottom = rows[-1][1] + 0.6 if rows else 1.0
         ax_elpd.set_ylim(bottom, -0.6)
-        lo, hi = padded_limits([*(table["elpd_diff"] - table["dse"]), *(table["elpd_diff"] + table["dse"]), 0.0])
+        lo, hi = padded_limits([*(table["elpd_diff"] - table["dse"]), *(table["elpd_diff"] + table["dse"]), 0.0],
+                               pad=0.1)
         ax_elpd.set_xlim(min(lo, -0.05 * (hi - lo)), hi)
-        ax_bf.set_xlim(*padded_limits([*table["log10_bf"], *BF_GUIDES]))
-        ax_elpd.set_xlabel("ELPD difference to best\n(0 = best; ± SE)")
-        ax_bf.set_xlabel("log10 Bayes factor,\nlaw vs free (> 0 favours law)")
+        ax_bf.set_xlim(*padded_limits([*table["log10_bf"], *BF_GUIDES], pad=0.12))
+        ax_elpd.set_xlabel("ΔELPD to best ± SE\n(0 = best)\nw = stacking weight")
+        ax_bf.set_xlabel("log₁₀ BF vs free\n(> 0 favours law)\nP = P(within ROPE)")
     return axes

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
-from allobranch.reporting.plots._common import require_columns
+from allobranch.reporting.plots._common import legend_above, require_columns
 from allobranch.reporting.style import OKABE_ITO, figure, house_style
 
 #: Columns of the posterior predictive table.
@@ -46,15 +47,17 @@ def plot_ppc_parent(ppc_table: pd.DataFrame, axes=None, *, max_draws: int = 50, 
     Returns
     -------
     numpy.ndarray of matplotlib.axes.Axes
-        One Axes per taxon with a logarithmic radius axis: a thin line per predictive draw and a thick line
-        for the observed radii.
+        One Axes per taxon (titled with the taxon and its number of observed junctions) with a logarithmic
+        radius axis: a thin line per predictive draw and a thick line for the observed radii. The legend
+        sits above the panels when the figure is created here, otherwise in the first Axes.
     """
     _check(ppc_table)
     taxa = list(dict.fromkeys(ppc_table["taxon"].astype(str)))
     unit = unit if unit is not None else ppc_table.attrs.get("unit")
     xlabel = f"Parent radius ({unit})" if unit else "Parent radius"
     with house_style():
-        if axes is None:
+        created = axes is None
+        if created:
             ncols = min(len(taxa), 2)
             nrows = int(np.ceil(len(taxa) / ncols))
             _, grid = figure("single", height_mm=PANEL_MM * nrows + 14, nrows=nrows, ncols=ncols,
@@ -78,15 +81,28 @@ def plot_ppc_parent(ppc_table: pd.DataFrame, axes=None, *, max_draws: int = 50, 
             observed = sub.loc[sub["source"] == "observed", "value"].to_numpy(dtype=float)
             if observed.size:
                 ax.ecdf(observed, color=OBSERVED_COLOR, lw=1.4, zorder=3, gid=f"observed:{taxon}",
-                        label=f"observed (n = {observed.size})")
-            ax.set_xscale("log")
+                        label="observed")
+            _log_radius_axis(ax, sub["value"].to_numpy(dtype=float))
             ax.set_ylim(0, 1.0)
-            ax.set_title(taxon, fontsize=8)
+            ax.set_title(f"{taxon} (n = {observed.size})", fontsize=8)
             ax.set_xlabel(xlabel)
             if _first_column(ax):
                 ax.set_ylabel("Cumulative proportion")
-            ax.legend(loc="lower right", fontsize=6, handlelength=1.5)
+        if created:
+            legend_above(axes[0], ncol=2, figure_level=True)
+        else:
+            axes[0].legend(loc="best", fontsize=6, handlelength=1.5)
     return axes
+
+
+def _log_radius_axis(ax, values: np.ndarray) -> None:
+    """Logarithmic x axis labelled with plain numbers; 1-2-5 steps when the values span little."""
+    ax.set_xscale("log")
+    decades = np.log10(values.max() / values.min())
+    subs = (1.0, 2.0, 5.0) if decades <= 1.5 else (1.0, 3.0) if decades <= 3 else (1.0,)
+    ax.xaxis.set_major_locator(LogLocator(base=10, subs=subs))
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+    ax.xaxis.set_minor_formatter(NullFormatter())
 
 
 def _first_column(ax) -> bool:

@@ -81,8 +81,9 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
     placed = np.isfinite(x) & np.isfinite(y)
     bifurcation = geometry["n_daughters"].to_numpy() == 2
 
+    created = ax is None
     with house_style():
-        ax = new_axes(ax, aspect=1.08)
+        ax = new_axes(ax, aspect=0.95)
         styles = law_styles([v for _, v in pairs])
         if band is not None:
             bx, by = iso_exponent_band(*band)
@@ -113,14 +114,15 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
                 fontsize=6, color="#888888", va="bottom", ha="left", transform_rotates_text=True)
         if np.any(x[placed] >= 1):
             ax.axvline(1.0, color=LIGHT_GREY, lw=0.6, linestyle=":", zorder=0)
+            ax.text(1.0, 0.01, " daughter = parent", rotation=90, ha="left", va="bottom", fontsize=6,
+                    color="#888888", transform=ax.get_xaxis_transform(), gid="parent-line-note")
         ax.set_xlim(x_lo, x_hi)
         ax.set_ylim(0.0, y_hi)
-        ax.set_aspect("equal", adjustable="box")
         ax.set_xlabel("Larger daughter / parent radius")
         ax.set_ylabel("Smaller daughter / parent radius")
         n_missing = int((~placed).sum())
         if n_missing:
             ax.text(0.02, 0.02, f"{n_missing} junction(s) with missing sizes not shown",
                     transform=ax.transAxes, fontsize=6, color="#555555", va="bottom", gid="missing-note")
-        legend_above(ax, ncol=2)
+        legend_above(ax, figure_level=created)
     return ax
