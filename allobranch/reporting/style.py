@@ -13,7 +13,7 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import IO
@@ -345,7 +345,3 @@ def new_axes(ax, *, width: str | float = "single", aspect: float = 0.75, height_
     _, ax = figure(width, aspect, height_mm=height_mm)
     return ax
 
-
-def iter_axes(axes) -> Iterator:
-    """Iterate over a single Axes or any (nested) array of Axes."""
-    yield from np.atleast_1d(np.asarray(axes, dtype=object)).ravel()

@@ -40,6 +40,26 @@ def _annotate(ax, x: float, y: float, text: str, gid: str) -> None:
     ax.text(x, y - 0.3, text, ha="center", va="bottom", fontsize=6, color="#333333", gid=gid)
 
 
+def _draw_row(ax_elpd, ax_bf, row: pd.Series, y: float, styles: dict) -> None:
+    """One hypothesis: ELPD difference with its SE and weight; Bayes factor with P(ROPE)."""
+    key = f"{row['scope']}:{row['law']}"
+    free = not np.isfinite(row["value"])
+    color, marker = ("#000000", "o") if free else (styles[float(row["value"])].color,
+                                                    styles[float(row["value"])].marker)
+    ax_elpd.errorbar([row["elpd_diff"]], [y], xerr=[[row["dse"]], [row["dse"]]], fmt=marker, ms=4.5,
+                     color=color, mfc="white" if free else color, elinewidth=1.1, zorder=3, gid=f"elpd:{key}")
+    if np.isfinite(row["weight"]):
+        _annotate(ax_elpd, row["elpd_diff"], y, f"w {row['weight']:.2f}", f"weight:{key}")
+    if free:
+        ax_bf.text(0.0, y, "reference", ha="center", va="center", fontsize=6, color="#555555", zorder=4,
+                   bbox={"facecolor": "white", "edgecolor": "none", "pad": 0.5}, gid=f"bf-reference:{row['scope']}")
+    elif np.isfinite(row["log10_bf"]):
+        ax_bf.plot([row["log10_bf"]], [y], marker=marker, ms=4.5, color=color, linestyle="none", zorder=3,
+                   gid=f"bf:{key}")
+        if np.isfinite(row["p_rope"]):
+            _annotate(ax_bf, row["log10_bf"], y, f"P {row['p_rope']:.2f}", f"p_rope:{key}")
+
+
 def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
     """ELPD differences with their standard errors and log10 Bayes factors, one row per hypothesis.
 
@@ -76,24 +96,7 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
             raise ValueError(f"axes must hold exactly two Axes; got {axes.size}")
         ax_elpd, ax_bf = axes
         for i, y in rows:
-            row = table.loc[i]
-            free = not np.isfinite(row["value"])
-            st = styles.get(float(row["value"])) if not free else None
-            color, marker = ("#000000", "o") if free else (st.color, st.marker)
-            mfc = "white" if free else color
-            ax_elpd.errorbar([row["elpd_diff"]], [y], xerr=[[row["dse"]], [row["dse"]]], fmt=marker, ms=4.5,
-                             color=color, mfc=mfc, elinewidth=1.1, zorder=3, gid=f"elpd:{row['scope']}:{row['law']}")
-            if np.isfinite(row["weight"]):
-                _annotate(ax_elpd, row["elpd_diff"], y, f"w {row['weight']:.2f}", f"weight:{row['scope']}:{row['law']}")
-            if free:
-                ax_bf.text(0.0, y, "reference", ha="center", va="center", fontsize=6, color="#555555", zorder=4,
-                           bbox={"facecolor": "white", "edgecolor": "none", "pad": 0.5},
-                           gid=f"bf-reference:{row['scope']}")
-            elif np.isfinite(row["log10_bf"]):
-                ax_bf.plot([row["log10_bf"]], [y], marker=marker, ms=4.5, color=color, linestyle="none",
-                           zorder=3, gid=f"bf:{row['scope']}:{row['law']}")
-                if np.isfinite(row["p_rope"]):
-                    _annotate(ax_bf, row["log10_bf"], y, f"P {row['p_rope']:.2f}", f"p_rope:{row['scope']}:{row['law']}")
+            _draw_row(ax_elpd, ax_bf, table.loc[i], y, styles)
         for scope, y in headings:
             ax_elpd.text(0.0, y, scope, transform=ax_elpd.get_yaxis_transform(), ha="left", va="center",
                          fontweight="bold", fontsize=7, gid=f"scope:{scope}")
@@ -106,8 +109,8 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
         ax_bf.tick_params(axis="y", length=0, labelleft=False)
         bottom = rows[-1][1] + 0.6 if rows else 1.0
         ax_elpd.set_ylim(bottom, -0.6)
-        lo, hi = padded_limits([*(table["elpd_diff"] - table["dse"]), *(table["elpd_diff"] + table["dse"]), 0.0],
-                               pad=0.1)
+        spans = [*(table["elpd_diff"] - table["dse"]), *(table["elpd_diff"] + table["dse"]), 0.0]
+        lo, hi = padded_limits(spans, pad=0.1)
         ax_elpd.set_xlim(min(lo, -0.05 * (hi - lo)), hi)
         ax_bf.set_xlim(*padded_limits([*table["log10_bf"], *BF_GUIDES], pad=0.12))
         ax_elpd.set_xlabel("ΔELPD to best ± SE\n(0 = best)\nw = stacking weight")
