@@ -13,6 +13,11 @@ from allobranch.errors import AllobranchError, InputError, Problem  # noqa: E402
 from allobranch.intake.mapping import ColumnMapping  # noqa: E402
 from allobranch.intake.table import JunctionTable, ValidationReport  # noqa: E402
 from allobranch.intake import read_junctions  # noqa: E402
+from allobranch.geometry import junction_geometry, naive_summary  # noqa: E402
+from allobranch.model.spec import ModelSpec, Priors  # noqa: E402
+from allobranch.model.simulate import simulate_junctions  # noqa: E402
+from allobranch.inference.results import FitResult  # noqa: E402
+from allobranch.inference.fit import fit  # noqa: E402
 
 __all__ = [
     "__version__",
@@ -23,4 +28,11 @@ __all__ = [
     "JunctionTable",
     "ValidationReport",
     "read_junctions",
+    "junction_geometry",
+    "naive_summary",
+    "ModelSpec",
+    "Priors",
+    "simulate_junctions",
+    "FitResult",
+    "fit",
 ]

@@ -130,12 +130,17 @@ def model_form(data: ModelData, spec: ModelSpec) -> str:
     return "full"
 
 
-def _centered_specimens(data: ModelData, spec: ModelSpec) -> bool:
+def _centered(data: ModelData, spec: ModelSpec, group_idx: np.ndarray, n_groups: int) -> bool:
+    """Whether a hierarchy level is centred: by the spec, or (``auto``) when its median group holds more
+    than :data:`CENTERED_ABOVE` junctions' worth of information at 5 % error (junctions scaled by
+    ``(0.05 / relative error)^2``; the data then dominate each group)."""
     if spec.parametrization == "centered":
         return True
     if spec.parametrization == "noncentered":
         return False
-    return float(np.median(data.junctions_per_specimen)) > CENTERED_ABOVE
+    rel = data.rel_error if data.rel_error else 0.05
+    counts = np.bincount(group_idx, minlength=n_groups)
+    return float(np.median(counts)) * (0.05 / max(rel, 1e-3)) ** 2 > CENTERED_ABOVE
 
 
 def _exponents(data: ModelData, spec: ModelSpec) -> pt.TensorVariable:
@@ -148,8 +153,11 @@ def _exponents(data: ModelData, spec: ModelSpec) -> pt.TensorVariable:
         mu = pm.Normal("mu", p.mu_mean, p.mu_sd)
     if taxon_level:
         tau_t = pm.HalfNormal("tau_taxon", p.tau_taxon)
-        z_t = pm.Normal("z_taxon", 0.0, 1.0, dims="taxon")
-        a_taxon = mu + tau_t * z_t
+        if _centered(data, spec, data.taxon_idx, len(data.taxa)) and not spec.fixed_taxa:
+            a_taxon = pm.Normal("a_taxon_free", mu, tau_t, dims="taxon")
+        else:
+            z_t = pm.Normal("z_taxon", 0.0, 1.0, dims="taxon")
+            a_taxon = mu + tau_t * z_t
     else:
         a_taxon = pt.ones(len(data.taxa)) * mu
     if spec.fixed_taxa:
@@ -163,7 +171,7 @@ def _exponents(data: ModelData, spec: ModelSpec) -> pt.TensorVariable:
     parent_a = a_taxon[data.specimen_taxon_idx]
     if specimen_level:
         tau_s = pm.HalfNormal("tau_specimen", p.tau_specimen)
-        if _centered_specimens(data, spec):
+        if _centered(data, spec, data.specimen_idx, len(data.specimens)):
             a_spec = pm.Normal("a_specimen", parent_a, tau_s, dims="specimen")
         else:
             z_s = pm.Normal("z_specimen", 0.0, 1.0, dims="specimen")
@@ -251,19 +259,19 @@ def build_model(data: ModelData, spec: ModelSpec | None = None) -> BuiltModel:
         nu = _nu(spec)
         student = spec.deviation == "student_t"
         if form == "fast":
-            ll = JunctionLoglik("fast", student)(
+            ll, _ = JunctionLoglik("fast", student)(
                 a_spec, sigma_dev, nu, sh["log_parent_obs"], sh["mu_post"], sh["g_post"], sh["c_post"],
                 sh["ybar"], sh["daughter_mask"], sh["s0sq"], sh["ll_daughters"], sh["specimen_idx"],
             )
         elif form == "full":
             sigma_asym = pm.HalfNormal("sigma_asym", spec.priors.sigma_asym)
-            ll = JunctionLoglik("full", student, srel_free=not isinstance(sigma_rel, float))(
+            ll, _ = JunctionLoglik("full", student, srel_free=not isinstance(sigma_rel, float))(
                 a_spec, sigma_dev, pt.as_tensor_variable(sigma_rel), sigma_asym, nu, sh["log_parent_obs"],
                 sh["log_daughters_obs"], sh["daughter_mask"], sh["var_abs_parent"],
                 sh["var_abs_daughters"], sh["specimen_idx"],
             )
         if form in ("fast", "full"):
-            total = pt.sum(ll)
+            total = ll
             if student:
                 total = total + _student_constant(nu, data.n_junctions)
             pm.Potential("junction_loglik", total)

@@ -7,8 +7,7 @@ Two forms, chosen by :func:`allobranch.model.build.build_model`:
 * ``"full"`` -- measurement error and asymmetry scale sampled: inputs ``a_spec, sigma_dev, sigma_rel,
   sigma_asym, nu`` and the raw data; complex-step derivatives.
 
-Each Op returns the per-junction log-likelihood (one term per junction, all its readings), and its gradient
-Op returns one vector ``[d a_spec..., d scalar parameters...]``. The Ops run in PyTensor's Python/C mode and
+The Op returns the summed log-likelihood and its gradient from one kernel call. The Ops run in PyTensor's Python/C mode and
 are also registered with PyTensor's numba backend so that nutpie can compile the whole model.
 """
 
@@ -36,7 +35,12 @@ def _full_call(student, srel_free, a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, 
 
 
 class JunctionLoglik(Op):
-    """Per-junction marginal log-likelihood, shape ``(n_junctions,)``."""
+    """Summed junction log-likelihood (scalar) and its gradient (flat vector), in one kernel call.
+
+    The gradient output is ``[d a_spec..., d scalar parameters...]``; :meth:`grad` scales it by the
+    upstream gradient. Per-junction terms are evaluated after sampling by
+    :meth:`allobranch.model.build.BuiltModel.pointwise`.
+    """
 
     __props__ = ("kind", "student", "srel_free")
 
@@ -49,55 +53,35 @@ class JunctionLoglik(Op):
 
     def make_node(self, *inputs):
         inputs = [pt.as_tensor_variable(x) for x in inputs]
-        return Apply(self, inputs, [pt.dvector()])
-
-    def _terms(self, inputs):
-        args = [np.asarray(x) for x in inputs]
-        p = N_PARAMS[self.kind]
-        params = [args[0]] + [float(x) for x in args[1:p]]
-        if self.kind == "fast":
-            return _fast_call(self.student, *params, *args[p:])
-        return _full_call(self.student, self.srel_free, *params, *args[p:])
+        return Apply(self, inputs, [pt.dscalar(), pt.dvector()])
 
     def perform(self, node, inputs, outputs):
-        outputs[0][0] = self._terms(inputs)[0]
+        p = N_PARAMS[self.kind]
+        args = [np.asarray(x) for x in inputs]
+        params = [args[0]] + [float(x) for x in args[1:p]]
+        if self.kind == "fast":
+            ll, dll, _, _ = _fast_call(self.student, *params, *args[p:])
+        else:
+            ll, dll, _, _ = _full_call(self.student, self.srel_free, *params, *args[p:])
+        da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, args[-1], args[0].shape[0])
+        outputs[0][0] = np.asarray(ll.sum())
+        outputs[1][0] = _flatten(self.kind, da, ds)
 
     def connection_pattern(self, node):
         p = N_PARAMS[self.kind]
-        return [[i < p] for i in range(len(node.inputs))]
+        return [[i < p, False] for i in range(len(node.inputs))]
 
     def grad(self, inputs, output_grads):
         p = N_PARAMS[self.kind]
-        flat = JunctionLoglikGrad(self.kind, self.student, self.srel_free)(*inputs, output_grads[0])
+        _, flat = self(*inputs)
+        flat = flat * output_grads[0]
         n_spec = inputs[0].shape[0]
         grads = [flat[:n_spec]] + [flat[n_spec + i] for i in range(p - 1)]
         return grads + [DisconnectedType()() for _ in inputs[p:]]
 
 
-class JunctionLoglikGrad(Op):
-    """Gradient of :class:`JunctionLoglik` times an upstream vector, as one flat vector."""
-
-    __props__ = ("kind", "student", "srel_free")
-
-    def __init__(self, kind: str, student: bool, srel_free: bool = False) -> None:
-        self.kind = kind
-        self.student = bool(student)
-        self.srel_free = bool(srel_free)
-
-    def make_node(self, *inputs):
-        inputs = [pt.as_tensor_variable(x) for x in inputs]
-        return Apply(self, inputs, [pt.dvector()])
-
-    def perform(self, node, inputs, outputs):
-        *data, gout = inputs
-        _, dll, _, _ = JunctionLoglik(self.kind, self.student, self.srel_free)._terms(data)
-        spec_idx = np.asarray(data[-1])
-        da, ds = kernel.aggregate_gradient(np.asarray(gout, dtype=float), dll, spec_idx, data[0].shape[0])
-        outputs[0][0] = _flatten(self.kind, da, ds)
-
-
 def _flatten(kind: str, da: np.ndarray, ds: np.ndarray) -> np.ndarray:
-    # ds is ordered (sigma_dev, sigma_rel, sigma_asym, nu)
+    """Gradient vector of a form's parameters; ``ds`` is ordered (sigma_dev, sigma_rel, sigma_asym, nu)."""
     if kind == "fast":
         return np.concatenate([da, ds[[0, 3]]])
     return np.concatenate([da, ds])
@@ -117,55 +101,32 @@ def _register_numba() -> None:
 
             @numba_njit
             def fast(a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
-                return kernel.fast_terms(
+                ll, dll, _, _ = kernel.fast_terms(
                     y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev.item(), nu.item(), student
-                )[0]
+                )
+                da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, spec_idx, a_spec.shape[0])
+                out = np.empty(a_spec.shape[0] + 2)
+                out[: a_spec.shape[0]] = da
+                out[a_spec.shape[0]] = ds[0]
+                out[a_spec.shape[0] + 1] = ds[3]
+                return np.asarray(ll.sum()), out
 
             return fast
         skip = np.array([False, False, not srel_free, False, not student])
 
         @numba_njit
         def full(a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx):
-            return kernel.junction_terms(
-                y0, Y, M, V0, V, spec_idx, a_spec, sdev.item(), srel.item(), sasym.item(), nu.item(),
-                student, skip,
-            )[0]
-
-        return full
-
-    @register_funcify_default_op_cache_key(JunctionLoglikGrad)
-    def _funcify_grad(op, node, **kwargs):
-        student, srel_free = op.student, op.srel_free
-        if op.kind == "fast":
-
-            @numba_njit
-            def fast_grad(a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, gout):
-                _, dll, _, _ = kernel.fast_terms(
-                    y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev.item(), nu.item(), student
-                )
-                da, ds = kernel.aggregate_gradient(gout, dll, spec_idx, a_spec.shape[0])
-                out = np.empty(a_spec.shape[0] + 2)
-                out[: a_spec.shape[0]] = da
-                out[a_spec.shape[0]] = ds[0]
-                out[a_spec.shape[0] + 1] = ds[3]
-                return out
-
-            return fast_grad
-        skip = np.array([False, False, not srel_free, False, not student])
-
-        @numba_njit
-        def full_grad(a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx, gout):
-            _, dll, _, _ = kernel.junction_terms(
+            ll, dll, _, _ = kernel.junction_terms(
                 y0, Y, M, V0, V, spec_idx, a_spec, sdev.item(), srel.item(), sasym.item(), nu.item(),
                 student, skip,
             )
-            da, ds = kernel.aggregate_gradient(gout, dll, spec_idx, a_spec.shape[0])
+            da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, spec_idx, a_spec.shape[0])
             out = np.empty(a_spec.shape[0] + 4)
             out[: a_spec.shape[0]] = da
             out[a_spec.shape[0]:] = ds
-            return out
+            return np.asarray(ll.sum()), out
 
-        return full_grad
+        return full
 
 
 _register_numba()

@@ -17,9 +17,9 @@ DEVIATIONS: tuple[str, ...] = ("normal", "student_t")
 ASYMMETRY: tuple[str, ...] = ("empirical", "sampled")
 #: Allowed parametrisations of the hierarchy.
 PARAMETRIZATIONS: tuple[str, ...] = ("auto", "noncentered", "centered")
-#: Junctions per specimen above which ``auto`` uses a centred specimen level (the data then dominate
-#: each specimen's exponent; common practice, no source: centred suits well-informed groups).
-CENTERED_ABOVE = 50
+#: Junctions (at 5 % error) per group above which ``auto`` centres a hierarchy level (the data then
+#: dominate each group's exponent; common practice, no source: centred suits well-informed groups).
+CENTERED_ABOVE = 80
 
 
 @dataclass(frozen=True)
@@ -82,8 +82,8 @@ class ModelSpec:
         method, leaving no per-junction parameters; ``latent`` keeps every true daughter radius as a
         parameter (exact, slow; used to validate the fast form).
     parametrization : {"auto", "noncentered", "centered"}
-        Parametrisation of the hierarchy; ``auto`` is non-centred except for a specimen level whose median
-        specimen has more than :data:`CENTERED_ABOVE` junctions.
+        Parametrisation of the hierarchy; ``auto`` centres a level whose median group holds more than
+        :data:`CENTERED_ABOVE` junctions' worth of information at 5 % error, and is non-centred otherwise.
     asymmetry : {"empirical", "sampled"}
         The true daughters' spread about their junction mean (their asymmetry) has a normal prior with
         scale ``sigma_asym``, which shrinks the apparent asymmetry that measurement error adds.

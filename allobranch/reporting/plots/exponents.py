@@ -116,7 +116,7 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
         ax.tick_params(axis="y", length=0)
         values = [*exponents["hdi_low"], *exponents["hdi_high"], *(v for _, v in pairs)]
         ax.set_xlim(*padded_limits(values))
-        ax.set_xlabel(f"Branching exponent a (posterior mean, {hdi_percent(exponents)})")
+        ax.set_xlabel(f"Branching exponent a\n(posterior mean, {hdi_percent(exponents)})")
         ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
         ax.set_axisbelow(True)
         legend_above(ax, figure_level=created)

@@ -83,7 +83,7 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
 
     created = ax is None
     with house_style():
-        ax = new_axes(ax, aspect=0.95)
+        ax = new_axes(ax, aspect=1.1)
         styles = law_styles([v for _, v in pairs])
         if band is not None:
             bx, by = iso_exponent_band(*band)
@@ -100,7 +100,7 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         multi = placed & ~bifurcation & ~flagged
         if multi.any():
             ax.scatter(x[multi], y[multi], s=11, facecolors="none", edgecolors=DATA_COLOR, linewidths=0.7,
-                       zorder=3, label="3+ daughters (curves apply\nto bifurcations only)", gid="multi")
+                       zorder=3, label="3+ daughters (curves\nfit bifurcations only)", gid="multi")
         if (placed & flagged).any():
             ax.scatter(x[placed & flagged], y[placed & flagged], s=22, marker=FLAG_MARKER, color=FLAG_COLOR,
                        linewidths=0.3, edgecolors="white", zorder=4, label="flagged junction", gid="flagged")
@@ -113,9 +113,8 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         ax.text(x_lo + 0.012, x_lo + 0.03, "symmetric (x = y)", rotation=45, rotation_mode="anchor",
                 fontsize=6, color="#888888", va="bottom", ha="left", transform_rotates_text=True)
         if np.any(x[placed] >= 1):
-            ax.axvline(1.0, color=LIGHT_GREY, lw=0.6, linestyle=":", zorder=0)
-            ax.text(1.0, 0.01, " daughter = parent", rotation=90, ha="left", va="bottom", fontsize=6,
-                    color="#888888", transform=ax.get_xaxis_transform(), gid="parent-line-note")
+            ax.axvline(1.0, color="#888888", lw=0.8, linestyle=":", zorder=0, gid="parent-line",
+                       label="daughter = parent")
         ax.set_xlim(x_lo, x_hi)
         ax.set_ylim(0.0, y_hi)
         ax.set_xlabel("Larger daughter / parent radius")

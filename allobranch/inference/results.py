@@ -1,0 +1,245 @@
+"""The fitted-results object: InferenceData plus tidy summaries, diagnostics and provenance."""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import arviz as az
+import numpy as np
+import pandas as pd
+
+from allobranch.errors import AllobranchError
+from allobranch.geometry import junction_geometry, naive_summary
+from allobranch.inference import diagnostics as dg
+from allobranch.intake.mapping import ColumnMapping
+from allobranch.intake.table import JunctionTable, ValidationReport
+from allobranch.intake.units import from_internal_radius
+from allobranch.model.build import HYPER_PARAMETERS
+from allobranch.model.spec import ModelSpec
+
+#: Default probability of the highest-density intervals.
+HDI_PROB = 0.9
+#: Columns of :meth:`FitResult.exponents`.
+EXPONENT_COLUMNS = ("level", "group", "taxon", "mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk",
+                    "ess_tail", "fixed")
+#: Plain-language meaning of each variance component.
+COMPONENTS = {
+    "tau_taxon": "between-taxon SD of the exponent",
+    "tau_specimen": "between-specimen SD of the exponent (within taxon)",
+    "sigma_dev": "junction-level biological deviation of log parent radius from the law",
+    "sigma_meas": "relative measurement error (log-scale SD), estimated",
+    "sigma_asym": "SD of true log daughter radius about its junction mean (asymmetry)",
+    "nu": "Student-t degrees of freedom of the deviation",
+}
+
+
+def _summ(draws: np.ndarray, hdi_prob: float) -> dict[str, float]:
+    """Mean, SD and HDI of draws shaped (chain, draw)."""
+    flat = draws.reshape(-1)
+    if np.ptp(flat) == 0:
+        return {"mean": float(flat[0]), "sd": 0.0, "hdi_low": float(flat[0]), "hdi_high": float(flat[0]),
+                "r_hat": np.nan, "ess_bulk": np.nan, "ess_tail": np.nan}
+    lo, hi = az.hdi(flat, hdi_prob=hdi_prob)  # ArviZ HDI
+    return {
+        "mean": float(flat.mean()), "sd": float(flat.std(ddof=1)), "hdi_low": float(lo), "hdi_high": float(hi),
+        "r_hat": float(az.rhat(draws)), "ess_bulk": float(az.ess(draws, method="bulk")),
+        "ess_tail": float(az.ess(draws, method="tail")),
+    }
+
+
+@dataclass
+class FitResult:
+    """A fitted model with tidy summaries.
+
+    Attributes
+    ----------
+    idata : arviz.InferenceData
+        Groups ``posterior``, ``sample_stats``, ``log_likelihood`` (variable ``loglik``: one term per
+        junction), ``posterior_predictive`` and ``observed_data`` (``log_parent``); provenance as JSON in
+        ``idata.attrs["allobranch_provenance"]``.
+    table : JunctionTable
+        The data that were fitted.
+    spec : ModelSpec
+    settings : dict
+        Sampler settings and timing.
+    notes : list of str
+        Things the user should know that are not diagnostics failures (e.g. a sampler fallback).
+    """
+
+    idata: az.InferenceData
+    table: JunctionTable
+    spec: ModelSpec
+    settings: dict
+    notes: list[str] = field(default_factory=list)
+
+    # -- summaries ------------------------------------------------------------------------------------
+    def exponents(self, hdi_prob: float = HDI_PROB) -> pd.DataFrame:
+        """Population, taxon and specimen exponents.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns :data:`EXPONENT_COLUMNS`; ``attrs["hdi_prob"]`` records the HDI probability.
+        """
+        post = self.idata.posterior
+        rows = [{"level": "population", "group": "all", "taxon": "all", **_summ(post["mu"].values, hdi_prob),
+                 "fixed": self.spec.fixed_exponent is not None}]
+        for i, t in enumerate(post["taxon"].values):
+            fixed = self.spec.fixed_exponent is not None or str(t) in self.spec.fixed_taxa
+            rows.append({"level": "taxon", "group": str(t), "taxon": str(t),
+                         **_summ(post["a_taxon"].values[:, :, i], hdi_prob), "fixed": fixed})
+        if "tau_specimen" in post:
+            spec_taxon = self.table.specimens.set_index("specimen")["taxon"].astype(str)
+            for i, s in enumerate(post["specimen"].values):
+                rows.append({"level": "specimen", "group": str(s), "taxon": spec_taxon[str(s)],
+                             **_summ(post["a_specimen"].values[:, :, i], hdi_prob), "fixed": False})
+        out = pd.DataFrame(rows, columns=list(EXPONENT_COLUMNS))
+        out.attrs["hdi_prob"] = hdi_prob
+        return out
+
+    def variance_components(self, hdi_prob: float = HDI_PROB) -> pd.DataFrame:
+        """Between-taxon and between-specimen SDs, biological deviation, measurement error, asymmetry."""
+        post = self.idata.posterior
+        rows = []
+        for name, text in COMPONENTS.items():
+            if name in post:
+                rows.append({"component": name, "meaning": text, "source": "posterior",
+                             **_summ(post[name].values, hdi_prob)})
+        mode = self.settings.get("error_mode")
+        if mode == "known":
+            rel = float(self.table.rel_error)
+            rows.append({"component": "sigma_meas", "meaning": "relative measurement error, given by the user",
+                         "source": "known", "mean": rel, "sd": 0.0, "hdi_low": rel, "hdi_high": rel})
+        for taxon, value in (self.settings.get("sigma_asym_empirical") or {}).items():
+            rows.append({"component": "sigma_asym", "meaning": f"{COMPONENTS['sigma_asym']}; taxon {taxon}",
+                         "source": "empirical (max. marginal likelihood)", "mean": value, "sd": np.nan,
+                         "hdi_low": np.nan, "hdi_high": np.nan})
+        out = pd.DataFrame(rows, columns=["component", "meaning", "source", "mean", "sd", "hdi_low", "hdi_high",
+                                          "r_hat", "ess_bulk", "ess_tail"])
+        out.attrs["hdi_prob"] = hdi_prob
+        return out
+
+    # -- diagnostics ----------------------------------------------------------------------------------
+    def checked_parameters(self) -> list[str]:
+        """Hyper-parameters and exponents whose convergence is checked."""
+        return [v for v in (*HYPER_PARAMETERS, "a_taxon", "a_specimen") if v in self.idata.posterior]
+
+    def diagnostics(self) -> pd.DataFrame:
+        """R-hat, bulk and tail ESS of every checked parameter, and whether each passes."""
+        return dg.diagnostics_table(self.idata, self.checked_parameters())
+
+    def sampler_checks(self) -> dict[str, float]:
+        """Divergences, minimum E-BFMI, chains and draws."""
+        return dg.sampler_checks(self.idata)
+
+    @property
+    def warnings(self) -> list[str]:
+        """Every failed diagnostic, in plain words with what to try, plus model caveats."""
+        out = dg.diagnostic_warnings(self.diagnostics(), self.sampler_checks())
+        if self.settings.get("error_mode") == "unknown":
+            out.append(
+                "no measurement error was given (no relative error, SE column or repeat readings): the model "
+                "cannot tell measurement error from biological deviation, so sigma_meas rests on its prior "
+                "and sigma_dev absorbs the rest. Give the error if you know it."
+            )
+        return out
+
+    @property
+    def converged(self) -> bool:
+        """True when every diagnostic passes."""
+        return not dg.diagnostic_warnings(self.diagnostics(), self.sampler_checks())
+
+    # -- data-side tables -----------------------------------------------------------------------------
+    def geometry(self) -> pd.DataFrame:
+        """Per-junction descriptive geometry (naive exponents etc.) of the fitted table."""
+        return junction_geometry(self.table)
+
+    def naive_vs_model(self, hdi_prob: float = HDI_PROB) -> pd.DataFrame:
+        """Taxon exponents from the model beside the naive per-junction summary (which ignores error)."""
+        naive = naive_summary(self.geometry(), by=("taxon",))
+        naive = naive.rename(columns={"median": "naive_median", "q25": "naive_q25", "q75": "naive_q75",
+                                      "mean": "naive_mean"})
+        model = self.exponents(hdi_prob)
+        model = model[model["level"] == "taxon"]
+        keep = ["taxon", "naive_median", "naive_q25", "naive_q75", "naive_mean", "n_junctions", "n_no_root"]
+        out = model.merge(naive[[c for c in keep if c in naive.columns]], on="taxon", how="left")
+        out.attrs["hdi_prob"] = hdi_prob
+        return out
+
+    def ppc_table(self, max_draws: int = 50) -> pd.DataFrame:
+        """Observed and posterior-predictive parent radii (user's unit) by taxon, long format."""
+        unit = self.table.unit
+        taxa = self.table.data["taxon"].astype(str).to_numpy()
+        obs = from_internal_radius(np.exp(self.idata.observed_data["log_parent"].values), unit)
+        pred = self.idata.posterior_predictive["log_parent"].values
+        pred = pred.reshape(-1, pred.shape[-1])
+        step = max(1, len(pred) // max_draws)
+        frames = [pd.DataFrame({"taxon": taxa, "source": "observed", "value": obs, "draw": -1})]
+        for k, row in enumerate(pred[::step][:max_draws]):
+            frames.append(pd.DataFrame({"taxon": taxa, "source": "predicted",
+                                        "value": from_internal_radius(np.exp(row), unit), "draw": k}))
+        return pd.concat(frames, ignore_index=True)
+
+    @property
+    def provenance(self) -> dict:
+        """Input hash, mapping, spec, settings and package versions."""
+        return json.loads(self.idata.attrs.get("allobranch_provenance", "{}"))
+
+    # -- persistence ----------------------------------------------------------------------------------
+    def save(self, path: str | os.PathLike) -> Path:
+        """Write to NetCDF atomically (the junction table and validation report go into the attributes)."""
+        path = Path(path)
+        idata = self.idata.copy()
+        idata.attrs["allobranch_table"] = self.table.data.to_json(orient="split")
+        idata.attrs["allobranch_report"] = self.table.report.to_frame().to_json(orient="split")
+        idata.attrs["allobranch_settings"] = json.dumps(self.settings, default=str)
+        idata.attrs["allobranch_notes"] = json.dumps(self.notes)
+        if self.table.repeats is not None:
+            idata.attrs["allobranch_repeats"] = self.table.repeats.to_json(orient="split")
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+        os.close(fd)
+        try:
+            idata.to_netcdf(tmp)
+            os.replace(tmp, path)
+        finally:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+        return path
+
+    @classmethod
+    def load(cls, path: str | os.PathLike) -> "FitResult":
+        """Read a result written by :meth:`save`."""
+        from allobranch.errors import Problem
+
+        path = Path(path)
+        if not path.is_file():
+            raise AllobranchError(f"{path}: no saved fit here -> give the fit.nc written by 'allobranch fit'")
+        try:
+            idata = az.from_netcdf(path)
+            attrs = idata.attrs
+            prov = json.loads(attrs["allobranch_provenance"])
+            data = pd.read_json(_io(attrs["allobranch_table"]), orient="split")
+            for col in ("taxon", "specimen", "junction"):
+                data[col] = data[col].astype(str)
+            rep = pd.read_json(_io(attrs["allobranch_report"]), orient="split")
+            repeats = (pd.read_json(_io(attrs["allobranch_repeats"]), orient="split")
+                       if "allobranch_repeats" in attrs else None)
+        except (KeyError, OSError, ValueError) as exc:
+            raise AllobranchError(f"{path}: not a saved allobranch fit ({exc}) -> re-run 'allobranch fit'") from exc
+        problems = [Problem(**{k: (None if pd.isna(v) else v) for k, v in r.items()}) for r in rep.to_dict("records")]
+        mapping = ColumnMapping(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in prov["mapping"].items()})
+        table = JunctionTable(data=data, mapping=mapping, report=ValidationReport(problems=problems),
+                              source=prov.get("source", "<DataFrame>"), repeats=repeats)
+        return cls(idata=idata, table=table, spec=ModelSpec.from_dict(prov["spec"]),
+                   settings=json.loads(attrs.get("allobranch_settings", "{}")),
+                   notes=json.loads(attrs.get("allobranch_notes", "[]")))
+
+
+def _io(text: str):
+    from io import StringIO
+
+    return StringIO(text)
