@@ -323,6 +323,8 @@ def test_ratio_plane_points_curves_and_flags():
     assert ax.get_ylabel() == "Smaller daughter / parent radius"
     legend = _legend_texts(ax)
     assert "flagged junction" in legend and "Murray (a=3)" in legend
+    # fake_geometry has junctions with a daughter larger than the parent: the x = 1 boundary is drawn
+    assert (geo["ratio_large"] >= 1).any() and "daughter = parent" in legend
     assert any(t.startswith("population a, 90% HDI") for t in legend)
 
 
