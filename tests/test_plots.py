@@ -339,9 +339,12 @@ def test_ratio_plane_da_vinci_curve_through_symmetric_point():
 def test_ratio_plane_counts_unplaceable_and_checks_flags():
     geo = fake_geometry().drop(columns="flagged")
     geo.loc[[0, 1], "ratio_large"] = np.nan
+    geo.loc[2, "n_daughters"] = 1
     ax = plot_ratio_plane(geo, LAWS)
     note = [t for t in ax.texts if t.get_gid() == "missing-note"]
-    assert note and note[0].get_text().startswith("2 junction")
+    assert note and note[0].get_text().startswith("3 junction")
+    drawn = sum(len(c.get_offsets()) for c in ax.collections if c.get_gid() in {"junctions", "multi"})
+    assert drawn == len(geo) - 3
     assert "flagged" not in {c.get_gid() for c in ax.collections}
     geo["flagged"] = "yes"
     with pytest.raises(ValueError, match="flagged"):

@@ -75,7 +75,9 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
     -------
     matplotlib.axes.Axes
         One point (posterior mean) and one horizontal interval per row of ``exponents``: the population
-        on top, then each taxon followed by its specimens (indented).
+        on top, then each taxon (bold) followed by its specimens (grey); specimens without a taxon row are
+        labelled ``"specimen (taxon)"``. The legend sits above the plot (above the whole figure when the
+        figure is created here).
 
     Examples
     --------
@@ -150,7 +152,7 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
     -------
     matplotlib.axes.Axes
         One tick per taxon (labelled with its junction counts); the model's mean and HDI drawn above the
-        naive median and inter-quartile range.
+        naive median and inter-quartile range. The legend sits above the plot.
 
     Notes
     -----

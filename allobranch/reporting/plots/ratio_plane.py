@@ -68,7 +68,8 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
     -----
     The curves are exact for bifurcations. Junctions with three or more daughters are drawn hollow: their
     two extreme daughters do not determine the exponent, so the curves do not apply to them. Junctions
-    whose ratios are missing (invalid sizes) cannot be placed; their number is written in the plot.
+    that cannot be placed (missing or invalid sizes, fewer than two daughters) are counted in a note in
+    the lower left corner.
     Points right of ``x = 1`` have a daughter at least as large as the parent, so no exponent balances them.
     """
     require_columns(geometry, GEOMETRY_PLOT_COLUMNS, "junction geometry")
@@ -78,8 +79,9 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
     flagged = _flags(geometry)
     x = geometry["ratio_large"].to_numpy(dtype=float)
     y = geometry["ratio_small"].to_numpy(dtype=float)
-    placed = np.isfinite(x) & np.isfinite(y)
-    bifurcation = geometry["n_daughters"].to_numpy() == 2
+    n_daughters = geometry["n_daughters"].to_numpy()
+    placed = np.isfinite(x) & np.isfinite(y) & (n_daughters >= 2)
+    bifurcation = n_daughters == 2
 
     created = ax is None
     with house_style():
@@ -121,7 +123,7 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         ax.set_ylabel("Smaller daughter / parent radius")
         n_missing = int((~placed).sum())
         if n_missing:
-            ax.text(0.02, 0.02, f"{n_missing} junction(s) with missing sizes not shown",
+            ax.text(0.02, 0.02, f"{n_missing} junction(s) without valid sizes\nof a parent and two daughters not shown",
                     transform=ax.transAxes, fontsize=6, color="#555555", va="bottom", gid="missing-note")
         legend_above(ax, figure_level=created)
     return ax
