@@ -52,6 +52,8 @@ def plot_ppc_parent(ppc_table: pd.DataFrame, axes=None, *, max_draws: int = 50, 
         sits above the panels when the figure is created here, otherwise in the first Axes.
     """
     _check(ppc_table)
+    if int(max_draws) < 1:
+        raise ValueError(f"max_draws must be at least 1; got {max_draws!r}")
     taxa = list(dict.fromkeys(ppc_table["taxon"].astype(str)))
     unit = unit if unit is not None else ppc_table.attrs.get("unit")
     xlabel = f"Parent radius ({unit})" if unit else "Parent radius"
