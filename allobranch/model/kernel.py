@@ -41,7 +41,7 @@ DIRECTIONS: tuple[str, ...] = ("a", "sigma_dev", "sigma_rel", "sigma_asym", "nu"
 _LOG2PI = math.log(2.0 * math.pi)
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _one(y0, y, present, v0, v, a, sdev, srel, sasym, nu, student, mu_buf, g_buf, s2_buf):
     """Log-likelihood, predictive mean and variance of one junction (complex arithmetic)."""
     K = y.shape[0]
@@ -115,7 +115,7 @@ def _one(y0, y, present, v0, v, a, sdev, srel, sasym, nu, student, mu_buf, g_buf
     return ll_parent + ll_daughters, mean + ybar, var
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, student, skip):
     """Per-junction log-likelihood, its derivatives, and the parent's predictive mean and variance.
 
@@ -180,7 +180,7 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
     return ll, dll, mean, var
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def daughter_loglik(Y, M, V, srel, sasym):
     """Sum over junctions of the daughters' contrast log-density (real arithmetic; used to estimate the
     asymmetry scale by maximum marginal likelihood)."""
@@ -223,7 +223,7 @@ def daughter_loglik(Y, M, V, srel, sasym):
     return total
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def precompute(Y, M, V, srel, tau_j):
     """Posterior of the true log daughters for fixed measurement error and asymmetry.
 
@@ -276,7 +276,7 @@ def precompute(Y, M, V, srel, tau_j):
     return mu, g, c, ybar, lld
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, student):
     """Per-junction log-likelihood with analytic derivatives, for fixed measurement error and asymmetry.
 
@@ -289,6 +289,7 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, stu
     dll = np.zeros((n, 5))
     mean_out = np.empty(n)
     var_out = np.empty(n)
+    w_buf = np.empty(K)
     for j in range(n):
         a = a_spec[spec_idx[j]]
         tmax = -1e300
@@ -300,7 +301,11 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, stu
         se = 0.0
         for i in range(K):
             if M[j, i]:
-                se += math.exp(a * mu[j, i] - tmax)
+                e = math.exp(a * mu[j, i] - tmax)
+                w_buf[i] = e
+                se += e
+            else:
+                w_buf[i] = 0.0
         L = tmax + math.log(se)
         cj = c[j]
         mbar = 0.0
@@ -308,25 +313,24 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, stu
         w2g = 0.0
         Dg = 0.0
         for i in range(K):
-            if M[j, i]:
-                w = math.exp(a * mu[j, i] - L)
-                gi = g[j, i]
-                mbar += w * mu[j, i]
-                wg += w * gi
-                w2g += w * w * gi
-                Dg += w * (gi + gi * gi / cj)
+            w = w_buf[i] / se
+            w_buf[i] = w
+            gi = g[j, i]
+            mbar += w * mu[j, i]
+            wg += w * gi
+            w2g += w * w * gi
+            Dg += w * (gi + gi * gi / cj)
         S = w2g + wg * wg / cj
         dD = 0.0
         dw2g = 0.0
         dwg = 0.0
         for i in range(K):
-            if M[j, i]:
-                w = math.exp(a * mu[j, i] - L)
-                gi = g[j, i]
-                dw = w * (mu[j, i] - mbar)
-                dD += dw * (gi + gi * gi / cj)
-                dw2g += 2.0 * w * dw * gi
-                dwg += dw * gi
+            w = w_buf[i]
+            gi = g[j, i]
+            dw = w * (mu[j, i] - mbar)
+            dD += dw * (gi + gi * gi / cj)
+            dw2g += 2.0 * w * dw * gi
+            dwg += dw * gi
         dS = dw2g + 2.0 * wg * dwg / cj
         mean = L / a + 0.5 * a * (Dg - S)
         dmean = mbar / a - L / (a * a) + 0.5 * (Dg - S) + 0.5 * a * (dD - dS)
@@ -350,7 +354,7 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, stu
     return ll, dll, mean_out, var_out
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def aggregate_gradient(g, dll, spec_idx, n_spec):
     """Chain rule: upstream gradient ``g`` (n,) times per-junction derivatives, summed by parameter.
 
