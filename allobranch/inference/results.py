@@ -155,8 +155,12 @@ class FitResult:
 
     # -- data-side tables -----------------------------------------------------------------------------
     def geometry(self) -> pd.DataFrame:
-        """Per-junction descriptive geometry (naive exponents etc.) of the fitted table."""
-        return junction_geometry(self.table)
+        """Per-junction descriptive geometry (naive exponents etc.) of the fitted table, with a boolean
+        ``flagged`` column marking junctions that validation flagged."""
+        geo = junction_geometry(self.table)
+        rows = {p.row for p in self.table.report.flags if p.row is not None}
+        geo["flagged"] = geo["source_row"].isin(rows).astype(bool)
+        return geo
 
     def naive_vs_model(self, hdi_prob: float = HDI_PROB) -> pd.DataFrame:
         """Taxon exponents from the model beside the naive per-junction summary (which ignores error)."""

@@ -1,0 +1,45 @@
+"""``allobranch figures FIT_DIR``: every figure of a fit, for print."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from allobranch.errors import InputError
+from allobranch.reporting.style import FIGURE_FORMATS
+
+
+def _formats(text: str) -> tuple[str, ...]:
+    formats = tuple(f.strip().lower() for f in text.split(",") if f.strip())
+    bad = [f for f in formats if f not in FIGURE_FORMATS]
+    if bad or not formats:
+        raise InputError(f"--format {text!r}: use a comma-separated list of {', '.join(FIGURE_FORMATS)}")
+    return formats
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``allobranch figures``."""
+    from allobranch.inference.results import FitResult
+    from allobranch.reporting.figures import read_laws_table, write_figures
+
+    fit_dir = Path(args.fit_dir)
+    result = FitResult.load(fit_dir / "fit.nc")
+    written = write_figures(result, fit_dir / "figures", laws_table=read_laws_table(fit_dir),
+                            formats=_formats(args.format), width=args.width)
+    print(f"{len(written)} figure files written to {fit_dir / 'figures'}/")
+    return 0
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Add the ``figures`` sub-command."""
+    parser = subparsers.add_parser(
+        "figures", help="draw every figure of a fit",
+        description="Draw the exponent forest plot, ratio plane, naive-vs-model, posterior predictive check, "
+        "law comparison (when 'allobranch compare' wrote into the same folder) and sampler diagnostics into "
+        "FIT_DIR/figures/ (existing figure files there are replaced).",
+    )
+    parser.add_argument("fit_dir", metavar="FIT_DIR", help="folder written by 'allobranch fit' (holds fit.nc)")
+    parser.add_argument("--format", default="pdf,png,svg", help="comma-separated formats (default pdf,png,svg)")
+    parser.add_argument("--width", choices=("single", "double"), default="single",
+                        help="journal column width: single (~85 mm) or double (~180 mm)")
+    parser.set_defaults(func=run)

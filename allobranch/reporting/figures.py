@@ -1,0 +1,90 @@
+"""Assemble every figure of a fit (and, when present, its law comparison) from the results' tables."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import matplotlib.pyplot as plt
+import pandas as pd
+
+from allobranch.comparison.laws import CLASSIC_LAWS
+from allobranch.reporting.plots import (
+    plot_diagnostics,
+    plot_exponents,
+    plot_law_comparison,
+    plot_naive_vs_model,
+    plot_ppc_parent,
+    plot_ratio_plane,
+)
+from allobranch.reporting.style import figure, house_style, save_figure
+
+#: Figure files written by :func:`write_figures`, by name (without suffix).
+FIGURE_NAMES = ("exponents", "ratio_plane", "naive_vs_model", "ppc_parent", "law_comparison", "diagnostics")
+
+
+#: Short display names of the classic laws in figures.
+SHORT_NAMES = {"rall": "Rall", "da_vinci": "da Vinci", "murray": "Murray"}
+
+
+def default_laws() -> dict[str, float]:
+    """The classic laws as short figure labels, e.g. ``"Murray (a=3)" -> 3.0``."""
+    return {f"{SHORT_NAMES.get(law.label, law.label)} (a={law.value:g})": law.value for law in CLASSIC_LAWS}
+
+
+def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str = "single") -> dict:
+    """Draw every figure for ``result`` (a FitResult); returns name -> matplotlib Figure.
+
+    Parameters
+    ----------
+    result : FitResult
+    laws_table : pandas.DataFrame, optional
+        Long-form law comparison (columns scope, law, value, elpd, elpd_diff, dse, weight, log10_bf,
+        p_rope); without it the law-comparison figure is skipped and reference lines show the classic laws.
+    width : {"single", "double"}
+        Journal column width.
+    """
+    laws = laws_table if laws_table is not None else default_laws()
+    exps = result.exponents()
+    figs = {}
+    with house_style():
+        fig, ax = figure(width=width, aspect=max(0.6, 0.12 * len(exps)))
+        plot_exponents(exps, laws=laws, ax=ax)
+        figs["exponents"] = fig
+        fig, ax = figure(width=width, aspect=0.9)
+        plot_ratio_plane(result.geometry(), laws, exponents=exps, ax=ax)
+        figs["ratio_plane"] = fig
+        fig, ax = figure(width=width, aspect=0.75)
+        plot_naive_vs_model(result.naive_vs_model(), laws=laws, ax=ax)
+        figs["naive_vs_model"] = fig
+    axes = plot_ppc_parent(result.ppc_table(), unit=result.table.unit)
+    figs["ppc_parent"] = _figure_of(axes)
+    if laws_table is not None:
+        figs["law_comparison"] = _figure_of(plot_law_comparison(laws_table))
+    figs["diagnostics"] = _figure_of(plot_diagnostics(result.idata, result.checked_parameters()[:4]))
+    return figs
+
+
+def _figure_of(axes):
+    import numpy as np
+
+    first = np.ravel(np.asarray(axes, dtype=object))[0]
+    return first.figure
+
+
+def read_laws_table(fit_dir: str | os.PathLike) -> pd.DataFrame | None:
+    """The long-form law table written by ``allobranch compare`` into the folder, if any."""
+    path = Path(fit_dir) / "laws_long.csv"
+    return pd.read_csv(path) if path.is_file() else None
+
+
+def write_figures(result, folder: str | os.PathLike, *, laws_table: pd.DataFrame | None = None,
+                  formats: tuple[str, ...] = ("pdf", "svg", "png"), width: str = "single") -> list[Path]:
+    """Draw and save every figure into ``folder`` (created if needed); returns the files written."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name, fig in make_figures(result, laws_table, width=width).items():
+        written += save_figure(fig, folder / name, formats=formats)
+        plt.close(fig)
+    return written
