@@ -406,7 +406,7 @@ def test_law_comparison_rejects_wrong_axes():
 def test_ppc_panels_per_taxon_log_scale():
     ppc = fake_ppc(n_draws=30)
     axes = plot_ppc_parent(ppc, max_draws=20)
-    assert [ax.get_title() for ax in axes] == ["Rattus (n = 25)", "Sus (n = 40)", "Quercus (n = 18)"]
+    assert [ax.get_title() for ax in axes] == ["Rattus\n(n = 25)", "Sus\n(n = 40)", "Quercus\n(n = 18)"]
     for ax in axes:
         assert ax.get_xscale() == "log"
         assert ax.get_xlabel() == "Parent radius (mm)"
@@ -427,6 +427,15 @@ def test_ppc_observed_curve_is_the_ecdf_of_the_data():
     # reference definition: the empirical CDF reaches k/n at the k-th smallest value
     assert set(np.round(y, 12)) >= set(np.round(np.arange(1, obs.size + 1) / obs.size, 12))
     assert set(obs) <= set(x)
+
+
+def test_ppc_prints_micrometres_and_wraps_long_taxa():
+    ppc = fake_ppc()
+    ppc["taxon"] = ppc["taxon"].map({"Rattus": "Rattus norvegicus domestica laboratory", "Sus": "Sus",
+                                     "Quercus": "Quercus"})
+    axes = plot_ppc_parent(ppc, unit="um")
+    assert axes[0].get_xlabel() == "Parent radius (µm)"
+    assert axes[0].get_title().count("\n") == 2  # the long name wraps, then the count
 
 
 def test_ppc_rejects_non_positive_radii_and_bad_source():

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 import pandas as pd
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
@@ -15,7 +17,11 @@ SOURCES: tuple[str, ...] = ("observed", "predicted")
 PREDICTED_COLOR = OKABE_ITO["sky_blue"]
 OBSERVED_COLOR = "#000000"
 #: Height of one row of panels in millimetres when the figure is created here.
-PANEL_MM = 36.0
+PANEL_MM = 38.0
+#: How canonical unit codes are printed in axis labels.
+UNIT_LABELS: dict[str, str] = {"um": "µm"}
+#: Characters per line of a panel title before the taxon name wraps.
+TITLE_WIDTH = 24
 
 
 def _check(ppc_table: pd.DataFrame) -> None:
@@ -47,7 +53,7 @@ def plot_ppc_parent(ppc_table: pd.DataFrame, axes=None, *, max_draws: int = 50, 
     Returns
     -------
     numpy.ndarray of matplotlib.axes.Axes
-        One Axes per taxon (titled with the taxon and its number of observed junctions) with a logarithmic
+        One Axes per taxon (titled with the taxon and, below, its number of observed junctions) with a log
         radius axis: a thin line per predictive draw and a thick line for the observed radii. The legend
         sits above the panels when the figure is created here, otherwise in the first Axes.
     """
@@ -56,7 +62,7 @@ def plot_ppc_parent(ppc_table: pd.DataFrame, axes=None, *, max_draws: int = 50, 
         raise ValueError(f"max_draws must be at least 1; got {max_draws!r}")
     taxa = list(dict.fromkeys(ppc_table["taxon"].astype(str)))
     unit = unit if unit is not None else ppc_table.attrs.get("unit")
-    xlabel = f"Parent radius ({unit})" if unit else "Parent radius"
+    xlabel = f"Parent radius ({UNIT_LABELS.get(unit, unit)})" if unit else "Parent radius"
     with house_style():
         created = axes is None
         if created:
@@ -82,11 +88,11 @@ def plot_ppc_parent(ppc_table: pd.DataFrame, axes=None, *, max_draws: int = 50, 
                         label=f"predicted ({len(draws)} draws)" if j == 0 else None)
             observed = sub.loc[sub["source"] == "observed", "value"].to_numpy(dtype=float)
             if observed.size:
-                ax.ecdf(observed, color=OBSERVED_COLOR, lw=1.4, zorder=3, gid=f"observed:{taxon}",
+                ax.ecdf(observed, color=OBSERVED_COLOR, lw=1.1, zorder=3, gid=f"observed:{taxon}",
                         label="observed")
             _log_radius_axis(ax, sub["value"].to_numpy(dtype=float))
             ax.set_ylim(0, 1.0)
-            ax.set_title(f"{taxon} (n = {observed.size})", fontsize=8)
+            ax.set_title(f"{textwrap.fill(taxon, TITLE_WIDTH)}\n(n = {observed.size})", fontsize=8)
             ax.set_xlabel(xlabel)
             if _first_column(ax):
                 ax.set_ylabel("Cumulative proportion")
