@@ -18,6 +18,7 @@ from allobranch.model.spec import ModelSpec, Priors  # noqa: E402
 from allobranch.model.simulate import simulate_junctions  # noqa: E402
 from allobranch.inference.results import FitResult  # noqa: E402
 from allobranch.inference.fit import fit  # noqa: E402
+from allobranch.comparison import compare_laws  # noqa: E402
 
 __all__ = [
     "__version__",
@@ -35,4 +36,5 @@ __all__ = [
     "simulate_junctions",
     "FitResult",
     "fit",
+    "compare_laws",
 ]

@@ -1,0 +1,335 @@
+"""Compare branching laws: fit the hypotheses, gather the evidence side by side, and decide per scope."""
+
+from __future__ import annotations
+
+import itertools
+import sys
+import time
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+
+import arviz as az
+import numpy as np
+import pandas as pd
+
+from allobranch.comparison import bayes_factor, loo, rope, verdict
+from allobranch.comparison.laws import FREE, SCOPES, Law, hypothesis_spec, resolve_laws
+from allobranch.errors import InputError
+from allobranch.inference.fit import LOGLIK_VAR
+from allobranch.inference.fit import fit as fit_model
+from allobranch.inference.results import FitResult
+from allobranch.intake.table import JunctionTable
+from allobranch.model.spec import ModelSpec
+
+#: Columns of :attr:`LawComparison.overall` (and of the long evidence table, for every scope).
+EVIDENCE_COLUMNS: tuple[str, ...] = (
+    "scope", "law", "value", "elpd", "elpd_se", "elpd_diff", "dse", "weight", "p_loo", "n_high_k",
+    "log10_bf", "bf_method", "log10_bf_narrow", "log10_bf_wide", "p_rope",
+)
+#: Columns of :meth:`LawComparison.laws_table` (what the law-comparison figure draws).
+LAWS_TABLE_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd", "elpd_diff", "dse", "weight",
+                                       "log10_bf", "p_rope")
+#: Per-law evidence columns of :attr:`LawComparison.by_taxon`, each suffixed ``_<label>``.
+BY_TAXON_LAW_COLUMNS: tuple[str, ...] = ("p_rope", "log10_bf", "log10_bf_narrow", "log10_bf_wide", "bf_method",
+                                         "elpd_diff", "dse", "weight")
+#: Default sampler settings for the hypothesis fits (as :func:`allobranch.fit`).
+DEFAULT_DRAWS, DEFAULT_TUNE, DEFAULT_CHAINS = 1000, 1000, 4
+
+
+@dataclass
+class LawComparison:
+    """Evidence for and against branching laws, per scope, with a verdict for each scope.
+
+    Attributes
+    ----------
+    evidence : pandas.DataFrame
+        Long table, one row per scope and hypothesis (the free model included), columns
+        :data:`EVIDENCE_COLUMNS`. ``scope`` is ``"overall"`` or a taxon label.
+    verdicts : pandas.DataFrame
+        Columns ``scope``, ``verdict`` (a law's label, ``"none"`` or ``"undecided"``), ``reason``.
+    laws : tuple of Law
+    delta : float
+        ROPE half-width.
+    warnings : list of str
+        Everything the reader must know: unreliable LOO (naming junctions), failed diagnostics of any fit,
+        overlapping ROPEs, unreliable prior-sensitivity reweighting.
+    settings : dict
+        Seed, sampler settings, number of fits and runtime in seconds.
+    free_fit : FitResult
+        The fit of the free model (the source of the Bayes factors and ROPE probabilities).
+    """
+
+    evidence: pd.DataFrame
+    verdicts: pd.DataFrame
+    laws: tuple[Law, ...]
+    delta: float
+    warnings: list[str] = field(default_factory=list)
+    settings: dict = field(default_factory=dict)
+    free_fit: FitResult | None = None
+
+    @property
+    def overall(self) -> pd.DataFrame:
+        """One row per hypothesis of the ``overall`` scope (columns :data:`EVIDENCE_COLUMNS`)."""
+        return self.evidence[self.evidence["scope"] == "overall"].reset_index(drop=True)
+
+    @property
+    def by_taxon(self) -> pd.DataFrame:
+        """One row per taxon: ``taxon``, ``verdict``, ``reason``, then per law ``<column>_<label>`` for the
+        columns :data:`BY_TAXON_LAW_COLUMNS`, and ``elpd_diff_free``, ``dse_free``, ``weight_free``."""
+        taxa = [t for t in self.settings.get("taxa", []) if t in set(self.evidence["scope"])]
+        rows = []
+        verdicts = self.verdicts.set_index("scope")
+        for taxon in taxa:
+            ev = self.evidence[self.evidence["scope"] == taxon].set_index("law")
+            row: dict = {"taxon": taxon, "verdict": verdicts.at[taxon, "verdict"],
+                         "reason": verdicts.at[taxon, "reason"]}
+            for law in self.laws:
+                row.update({f"{c}_{law.label}": ev.at[law.label, c] for c in BY_TAXON_LAW_COLUMNS})
+            row.update({f"{c}_{FREE}": ev.at[FREE, c] for c in ("elpd_diff", "dse", "weight")})
+            row["n_high_k"] = int(ev["n_high_k"].max())
+            rows.append(row)
+        columns = ["taxon", "verdict", "reason",
+                   *(f"{c}_{law.label}" for law in self.laws for c in BY_TAXON_LAW_COLUMNS),
+                   *(f"{c}_{FREE}" for c in ("elpd_diff", "dse", "weight")), "n_high_k"]
+        return pd.DataFrame(rows, columns=columns)
+
+    def laws_table(self) -> pd.DataFrame:
+        """Long form for the law-comparison figure: columns :data:`LAWS_TABLE_COLUMNS`, every scope."""
+        return self.evidence[list(LAWS_TABLE_COLUMNS)].reset_index(drop=True)
+
+    def to_markdown(self) -> str:
+        """A report: verdicts, evidence tables, the decision rule, the caveats and every warning."""
+        fmt = {"index": False, "floatfmt": ".3g"}
+        s = self.settings
+        law_list = ", ".join(f"{law.label} (a = {law.value:g})" for law in self.laws)
+        lines = [
+            "# Branching-law comparison", "",
+            f"Laws: {law_list}; free model: exponent estimated. ROPE half-width delta = {self.delta:g}.",
+            f"Fits: {s.get('n_fits')} (draws {s.get('draws')}, tune {s.get('tune')}, chains {s.get('chains')}, "
+            f"seed {s.get('seed')}); runtime {s.get('seconds', float('nan')):.0f} s.", "",
+            "## Verdicts", "", self.verdicts.to_markdown(**fmt), "",
+        ]
+        if not self.overall.empty:
+            lines += ["## Overall (all taxa share the exponent)", "", self.overall.to_markdown(**fmt), ""]
+        by_taxon = self.by_taxon
+        if not by_taxon.empty:
+            keep = ["taxon", "verdict", *(f"{c}_{law.label}" for law in self.laws
+                                          for c in ("p_rope", "log10_bf", "elpd_diff"))]
+            lines += ["## By taxon (one taxon's exponent fixed at a time)", "", by_taxon[keep].to_markdown(**fmt),
+                      "", "Full per-taxon evidence (Bayes-factor sensitivity, weights): laws_by_taxon.csv / "
+                      "`LawComparison.by_taxon`.", ""]
+        lines += ["## Decision rule", "", verdict.RULE, "", "## Caveats", "",
+                  f"- {loo.CAVEAT}", f"- {bayes_factor.CAVEAT}", f"- {rope.CAVEAT}", ""]
+        lines += ["## Warnings", ""] + ([f"- {w}" for w in self.warnings] or ["- none"])
+        return "\n".join(lines) + "\n"
+
+
+def _check_scopes(scopes: Iterable[str]) -> tuple[str, ...]:
+    scopes = tuple(dict.fromkeys(str(s) for s in ([scopes] if isinstance(scopes, str) else scopes)))
+    bad = [s for s in scopes if s not in SCOPES]
+    if bad or not scopes:
+        raise InputError(f"scopes must be one or both of {', '.join(SCOPES)}; got {', '.join(bad) or 'none'}")
+    return scopes
+
+
+def _free_fit(table_or_fit: JunctionTable | FitResult, fit: FitResult | None, spec: ModelSpec | None,
+              sampler: dict, progress: bool) -> tuple[FitResult, JunctionTable]:
+    """The free model's fit (given or fitted here) and the table to fit the laws to."""
+    if isinstance(table_or_fit, FitResult):
+        if fit is not None:
+            raise InputError("the free fit was given twice (as the first argument and as fit=); give it once")
+        fit, table = table_or_fit, table_or_fit.table
+    elif isinstance(table_or_fit, JunctionTable):
+        table = table_or_fit
+        if fit is not None:
+            made_from = fit.provenance.get("input_sha256")
+            if made_from is not None and made_from != table.digest():
+                raise InputError("the saved fit was made from other data than this junction table (different "
+                                 "content hash): give the table and mapping the fit was made from, or refit")
+    else:
+        raise InputError(f"compare_laws needs a JunctionTable or a FitResult, got {type(table_or_fit).__name__}")
+    if fit is not None:
+        if fit.spec.fixed_exponent is not None or fit.spec.fixed_taxa:
+            raise InputError("the given fit has a fixed exponent; the comparison needs the free model's fit")
+        if spec is not None and spec != fit.spec:
+            raise InputError("spec differs from the given fit's specification; leave spec out to use the fit's")
+        return fit, table
+    if spec is not None and (spec.fixed_exponent is not None or spec.fixed_taxa):
+        raise InputError("spec must describe the free model: leave fixed_exponent and fixed_taxa empty")
+    _log(progress, "fitting the free model")
+    return fit_model(table, spec or ModelSpec(), progress=progress, **sampler), table
+
+
+def _derived_seed(seed: int, k: int) -> int:
+    """The ``k``-th hypothesis fit's seed, derived from the user's seed (independent streams)."""
+    return int(np.random.SeedSequence([int(seed), int(k)]).generate_state(1)[0] % (2**31 - 1))
+
+
+def _log(progress: bool, message: str) -> None:
+    if progress:
+        print(f"[compare] {message}", file=sys.stderr, flush=True)
+
+
+def _fit_scope(table: JunctionTable, free: FitResult, laws: Sequence[Law], taxon: str | None,
+               sampler: dict, seeds: Iterable[int], progress: bool, warnings: list[str]) -> dict:
+    """Fit every law of one scope; returns label -> InferenceData (the free model first)."""
+    idatas = {FREE: free.idata}
+    where = "overall" if taxon is None else f"taxon {taxon}"
+    for law, seed in zip(laws, seeds):
+        _log(progress, f"fitting {law.label} (a = {law.value:g}), {where}")
+        result = fit_model(table, hypothesis_spec(free.spec, law.value, taxon), progress=progress,
+                           **{**sampler, "seed": int(seed)})
+        warnings.extend(f"fit of {law.label} ({where}): {w}" for w in result.warnings)
+        idatas[law.label] = result.idata
+    return idatas
+
+
+def _scope_rows(scope: str, loo_result: loo.LooComparison, bf: pd.DataFrame, draws: np.ndarray,
+                laws: Sequence[Law], delta: float) -> list[dict]:
+    rows = []
+    for label, stats in loo_result.table.iterrows():
+        row = {"scope": scope, "law": label, **stats.to_dict()}
+        law = next((law for law in laws if law.label == label), None)
+        if law is None:
+            row.update(value=np.nan, log10_bf=np.nan, bf_method="", log10_bf_narrow=np.nan,
+                       log10_bf_wide=np.nan, p_rope=np.nan)
+        else:
+            b = bf[(bf["scope"] == scope) & (bf["law"] == label)].iloc[0]
+            row.update(value=law.value, **{c: b[c] for c in ("log10_bf", "bf_method", "log10_bf_narrow",
+                                                             "log10_bf_wide")},
+                       p_rope=rope.p_rope(draws, law.value, delta))
+        rows.append(row)
+    return rows
+
+
+def compare_laws(
+    table_or_fit: JunctionTable | FitResult,
+    laws: Iterable[str | Law] | Mapping[str, float | str] | None = None,
+    *,
+    delta: float = rope.DEFAULT_DELTA,
+    scopes: Iterable[str] = SCOPES,
+    seed: int = 0,
+    draws: int | None = None,
+    tune: int | None = None,
+    chains: int | None = None,
+    sampler: str = "nutpie",
+    spec: ModelSpec | None = None,
+    progress: bool = False,
+    fit: FitResult | None = None,
+) -> LawComparison:
+    """Compare point laws for the branching exponent with the free model, overall and per taxon.
+
+    For each scope the free model and every law (the exponent fixed at the law's value) are fitted to the
+    same junctions. Three kinds of evidence are reported side by side, each with its caveat: PSIS-LOO
+    (ELPD differences, stacking weights, Pareto-k counts; :mod:`allobranch.comparison.loo`), Savage–Dickey
+    Bayes factors of each law against the free model with their prior sensitivity
+    (:mod:`allobranch.comparison.bayes_factor`), and the posterior probability that the exponent lies
+    within ``+/- delta`` of each law (:mod:`allobranch.comparison.rope`). A conservative rule turns them
+    into a verdict per scope (:mod:`allobranch.comparison.verdict`).
+
+    Parameters
+    ----------
+    table_or_fit : JunctionTable or FitResult
+        The junctions, or a fit of the free model (whose table and specification are then used).
+    laws : iterable of str or Law, or mapping of label to value, optional
+        Laws to compare: classic names (``"murray"``, ``"da_vinci"``, ``"rall"``) or ``"LABEL=VALUE"``
+        (fractions allowed, e.g. ``"turbulent=7/3"``). Default: Rall (3/2), da Vinci (2), Murray (3).
+    delta : float
+        Half-width of each law's region of practical equivalence (default 0.25, half the gap between 3/2
+        and 2).
+    scopes : iterable of {"overall", "taxon"}
+        ``overall``: all taxa share the law's exponent; ``taxon``: one taxon at a time has it. With one
+        taxon, the taxon scope re-uses the overall fits (the two models are then the same).
+    seed : int
+        Seed of the free model's fit (as in :func:`allobranch.fit`); every law's fit gets its own seed
+        derived from it, and it seeds the prior Monte Carlo.
+    draws, tune, chains : int, optional
+        Sampler settings of every fit; default: the given free fit's settings, else 1000, 1000, 4.
+    sampler : {"nutpie", "pymc"}
+        NUTS implementation.
+    spec : ModelSpec, optional
+        Specification of the free model when it is fitted here (no fixed exponents); the laws' models
+        differ from it only in the fixed exponent.
+    progress : bool
+        Print which hypothesis is being fitted and show the sampler's progress.
+    fit : FitResult, optional
+        A saved fit of the free model of ``table_or_fit`` to re-use instead of refitting it.
+
+    Returns
+    -------
+    LawComparison
+        ``.overall``, ``.by_taxon``, ``.verdicts``, ``.warnings``, ``.laws_table()``, ``.to_markdown()``.
+
+    Raises
+    ------
+    InputError
+        For unknown or badly written laws, bad ``delta`` or ``scopes``, a taxon named ``"overall"``, or a
+        given fit that is not the free model of this table.
+
+    Examples
+    --------
+    >>> import allobranch as ab                                            # doctest: +SKIP
+    >>> sim = ab.simulate_junctions(taxa=2, seed=1)
+    >>> table = ab.read_junctions(sim.frame, sim.mapping)
+    >>> result = ab.compare_laws(table, ["murray", "da_vinci", "turbulent=7/3"], seed=1)
+    >>> result.verdicts
+    """
+    started = time.perf_counter()
+    laws = resolve_laws(laws)
+    try:
+        delta = rope.check_delta(delta)
+    except ValueError as exc:
+        raise InputError(str(exc)) from None
+    scopes = _check_scopes(scopes)
+    given = fit if fit is not None else (table_or_fit if isinstance(table_or_fit, FitResult) else None)
+    base = given.settings if given is not None else {}
+    sampler_kw = {"draws": int(draws or base.get("draws", DEFAULT_DRAWS)),
+                  "tune": int(tune or base.get("tune", DEFAULT_TUNE)),
+                  "chains": int(chains or base.get("chains", DEFAULT_CHAINS)), "sampler": sampler}
+    seeds = (_derived_seed(seed, k) for k in itertools.count(1))
+    free, table = _free_fit(table_or_fit, fit, spec, {**sampler_kw, "seed": seed}, progress)
+    taxa = [str(t) for t in table.taxa]
+    if "taxon" in scopes and "overall" in taxa:
+        raise InputError("a taxon is named 'overall', which is the name of the all-taxa scope; rename it")
+
+    warnings = rope.overlapping_laws(laws, delta)
+    warnings += [f"fit of the free model: {w}" for w in free.warnings]
+    per_scope: dict[str, dict] = {}
+    n_fits = int(given is None)
+    if "overall" in scopes or len(taxa) == 1:
+        per_scope["overall"] = _fit_scope(table, free, laws, None, sampler_kw, seeds, progress, warnings)
+        n_fits += len(laws)
+    if "taxon" in scopes:
+        for taxon in taxa:
+            if len(taxa) == 1:
+                per_scope[taxon] = per_scope["overall"]
+                warnings.append(f"one taxon ({taxon}): its comparison is the overall one (same models)")
+            else:
+                per_scope[taxon] = _fit_scope(table, free, laws, taxon, sampler_kw, seeds, progress, warnings)
+                n_fits += len(laws)
+    if "overall" not in scopes:
+        per_scope.pop("overall", None)
+
+    bf, bf_warnings = bayes_factor.bayes_factor_table(
+        free.idata, free.spec.priors, laws, taxa if "taxon" in scopes else None,
+        include_overall="overall" in scopes, seed=seed)
+    warnings += bf_warnings
+    post = free.idata.posterior
+    rows = []
+    for scope, idatas in per_scope.items():
+        result = loo.compare_loo(idatas, var_name=LOGLIK_VAR)
+        message = loo.high_k_warning(scope, result)
+        if message:
+            warnings.append(message)
+        draws_ = post["mu"].values if scope == "overall" else post["a_taxon"].sel(taxon=scope).values
+        rows += _scope_rows(scope, result, bf, draws_, laws, delta)
+    tail = bf[bf["bf_method"] == "normal_approx"]
+    if len(tail):
+        warnings.append(f"{len(tail)} Bayes factor(s) use a normal approximation to the posterior (the law lies "
+                        "in the far tail of the draws): only their order of magnitude is meaningful")
+    evidence = pd.DataFrame(rows, columns=list(EVIDENCE_COLUMNS))
+    settings = {**sampler_kw, "seed": seed, "taxa": taxa, "scopes": list(scopes),
+                "n_fits": n_fits,
+                "seconds": round(time.perf_counter() - started, 1)}
+    return LawComparison(evidence=evidence, verdicts=verdict.verdict_table(evidence), laws=laws, delta=delta,
+                         warnings=warnings, settings=settings, free_fit=free)
