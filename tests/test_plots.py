@@ -299,6 +299,9 @@ def test_exponents_draw_into_given_axes():
     assert plot_exponents(fake_exponents(), laws=LAWS, ax=ax) is ax
     assert len(fig.axes) == 1
     assert not fig.legends and ax.get_legend() is not None  # the caller's figure is left to the caller
+    fig, ax = figure("single")  # a single Axes with the constrained layout: the legend spans the figure
+    plot_exponents(fake_exponents(), laws=LAWS, ax=ax)
+    assert len(fig.legends) == 1 and ax.get_legend() is None
 
 
 # ---------------------------------------------------------------------------------------------------------

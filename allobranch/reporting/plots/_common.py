@@ -6,6 +6,7 @@ from collections.abc import Iterable, Mapping
 
 import numpy as np
 import pandas as pd
+from matplotlib.layout_engine import ConstrainedLayoutEngine
 from matplotlib.patches import Patch
 
 from allobranch.reporting.style import law_styles
@@ -107,7 +108,7 @@ def draw_law_lines(ax, laws: list[tuple[str, float]]) -> None:
                    gid=f"law-line:{value!r}")
 
 
-def legend_above(ax, ncol: int | None = None, *, figure_level: bool = False, **kwargs):
+def legend_above(ax, ncol: int | None = None, *, figure_level: bool | None = None, **kwargs):
     """Place the Axes legend above the plot, where it cannot cover data or the axis label.
 
     Parameters
@@ -118,9 +119,10 @@ def legend_above(ax, ncol: int | None = None, *, figure_level: bool = False, **k
         Columns when no law is drawn (entries then read row by row); by default one for at most two
         entries, else two. When laws are drawn the legend has two columns: the data on the left, the laws
         (artists whose gid starts with ``"law-"``) on the right.
-    figure_level : bool, default False
-        Centre the legend over the whole figure (for figures the plot function created itself, whose
-        constrained layout makes room for it) instead of over the Axes.
+    figure_level : bool, optional
+        Centre the legend over the whole figure instead of over the Axes. By default this is done when
+        ``ax`` is its figure's only Axes and the figure uses the constrained layout, which makes room for
+        a figure legend; otherwise the legend sits just above the Axes.
     **kwargs
         Passed to :meth:`matplotlib.axes.Axes.legend`.
 
@@ -148,6 +150,9 @@ def legend_above(ax, ncol: int | None = None, *, figure_level: bool = False, **k
         nrows = -(-len(entries) // ncol)
         entries = [entries[r * ncol + c] for c in range(ncol) for r in range(nrows) if r * ncol + c < len(entries)]
     args = ([h for h, _ in entries], [lab for _, lab in entries])
+    if figure_level is None:
+        fig = ax.figure
+        figure_level = len(fig.axes) == 1 and isinstance(fig.get_layout_engine(), ConstrainedLayoutEngine)
     if figure_level:
         return ax.figure.legend(*args, loc="outside upper center", ncols=ncol, columnspacing=1.2, **kwargs)
     kwargs.setdefault("loc", "lower center")

@@ -76,8 +76,8 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
     matplotlib.axes.Axes
         One point (posterior mean) and one horizontal interval per row of ``exponents``: the population
         on top, then each taxon (bold) followed by its specimens (grey); specimens without a taxon row are
-        labelled ``"specimen (taxon)"``. The legend sits above the plot (above the whole figure when the
-        figure is created here).
+        labelled ``"specimen (taxon)"``. The legend sits above the plot (centred on the figure when the
+        Axes is alone in a constrained-layout figure, such as the one created here).
 
     Examples
     --------
@@ -95,7 +95,6 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
     exponents = exponents.reset_index(drop=True)
     pairs = law_values(laws)
     order = _forest_order(exponents)
-    created = ax is None
     with house_style():
         ax = new_axes(ax, height_mm=FRAME_MM + ROW_MM * (order[-1][1] + 1))
         labelled: set[str] = set()
@@ -121,7 +120,7 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
         ax.set_xlabel(f"Branching exponent a\n(posterior mean, {hdi_percent(exponents)})")
         ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
         ax.set_axisbelow(True)
-        legend_above(ax, figure_level=created)
+        legend_above(ax)
     return ax
 
 
@@ -162,7 +161,6 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
     table = table.reset_index(drop=True)
     pairs = law_values(laws)
     n = len(table)
-    created = ax is None
     with house_style():
         ax = new_axes(ax, height_mm=FRAME_MM + 11.0 * n)
         y = np.arange(n, dtype=float)
@@ -194,5 +192,5 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
         ax.set_xlabel("Branching exponent a")
         ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
         ax.set_axisbelow(True)
-        legend_above(ax, figure_level=created)
+        legend_above(ax)
     return ax

@@ -83,7 +83,6 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
     placed = np.isfinite(x) & np.isfinite(y) & (n_daughters >= 2)
     bifurcation = n_daughters == 2
 
-    created = ax is None
     with house_style():
         ax = new_axes(ax, aspect=1.1)
         styles = law_styles([v for _, v in pairs])
@@ -125,5 +124,5 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         if n_missing:
             ax.text(0.02, 0.02, f"{n_missing} junction(s) without valid sizes\nof a parent and two daughters not shown",
                     transform=ax.transAxes, fontsize=6, color="#555555", va="bottom", gid="missing-note")
-        legend_above(ax, figure_level=created)
+        legend_above(ax)
     return ax
