@@ -181,49 +181,6 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def daughter_loglik(Y, M, V, srel, sasym):
-    """Sum over junctions of the daughters' contrast log-density (real arithmetic; used to estimate the
-    asymmetry scale by maximum marginal likelihood)."""
-    n, K = Y.shape
-    tau = sasym * sasym
-    total = 0.0
-    for j in range(n):
-        k = 0
-        ybar = 0.0
-        for i in range(K):
-            if M[j, i]:
-                k += 1
-                ybar += Y[j, i]
-        ybar /= k
-        G = 0.0
-        B = 0.0
-        sls2 = 0.0
-        slg = 0.0
-        yy = 0.0
-        for i in range(K):
-            if M[j, i]:
-                s2 = srel * srel + max(V[j, i], 0.0) + S2_FLOOR
-                g = s2 * tau / (s2 + tau)
-                yc = Y[j, i] - ybar
-                G += g
-                B += g * yc / s2
-                sls2 += math.log(s2)
-                slg += math.log(g)
-                yy += yc * yc / s2
-        c = k * tau - G
-        bmu = 0.0
-        for i in range(K):
-            if M[j, i]:
-                s2 = srel * srel + max(V[j, i], 0.0) + S2_FLOOR
-                g = s2 * tau / (s2 + tau)
-                yc = Y[j, i] - ybar
-                bmu += yc / s2 * (g * yc / s2 + g * B / c)
-        total += -0.5 * sls2 - 0.5 * (k - 1) * (_LOG2PI + math.log(tau)) + 0.5 * slg
-        total += -0.5 * math.log(c / (k * tau)) - 0.5 * (yy - bmu)
-    return total
-
-
-@nb.njit(cache=True, nogil=True, error_model="numpy")
 def precompute(Y, M, V, srel, tau_j):
     """Posterior of the true log daughters for fixed measurement error and asymmetry.
 
@@ -274,6 +231,13 @@ def precompute(Y, M, V, srel, tau_j):
         lld[j] = (-0.5 * sls2 - 0.5 * (k - 1) * (_LOG2PI + math.log(tau)) + 0.5 * slg
                   - 0.5 * math.log(cj / (k * tau)) - 0.5 * (yy - bmu))
     return mu, g, c, ybar, lld
+
+
+def daughter_loglik(Y, M, V, srel: float, sasym: float) -> float:
+    """Sum over junctions of the daughters' contrast log-density (used to estimate the asymmetry scale by
+    maximum marginal likelihood)."""
+    tau = np.full(Y.shape[0], sasym * sasym)
+    return float(precompute(Y, M, V, srel, tau)[4].sum())
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
