@@ -33,7 +33,7 @@ LAWS_TABLE_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd", "elpd_di
 BY_TAXON_LAW_COLUMNS: tuple[str, ...] = ("p_rope", "log10_bf", "log10_bf_narrow", "log10_bf_wide", "bf_method",
                                          "elpd_diff", "dse", "weight")
 #: Default sampler settings for the hypothesis fits (as :func:`allobranch.fit`).
-DEFAULT_DRAWS, DEFAULT_TUNE, DEFAULT_CHAINS = 1000, 1000, 4
+DEFAULT_DRAWS, DEFAULT_TUNE, DEFAULT_CHAINS, DEFAULT_TARGET_ACCEPT = 1000, 1000, 4, 0.9
 
 
 @dataclass
@@ -179,7 +179,10 @@ def _fit_scope(table: JunctionTable, free: FitResult, laws: Sequence[Law], taxon
         _log(progress, f"fitting {law.label} (a = {law.value:g}), {where}")
         result = fit_model(table, hypothesis_spec(free.spec, law.value, taxon), progress=progress,
                            **{**sampler, "seed": int(seed)})
-        warnings.extend(f"fit of {law.label} ({where}): {w}" for w in result.warnings)
+        if result.warnings:  # one line per fit: the problems, not the advice (the free fit's is in full)
+            problems = "; ".join(w.split(". ")[0] for w in result.warnings)
+            warnings.append(f"fit of {law.label} ({where}): {problems} -> its LOO terms are less trustworthy; "
+                            "run longer (--draws/--tune)")
         idatas[law.label] = result.idata
     return idatas
 
@@ -213,6 +216,7 @@ def compare_laws(
     tune: int | None = None,
     chains: int | None = None,
     sampler: str = "nutpie",
+    target_accept: float | None = None,
     spec: ModelSpec | None = None,
     progress: bool = False,
     fit: FitResult | None = None,
@@ -247,6 +251,8 @@ def compare_laws(
         Sampler settings of every fit; default: the given free fit's settings, else 1000, 1000, 4.
     sampler : {"nutpie", "pymc"}
         NUTS implementation.
+    target_accept : float, optional
+        NUTS target acceptance of every fit; default: the given free fit's, else 0.9.
     spec : ModelSpec, optional
         Specification of the free model when it is fitted here (no fixed exponents); the laws' models
         differ from it only in the fixed exponent.
@@ -285,7 +291,8 @@ def compare_laws(
     base = given.settings if given is not None else {}
     sampler_kw = {"draws": int(draws or base.get("draws", DEFAULT_DRAWS)),
                   "tune": int(tune or base.get("tune", DEFAULT_TUNE)),
-                  "chains": int(chains or base.get("chains", DEFAULT_CHAINS)), "sampler": sampler}
+                  "chains": int(chains or base.get("chains", DEFAULT_CHAINS)), "sampler": sampler,
+                  "target_accept": float(target_accept or base.get("target_accept", DEFAULT_TARGET_ACCEPT))}
     seeds = (_derived_seed(seed, k) for k in itertools.count(1))
     free, table = _free_fit(table_or_fit, fit, spec, {**sampler_kw, "seed": seed}, progress)
     taxa = [str(t) for t in table.taxa]
