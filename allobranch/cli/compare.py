@@ -10,8 +10,9 @@ from pathlib import Path
 from allobranch.cli.fit import add_sampler_arguments, spec_from_args
 from allobranch.cli.options import add_mapping_arguments, table_from_args
 from allobranch.comparison.compare import LawComparison, compare_laws
-from allobranch.comparison.laws import CLASSIC_LAWS
-from allobranch.comparison.rope import DEFAULT_DELTA
+from allobranch.comparison.laws import CLASSIC_LAWS, resolve_laws
+from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
+from allobranch.errors import InputError
 from allobranch.inference.results import FitResult
 from allobranch.reporting.outputs import prepare_output_dir, write_files
 
@@ -92,11 +93,16 @@ def run(args: argparse.Namespace) -> int:
     """
     started = time.perf_counter()
     prepare_output_dir(args.out, list(COMPARE_FILES), force=args.force)  # fail before the long fits
+    laws = resolve_laws(args.laws)  # and before reading the table
+    try:
+        check_delta(args.delta)
+    except ValueError as exc:
+        raise InputError(str(exc)) from None
     table = table_from_args(args)
     free = FitResult.load(args.fit_file) if args.fit_file else None
     scopes = ("overall", "taxon") if args.scope == "both" else (args.scope,)
     result = compare_laws(
-        table, args.laws, delta=args.delta, scopes=scopes, seed=args.seed, draws=args.draws, tune=args.tune,
+        table, laws, delta=args.delta, scopes=scopes, seed=args.seed, draws=args.draws, tune=args.tune,
         chains=args.chains, sampler=args.sampler, target_accept=args.target_accept,
         spec=None if free else spec_from_args(args), progress=not args.quiet, fit=free,
     )
