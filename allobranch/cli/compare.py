@@ -18,7 +18,8 @@ from allobranch.reporting.outputs import prepare_output_dir, write_files
 
 #: Files written into ``--out``.
 LAWS_FILE, BY_TAXON_FILE, REPORT_FILE = "laws.csv", "laws_by_taxon.csv", "laws.md"
-COMPARE_FILES: tuple[str, ...] = (LAWS_FILE, BY_TAXON_FILE, REPORT_FILE)
+VERDICTS_FILE = "laws_verdicts.csv"
+COMPARE_FILES: tuple[str, ...] = (LAWS_FILE, BY_TAXON_FILE, VERDICTS_FILE, REPORT_FILE)
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -55,7 +56,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def write_outputs(result: LawComparison, out: str | Path, *, force: bool = False) -> list[Path]:
-    """Write ``laws.csv`` (every scope and hypothesis), ``laws_by_taxon.csv`` and ``laws.md`` atomically.
+    """Write ``laws.csv`` (every scope and hypothesis), ``laws_by_taxon.csv``, ``laws_verdicts.csv`` (scope,
+    verdict, reason) and ``laws.md`` atomically.
 
     Parameters
     ----------
@@ -74,6 +76,7 @@ def write_outputs(result: LawComparison, out: str | Path, *, force: bool = False
     return write_files(folder, {
         LAWS_FILE: lambda p: result.evidence.to_csv(p, index=False),
         BY_TAXON_FILE: lambda p: result.by_taxon.to_csv(p, index=False),
+        VERDICTS_FILE: lambda p: result.verdicts.to_csv(p, index=False),
         REPORT_FILE: lambda p: p.write_text(result.to_markdown(), encoding="utf-8"),
     })
 

@@ -73,8 +73,8 @@ def _figure_of(axes):
 
 
 def read_laws_table(fit_dir: str | os.PathLike) -> pd.DataFrame | None:
-    """The long-form law table written by ``allobranch compare`` into the folder, if any."""
-    path = Path(fit_dir) / "laws_long.csv"
+    """The long-form law evidence (``laws.csv``) written by ``allobranch compare`` into the folder, if any."""
+    path = Path(fit_dir) / "laws.csv"
     return pd.read_csv(path) if path.is_file() else None
 
 

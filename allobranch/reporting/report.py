@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from dataclasses import asdict
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import matplotlib.pyplot as plt
@@ -65,6 +65,41 @@ def methods_paragraph(result) -> str:
     )
 
 
+@dataclass
+class SavedComparison:
+    """A law comparison read back from the files ``allobranch compare`` wrote (for the report)."""
+
+    evidence: pd.DataFrame
+    by_taxon: pd.DataFrame
+    verdicts: pd.DataFrame
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def overall(self) -> pd.DataFrame:
+        """Rows of the overall scope."""
+        return self.evidence[self.evidence["scope"] == "overall"].reset_index(drop=True)
+
+    def laws_table(self) -> pd.DataFrame:
+        """The long evidence table (every scope)."""
+        return self.evidence
+
+    @classmethod
+    def read(cls, folder: str | os.PathLike) -> "SavedComparison | None":
+        """Read ``laws.csv``, ``laws_by_taxon.csv`` and ``laws_verdicts.csv`` from ``folder`` (None if absent)."""
+        folder = Path(folder)
+        names = ("laws.csv", "laws_by_taxon.csv", "laws_verdicts.csv")
+        if not all((folder / n).is_file() for n in names):
+            return None
+        evidence, by_taxon, verdicts = (pd.read_csv(folder / n) for n in names)
+        warnings = []
+        md = folder / "laws.md"
+        if md.is_file():
+            text = md.read_text(encoding="utf-8").split("## Warnings", 1)
+            if len(text) == 2:
+                warnings = [line[2:] for line in text[1].splitlines() if line.startswith("- ") and line != "- none"]
+        return cls(evidence=evidence, by_taxon=by_taxon, verdicts=verdicts, warnings=warnings)
+
+
 def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "single") -> Path:
     """Write the HTML report of ``result`` (a FitResult) to ``path``.
 
@@ -118,7 +153,7 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
             exponent_figures={"Exponents with 90% HDIs": figs["exponents"],
                               "Naive per-junction exponents beside the model": figs["naive_vs_model"]},
             laws=None if laws is None else laws.overall,
-            verdicts=() if laws is None else laws.by_taxon,
+            verdicts=() if laws is None else laws.verdicts,
             law_figures=None if laws is None else {"Law comparison": figs["law_comparison"]},
             methods=methods_paragraph(result),
             provenance={k: v for k, v in result.provenance.items() if k != "command"},
