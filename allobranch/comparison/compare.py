@@ -8,7 +8,6 @@ import time
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 
-import arviz as az
 import numpy as np
 import pandas as pd
 
