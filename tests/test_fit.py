@@ -78,11 +78,6 @@ def test_save_and_load_round_trip(tmp_path: Path, result) -> None:
     pd.testing.assert_frame_equal(loaded.table.data, result.table.data, check_exact=False, rtol=1e-9)
 
 
-@pytest.mark.xfail(
-    reason="FitResult.save stores the junction table with DataFrame.to_json's default double_precision=10, "
-    "so radii come back rounded to 10 decimals and the loaded table no longer matches the provenance hash",
-    strict=True,
-)
 def test_loaded_table_is_the_fitted_table_exactly(tmp_path: Path, result) -> None:
     loaded = ab.FitResult.load(result.save(tmp_path / "fit.nc"))
     assert loaded.table.digest() == result.provenance["input_sha256"]

@@ -198,12 +198,12 @@ class FitResult:
         """Write to NetCDF atomically (the junction table and validation report go into the attributes)."""
         path = Path(path)
         idata = self.idata.copy()
-        idata.attrs["allobranch_table"] = self.table.data.to_json(orient="split")
+        idata.attrs["allobranch_table"] = _exact_csv(self.table.data)
         idata.attrs["allobranch_report"] = self.table.report.to_frame().to_json(orient="split")
         idata.attrs["allobranch_settings"] = json.dumps(self.settings, default=str)
         idata.attrs["allobranch_notes"] = json.dumps(self.notes)
         if self.table.repeats is not None:
-            idata.attrs["allobranch_repeats"] = self.table.repeats.to_json(orient="split")
+            idata.attrs["allobranch_repeats"] = _exact_csv(self.table.repeats)
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
         os.close(fd)
         try:
@@ -226,11 +226,9 @@ class FitResult:
             idata = az.from_netcdf(path)
             attrs = idata.attrs
             prov = json.loads(attrs["allobranch_provenance"])
-            data = pd.read_json(_io(attrs["allobranch_table"]), orient="split")
-            for col in ("taxon", "specimen", "junction"):
-                data[col] = data[col].astype(str)
+            data = _read_exact_csv(attrs["allobranch_table"])
             rep = pd.read_json(_io(attrs["allobranch_report"]), orient="split")
-            repeats = (pd.read_json(_io(attrs["allobranch_repeats"]), orient="split")
+            repeats = (_read_exact_csv(attrs["allobranch_repeats"])
                        if "allobranch_repeats" in attrs else None)
         except (KeyError, OSError, ValueError) as exc:
             raise AllobranchError(f"{path}: not a saved allobranch fit ({exc}) -> re-run 'allobranch fit'") from exc
@@ -241,6 +239,21 @@ class FitResult:
         return cls(idata=idata, table=table, spec=ModelSpec.from_dict(prov["spec"]),
                    settings=json.loads(attrs.get("allobranch_settings", "{}")),
                    notes=json.loads(attrs.get("allobranch_notes", "[]")))
+
+
+#: Text columns of saved tables.
+_LABELS = ("taxon", "specimen", "junction", "segment")
+
+
+def _exact_csv(df: pd.DataFrame) -> str:
+    """CSV text that round-trips every float exactly (17 significant digits)."""
+    return df.to_csv(index=False, float_format="%.17g")
+
+
+def _read_exact_csv(text: str) -> pd.DataFrame:
+    """Inverse of :func:`_exact_csv` (labels stay text)."""
+    head = text.split("\n", 1)[0].split(",")
+    return pd.read_csv(_io(text), dtype={c: str for c in _LABELS if c in head}, keep_default_na=True)
 
 
 def _io(text: str):

@@ -6,13 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 
-#: Caution printed in every report.
-CAUTION = (
-    "allobranch is a research tool. Exponents estimated from casts, images or reconstructions are not "
-    "clinical measurements and must not guide diagnosis or treatment; leave such decisions to qualified "
-    "professionals. Results also depend on where along each segment radii were measured and on the "
-    "quality of segmentation."
-)
+from allobranch.reporting.html import CAUTION
 
 #: Columns shown (and their number format) in published tables.
 _ROUND = {"mean": 3, "sd": 3, "hdi_low": 3, "hdi_high": 3, "r_hat": 3, "ess_bulk": 0, "ess_tail": 0}
