@@ -14,8 +14,8 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
     """Sampler and model options shared by ``fit`` and ``demo``."""
     g = parser.add_argument_group("sampling")
     g.add_argument("--seed", type=int, default=0, help="random seed (same seed, same tables; default 0)")
-    g.add_argument("--draws", type=int, default=1000, help="posterior draws per chain (default 1000)")
-    g.add_argument("--tune", type=int, default=1000, help="tuning steps per chain (default 1000)")
+    g.add_argument("--draws", type=int, default=1000, help="posterior draws per chain (default 1000; demo 500)")
+    g.add_argument("--tune", type=int, default=1000, help="tuning steps per chain (default 1000; demo 500)")
     g.add_argument("--chains", type=int, default=4, help="number of chains (default 4)")
     g.add_argument("--sampler", choices=("nutpie", "pymc"), default="nutpie",
                    help="NUTS implementation (default nutpie; falls back to pymc if nutpie fails)")
