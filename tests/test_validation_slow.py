@@ -1,0 +1,84 @@
+"""Validation by simulation: simulation-based calibration (reduced and full) and recovery of taxon exponents.
+
+All tests here sample many models and are marked slow (run with ``--runslow``). They use the calibration
+loop of ``benchmarks/calibration.py`` (Talts et al. 2018, arXiv:1804.06788) so test and benchmark share one
+implementation. Coverage thresholds are loose binomial bounds (scipy.stats.binomtest), not rules of thumb.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import stats
+
+import allobranch as ab
+
+BENCHMARKS = Path(__file__).resolve().parents[1] / "benchmarks"
+
+
+def _load(name: str):
+    """Import a benchmark script as a module."""
+    spec = importlib.util.spec_from_file_location(f"_bench_{name}", BENCHMARKS / f"{name}.py")
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+@pytest.fixture(scope="module")
+def calibration():
+    return _load("calibration")
+
+
+@pytest.mark.slow
+def test_reduced_calibration_runs_and_covers(calibration) -> None:
+    # Eight datasets from the prior: the pipeline runs end to end (including the check that swapping data
+    # into the compiled model reproduces allobranch.fit exactly), ranks lie in range, and at least 5 of
+    # the 8 population-exponent intervals cover the truth (P(X <= 4) = 0.005 for X ~ Binomial(8, 0.9),
+    # scipy.stats.binom), and at least 18 of the 24 taxon intervals (P(X <= 17) < 0.01).
+    frame = calibration.run(8, base_seed=9100, verify=True, log=lambda m: None)
+    assert set(frame["quantity"]) == set(calibration.QUANTITIES)
+    assert frame["dataset"].nunique() == 8
+    assert ((frame["rank"] >= 0) & (frame["rank"] <= frame["n_draws"])).all()
+    mu = frame[frame["quantity"] == "mu"]
+    taxa = frame[frame["quantity"] == "a_taxon"]
+    assert stats.binom.cdf(4, 8, 0.9) < 0.01
+    assert int(mu["covered"].sum()) >= 5
+    assert stats.binom.cdf(17, 24, 0.9) < 0.01
+    assert int(taxa["covered"].sum()) >= 18
+
+
+@pytest.mark.slow
+def test_full_calibration_coverage(calibration) -> None:
+    # 100 datasets: coverage of the 90 % HDI of every exponent (mu and the taxa) must be consistent with
+    # 0.90; the exact binomial test (scipy.stats.binomtest) at the 0.001 level, and within 85-95 %.
+    frame = calibration.run(100, base_seed=7000, verify=True, log=lambda m: None)
+    table = calibration.coverage_table(frame).set_index("quantity")
+    row = table.loc["exponents (mu + a_taxon)"]
+    assert 0.85 <= row["coverage"] <= 0.95, row
+    assert row["binom_p"] > 0.001, row
+    for q in ("mu", "a_taxon"):
+        assert table.loc[q, "rank_chi2_p"] > 0.001, table.loc[q]
+
+
+@pytest.mark.slow
+def test_model_beats_naive_estimate_at_high_error() -> None:
+    # At 15 % relative error the naive median of per-junction roots is badly biased (errors in the
+    # daughters and the selective loss of rootless junctions); the model's taxon exponents must be closer
+    # to the truth on average and their 90 % HDIs must cover it.
+    truth = {"A": 2.0, "B": 3.0}
+    sim = ab.simulate_junctions(taxa=list(truth), taxon_exponents=truth, specimens_per_taxon=3,
+                                junctions_per_specimen=40, rel_error=0.15, tau_specimen=0.05, seed=31)
+    table = ab.read_junctions(sim.frame, sim.mapping)
+    result = ab.fit(table, seed=3, draws=600, tune=600, chains=2, progress=False)
+    exps = result.exponents().set_index("group")
+    naive = ab.naive_summary(ab.junction_geometry(table), by=("taxon",)).set_index("taxon")
+    model_err = np.array([exps.loc[t, "mean"] - a for t, a in truth.items()])
+    naive_err = np.array([naive.loc[t, "median"] - a for t, a in truth.items()])
+    assert np.abs(model_err).mean() < np.abs(naive_err).mean()
+    for t, a in truth.items():
+        assert exps.loc[t, "hdi_low"] <= a <= exps.loc[t, "hdi_high"]
