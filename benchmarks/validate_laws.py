@@ -3,7 +3,8 @@
 Scenarios (each must hold for the verdict rule to be trusted):
 
 ``three_laws``
-    three taxa whose exponents follow three different laws (3/2, 2, 3), 90 junctions each (3 specimens) at 5 % error:
+    three taxa whose exponents follow three different laws (3/2, 2, 3), with 60, 90 and 180 junctions
+    (3 specimens each; a junction says less about a larger exponent) at 5 % error:
     every taxon's verdict must be its true law.
 ``between_laws``
     one taxon with exponent 2.5 (none of the classic laws), 90 junctions at 5 % error: no classic law may be
@@ -51,8 +52,11 @@ def _compare(sim: ab.model.simulate.SimulatedData, seed: int, **sampler) -> ab.c
 def three_laws(seed: int, **sampler) -> tuple[ab.comparison.LawComparison, bool, str]:
     """Three taxa following Rall (3/2), da Vinci (2) and Murray (3); each must get its own law."""
     truth = {"T_rall": 1.5, "T_da_vinci": 2.0, "T_murray": 3.0}
-    sim = ab.simulate_junctions(taxa=list(truth), specimens_per_taxon=3, junctions_per_specimen=30,
-                                taxon_exponents=truth, tau_specimen=0.05, rel_error=0.05, seed=seed)
+    # A junction says less about a larger exponent (for a symmetric split the daughter/parent ratio
+    # 2^(-1/a) changes by ratio * ln 2 / a^2 per unit of a: exact algebra), so the cube-law taxon gets
+    # more junctions: 20, 30 and 60 per specimen.
+    sim = ab.simulate_junctions(taxa=list(truth), specimens_per_taxon=3,
+                                junctions_per_specimen=[20] * 3 + [30] * 3 + [60] * 3, taxon_exponents=truth, tau_specimen=0.05, rel_error=0.05, seed=seed)
     result = _compare(sim, seed, **sampler)
     got = dict(zip(result.by_taxon["taxon"], result.by_taxon["verdict"]))
     expected = {taxon: taxon.removeprefix("T_") for taxon in truth}
