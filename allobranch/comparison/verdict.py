@@ -11,7 +11,8 @@ Rule (applied to each scope -- ``overall`` and every taxon -- separately):
      than 4 *and* more than 2 standard errors of the difference.
 
 * **none** is declared when *every* law has ``P(ROPE) <= 0.05`` *and* a Bayes factor ``<= 1/10`` under every
-  prior: strong evidence against each law, not merely the absence of evidence for one.
+  prior: strong evidence against each law, not merely the absence of evidence for one. "none" speaks only
+  of the laws compared; the free model's estimate says where the exponent lies.
 * **undecided** otherwise -- the usual outcome with few or noisy junctions, and the right one.
 
 Thresholds. A Bayes factor of 3 is where "substantial" (Jeffreys 1961) or "positive" (Kass & Raftery 1995,
@@ -55,7 +56,7 @@ RULE = (
     f"A law is declared when P(ROPE) >= {P_ROPE_DECLARE:g}, its Bayes factor against the free model is >= "
     f"{BF_DECLARE:g} under the default, narrower and wider priors, and LOO does not clearly prefer another "
     f"hypothesis (ELPD loss > {LOO_CLEAR_ELPD:g} and > {LOO_CLEAR_SE:g} SE), for exactly one law. 'none' "
-    f"needs every law at P(ROPE) <= {P_ROPE_REJECT:g} and Bayes factor <= 1/{1 / BF_REJECT:g} under every "
+    f"(of the laws compared) needs every law at P(ROPE) <= {P_ROPE_REJECT:g} and Bayes factor <= 1/{1 / BF_REJECT:g} under every "
     "prior. Anything else is 'undecided'. Bayes-factor thresholds follow the Jeffreys / Kass-Raftery scales "
     "(common practice)."
 )
