@@ -55,6 +55,7 @@ import allobranch as ab
 from allobranch.model.asymmetry import estimate_sigma_asym
 from allobranch.model.build import BuiltModel, build_model, data_arrays
 from allobranch.model.data import model_data
+from allobranch.model.simulate import SimulatedData
 
 RESULTS = Path(__file__).resolve().parent / "results"
 #: Priors used both to draw the truth and to fit (see the module docstring).
@@ -79,7 +80,7 @@ def draw_truth(rng: np.random.Generator, priors: ab.Priors = SBC_PRIORS) -> dict
     }
 
 
-def simulate(index: int, base_seed: int) -> tuple[ab.simulate_junctions, dict[str, float]]:
+def simulate(index: int, base_seed: int) -> tuple[SimulatedData, dict[str, float]]:
     """Dataset ``index``: hyper-parameters from the prior, then a table drawn from them."""
     seed = base_seed + index
     hyper = draw_truth(np.random.default_rng([seed, 1]))

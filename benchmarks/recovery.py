@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 
 import allobranch as ab
+from allobranch.model.simulate import SimulatedData
 
 RESULTS = Path(__file__).resolve().parent / "results"
 #: True taxon exponents of every recovery table.
@@ -59,7 +60,7 @@ SETTINGS: dict[str, tuple[str, dict]] = {
                                                                        "parent_range": (0.3, 2.0)}),
 }
 REPLICATES = 3
-SAMPLER = {"draws": 500, "tune": 500, "chains": 2}
+SAMPLER = {"draws": 400, "tune": 400, "chains": 2}
 HDI_PROB = 0.9
 #: Small tables on which the fast form is compared with the exact latent form.
 LATENT_CASES: dict[str, tuple[str, dict]] = {
@@ -70,10 +71,10 @@ LATENT_CASES: dict[str, tuple[str, dict]] = {
 }
 LATENT_BASE = {"taxa": ["A", "B"], "taxon_exponents": {"A": 2.2, "B": 3.0}, "specimens_per_taxon": 2,
                "junctions_per_specimen": 12, "tau_specimen": 0.1, "sigma_dev": 0.03}
-LATENT_SAMPLER = {"draws": 1500, "tune": 1500, "chains": 2}
+LATENT_SAMPLER = {"draws": 1000, "tune": 1000, "chains": 2}
 
 
-def simulate(overrides: dict, seed: int) -> ab.simulate_junctions:
+def simulate(overrides: dict, seed: int) -> SimulatedData:
     """One recovery table."""
     return ab.simulate_junctions(**{**BASE, **overrides, "seed": seed})
 

@@ -19,13 +19,15 @@ import pytest
 import allobranch as ab
 from allobranch.cli import main
 from allobranch.inference import fit as fit_module
+from allobranch.model.simulate import SimulatedData
 from allobranch.reporting.fit_outputs import FIT_FILES
 
 #: Short sampler settings for the default suite.
 SHORT = {"draws": 200, "tune": 200, "chains": 2, "progress": False}
 
 
-def _simulated(seed: int = 3, **kwargs) -> ab.simulate_junctions:
+def _simulated(seed: int = 3, **kwargs) -> SimulatedData:
+    """A small simulated table (3 taxa x 2 specimens x 15 junctions unless overridden)."""
     opts = {"taxa": 3, "specimens_per_taxon": 2, "junctions_per_specimen": 15, "seed": seed}
     return ab.simulate_junctions(**{**opts, **kwargs})
 
