@@ -7,6 +7,8 @@ in Stan/PyMC workflows, no single source).
 
 from __future__ import annotations
 
+import warnings
+
 import arviz as az
 import numpy as np
 import pandas as pd
@@ -43,19 +45,25 @@ def diagnostics_table(idata: az.InferenceData, var_names: list[str]) -> pd.DataF
     names = [v for v in var_names if v in post and post[v].std() > 0]
     if not names:
         return pd.DataFrame(columns=["parameter", "r_hat", "ess_bulk", "ess_tail", "ok"])
-    rhat = az.rhat(idata, var_names=names)
-    bulk = az.ess(idata, var_names=names, method="bulk")
-    tail = az.ess(idata, var_names=names, method="tail")
+    with warnings.catch_warnings():  # constant elements (fixed exponents) give 0/0 inside ArviZ
+        warnings.simplefilter("ignore", RuntimeWarning)
+        rhat = az.rhat(idata, var_names=names)
+        bulk = az.ess(idata, var_names=names, method="bulk")
+        tail = az.ess(idata, var_names=names, method="tail")
     rows = []
     for name in names:
         r, b, t = (np.atleast_1d(ds[name].values).ravel() for ds in (rhat, bulk, tail))
+        values = post[name].values.reshape(post.sizes["chain"] * post.sizes["draw"], -1)
+        varies = np.ptp(values, axis=0) > 0
         extra_dims = [d for d in post[name].dims if d not in ("chain", "draw")]
         labels = (
             [name]
             if not extra_dims
             else [f"{name}[{c}]" for c in np.asarray(post[name][extra_dims[0]].values).ravel()]
         )
-        for label, ri, bi, ti in zip(labels, r, b, t):
+        for label, ri, bi, ti, vi in zip(labels, r, b, t, varies):
+            if not vi:  # a fixed value (e.g. a taxon's exponent fixed at a law) has nothing to check
+                continue
             rows.append({"parameter": label, "r_hat": float(ri), "ess_bulk": float(bi), "ess_tail": float(ti)})
     out = pd.DataFrame(rows)
     out["ok"] = (out["r_hat"] <= RHAT_MAX) & (out["ess_bulk"] >= ESS_MIN) & (out["ess_tail"] >= ESS_MIN)
