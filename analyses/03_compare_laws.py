@@ -24,8 +24,8 @@ Run from the repository root (after step 2, or it refits first):
     python analyses/03_compare_laws.py --fit other/fit.nc --out DIR --draws 1000 --tune 1000
 
 Runtime: 15 extra fits (3 laws x (overall + 4 species)). With step 2's sampler settings (4 chains x 1500
-draws, 1000 tuning steps) that is about 15-20 minutes on a 2-core machine; --draws/--tune lower it, at
-the price of noisier LOO estimates.
+draws, 1000 tuning steps) that is roughly 20 minutes on an idle 2-core machine (53 minutes when other jobs
+share the cores); --draws/--tune lower it, at the price of noisier LOO estimates.
 """
 
 from __future__ import annotations
