@@ -127,15 +127,18 @@ def test_automatic_levels_follow_the_design() -> None:
     assert _names(build_model(one_taxon))["free"] == {"mu", "sigma_dev"}
 
 
-def test_fixed_exponent_fixes_the_population_and_taxa(data) -> None:
+def test_fixed_exponent_fixes_every_junction(data) -> None:
+    # A point law for the whole data set: no exponent is free at any level.
     built = build_model(data, ModelSpec(fixed_exponent=3.0, parametrization="noncentered"))
     names = _names(built)
-    assert names["free"] == {"tau_specimen", "z_specimen", "sigma_dev"}
+    assert names["free"] == {"sigma_dev"}
     assert "mu" in names["deterministic"]
-    fn = built.model.compile_fn([built.model["mu"], built.model["a_taxon"]], inputs=[], on_unused_input="ignore")
-    mu, a_taxon = fn({})
+    m = built.model
+    fn = m.compile_fn([m["mu"], m["a_taxon"], m["a_specimen"]], inputs=[], on_unused_input="ignore")
+    mu, a_taxon, a_specimen = fn({})
     assert float(mu) == 3.0
     np.testing.assert_array_equal(a_taxon, 3.0)
+    np.testing.assert_array_equal(a_specimen, 3.0)
 
 
 def test_fixed_taxa_fix_only_the_named_taxa(data) -> None:
@@ -149,6 +152,13 @@ def test_fixed_taxa_fix_only_the_named_taxa(data) -> None:
     assert a_taxon[1] == 2.0
     tau = np.exp(point["tau_taxon_log__"])
     np.testing.assert_allclose(a_taxon[[0, 2]], point["mu"] + tau * np.array([1.0, 0.5]))  # exact algebra
+    # the fixed taxon's specimens are pinned to the law as well; the others vary
+    (a_spec_values,) = model.replace_rvs_by_values([model["a_specimen"]])
+    point["z_specimen"] = np.linspace(-1.0, 1.0, len(point["z_specimen"]))
+    a_spec = model.compile_fn(a_spec_values, inputs=model.value_vars, on_unused_input="ignore")(point)
+    in_t2 = data.specimen_taxon_idx == 1
+    np.testing.assert_array_equal(a_spec[in_t2], 2.0)
+    assert np.all(a_spec[~in_t2] != 2.0)
 
 
 def test_fixed_taxa_must_name_known_taxa(data) -> None:
@@ -200,7 +210,7 @@ def test_auto_parametrization_centres_well_informed_groups() -> None:
     # the centring threshold at both levels.
     d = model_data(_table(rel_error=0.01))
     names = _names(build_model(d))
-    assert {"a_taxon_free", "a_specimen"} <= names["free"]
+    assert {"a_taxon_free", "a_specimen_free"} <= names["free"]
     assert not {"z_taxon", "z_specimen"} & names["free"]
     nc = _names(build_model(d, ModelSpec(parametrization="noncentered")))
     assert {"z_taxon", "z_specimen"} <= nc["free"]

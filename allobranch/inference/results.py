@@ -96,7 +96,8 @@ class FitResult:
             spec_taxon = self.table.specimens.set_index("specimen")["taxon"].astype(str)
             for i, s in enumerate(post["specimen"].values):
                 rows.append({"level": "specimen", "group": str(s), "taxon": spec_taxon[str(s)],
-                             **_summ(post["a_specimen"].values[:, :, i], hdi_prob), "fixed": False})
+                             **_summ(post["a_specimen"].values[:, :, i], hdi_prob),
+                             "fixed": spec_taxon[str(s)] in self.spec.fixed_taxa})
         out = pd.DataFrame(rows, columns=list(EXPONENT_COLUMNS))
         out.attrs["hdi_prob"] = hdi_prob
         return out

@@ -116,8 +116,8 @@ def resolve_levels(data: ModelData, spec: ModelSpec) -> tuple[bool, bool]:
     specimen_level = (
         spec.specimen_level if spec.specimen_level is not None else len(data.specimens) > len(data.taxa)
     )
-    if spec.fixed_exponent is not None:
-        taxon_level = False
+    if spec.fixed_exponent is not None:  # a point law for every junction: no exponent varies
+        taxon_level = specimen_level = False
     return bool(taxon_level), bool(specimen_level)
 
 
@@ -172,10 +172,16 @@ def _exponents(data: ModelData, spec: ModelSpec) -> pt.TensorVariable:
     if specimen_level:
         tau_s = pm.HalfNormal("tau_specimen", p.tau_specimen)
         if _centered(data, spec, data.specimen_idx, len(data.specimens)):
-            a_spec = pm.Normal("a_specimen", parent_a, tau_s, dims="specimen")
+            a_free = pm.Normal("a_specimen_free", parent_a, tau_s, dims="specimen")
         else:
             z_s = pm.Normal("z_specimen", 0.0, 1.0, dims="specimen")
-            a_spec = pm.Deterministic("a_specimen", parent_a + tau_s * z_s, dims="specimen")
+            a_free = parent_a + tau_s * z_s
+        if spec.fixed_taxa:
+            # a point law for a taxon holds for every junction of that taxon, so its specimens are pinned
+            # too (their unused free values have no likelihood and do not affect the rest)
+            pinned = np.array([data.taxa[t] in spec.fixed_taxa for t in data.specimen_taxon_idx])
+            a_free = pt.where(pinned, parent_a, a_free)
+        a_spec = pm.Deterministic("a_specimen", a_free, dims="specimen")
     else:
         a_spec = pm.Deterministic("a_specimen", parent_a, dims="specimen")
     return a_spec

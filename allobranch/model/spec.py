@@ -92,10 +92,11 @@ class ModelSpec:
         from per-junction work); ``sampled`` gives it a prior and samples it (always so when the
         measurement error itself is estimated).
     fixed_exponent : float or None
-        Fix the exponent of every taxon to this value (a point law for the whole data set); the specimen
-        level, if any, still varies around it.
+        Fix the exponent of every junction to this value (a point law for the whole data set: no taxon
+        or specimen level).
     fixed_taxa : mapping of str to float
-        Fix the exponent of the named taxa only; the rest of the model is unchanged.
+        Fix the exponent of every junction of the named taxa (their taxon and specimen exponents); the rest
+        of the model is unchanged.
     priors : Priors
         Prior scales.
     """
