@@ -32,6 +32,18 @@ def default_laws() -> dict[str, float]:
     return {f"{SHORT_NAMES.get(law.label, law.label)} (a={law.value:g})": law.value for law in CLASSIC_LAWS}
 
 
+def display_names(laws_table: pd.DataFrame) -> pd.DataFrame:
+    """The laws table with figure labels (``"Murray (a=3)"``, ``"turbulent (a=2.333)"``; ``free`` kept)."""
+    def label(row) -> str:
+        if not pd.notna(row["value"]):
+            return str(row["law"])
+        return f"{SHORT_NAMES.get(str(row['law']), str(row['law']))} (a={float(row['value']):.4g})"
+
+    out = laws_table.copy()
+    out["law"] = [label(row) for _, row in out.iterrows()]
+    return out
+
+
 def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str = "single") -> dict:
     """Draw every figure for ``result`` (a FitResult); returns name -> matplotlib Figure.
 
@@ -44,6 +56,8 @@ def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str =
     width : {"single", "double"}
         Journal column width.
     """
+    if laws_table is not None:
+        laws_table = display_names(laws_table)
     laws = laws_table if laws_table is not None else default_laws()
     exps = result.exponents()
     figs = {}

@@ -100,7 +100,8 @@ class SavedComparison:
         return cls(evidence=evidence, by_taxon=by_taxon, verdicts=verdicts, warnings=warnings)
 
 
-def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "single") -> Path:
+def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "single",
+                 title: str = "Branching-exponent analysis") -> Path:
     """Write the HTML report of ``result`` (a FitResult) to ``path``.
 
     Parameters
@@ -112,6 +113,8 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
         The law comparison; when given, its tables, verdicts and figure are included.
     width : {"single", "double"}
         Figure width.
+    title : str
+        Report title (say here when the data are simulated).
     """
     laws_long = laws.laws_table() if laws is not None else None
     figs = make_figures(result, laws_long, width=width)
@@ -135,6 +138,7 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
     try:
         path = write_html_report(
             path,
+            title=title,
             warnings=warnings,
             data_summary=data_summary,
             validation_flags=t.report.to_frame(),
