@@ -40,8 +40,9 @@ def run(args: argparse.Namespace) -> int:
     figures = write_figures(result, out / "figures", laws_table=laws.laws_table())
     print(f"{len(figures)} figure files in {out / 'figures'}/")
     prepare_output_dir(out, [REPORT_FILE], force=args.force)
-    print(f"Report: {build_report(result, out / REPORT_FILE, laws=laws,
-                                   title="Branching-exponent analysis of SIMULATED demo data (invented species)")}")
+    report = build_report(result, out / REPORT_FILE, laws=laws,
+                          title="Branching-exponent analysis of SIMULATED demo data (invented species)")
+    print(f"Report: {report}")
     return 0
 
 
