@@ -19,8 +19,7 @@ import pytensor.tensor as pt
 from pymc.initial_point import make_initial_point_fn
 from pymc.pytensorf import compile as compile_pymc
 
-#: Allowed sampler names.
-SAMPLERS: tuple[str, ...] = ("nutpie", "pymc")
+from allobranch.model.spec import SAMPLERS  # noqa: F401,E402 - the one list of sampler names
 
 
 def _flat_layout(model: pm.Model) -> tuple[list, list[str], list[slice], list[tuple[int, ...]], int]:

@@ -12,12 +12,13 @@ import arviz as az
 import numpy as np
 import xarray as xr
 
-from allobranch.inference.backends import SAMPLERS, sample_nutpie, sample_pymc
+from allobranch.inference import sampling
 from allobranch.inference.results import FitResult
 from allobranch.intake.table import JunctionTable
-from allobranch.model.build import BuiltModel, build_model
+from allobranch.model.asymmetry import estimate_sigma_asym
 from allobranch.model.data import model_data
-from allobranch.model.spec import ModelSpec
+from allobranch.model.spec import SAMPLER_DEFAULTS, SAMPLERS, ModelSpec
+from allobranch.model.structure import BuiltModel, data_arrays, group_layout, model_form
 
 #: Posterior-predictive draws kept per chain (enough for checks, small on disk).
 PPC_DRAWS_PER_CHAIN = 100
@@ -100,13 +101,15 @@ def fit(
     table: JunctionTable,
     spec: ModelSpec | None = None,
     *,
-    draws: int = 1000,
-    tune: int = 1000,
-    chains: int = 4,
+    draws: int = SAMPLER_DEFAULTS["draws"],
+    tune: int = SAMPLER_DEFAULTS["tune"],
+    chains: int = SAMPLER_DEFAULTS["chains"],
     seed: int = 0,
-    sampler: str = "nutpie",
-    target_accept: float = 0.9,
+    sampler: str = SAMPLER_DEFAULTS["sampler"],
+    target_accept: float = SAMPLER_DEFAULTS["target_accept"],
+    escalate: bool = True,
     progress: bool = True,
+    cores: int | None = None,
 ) -> FitResult:
     """Fit the hierarchical errors-in-variables model.
 
@@ -115,7 +118,7 @@ def fit(
     table : JunctionTable
         Validated junctions (:func:`allobranch.read_junctions`).
     spec : ModelSpec, optional
-        What to fit (levels, deviation, fixed exponents, priors); defaults to ``ModelSpec()``.
+        What to fit (levels, deviation, fixed exponents, parametrisation, priors); defaults to ``ModelSpec()``.
     draws, tune, chains : int
         Posterior draws and tuning steps per chain, number of chains.
     seed : int
@@ -123,9 +126,16 @@ def fit(
     sampler : {"nutpie", "pymc"}
         NUTS implementation; if nutpie fails to start, PyMC's NUTS is used and the result says so.
     target_accept : float
-        Target acceptance rate of NUTS (higher is slower but more robust).
+        Target acceptance rate of NUTS for the first attempt (higher is slower but more robust).
+    escalate : bool
+        When the first attempt has divergent transitions or an R-hat above the threshold, refit
+        automatically with a higher target acceptance and another parametrisation
+        (:func:`allobranch.inference.sampling.escalation_plan`). Every attempt is recorded in
+        ``result.settings["attempts"]``; the first clean one is kept.
     progress : bool
         Show a progress display.
+    cores : int, optional
+        Chains run at once (default: as many as there are processor cores, at most ``chains``).
 
     Returns
     -------
@@ -140,31 +150,53 @@ def fit(
     """
     if sampler not in SAMPLERS:
         raise ValueError(f"sampler must be one of {', '.join(SAMPLERS)}; got {sampler!r}")
+    for name, value in (("draws", draws), ("tune", tune), ("chains", chains)):
+        if int(value) < 1:
+            raise ValueError(f"{name} must be a positive whole number, got {value!r}")
     spec = spec or ModelSpec()
     data = model_data(table)
-    built = build_model(data, spec)
-    kwargs = dict(draws=draws, tune=tune, chains=chains, seed=seed, progress=progress,
-                  target_accept=target_accept)
-    used = sampler
-    notes: list[str] = []
+    form = model_form(data, spec)
+    sigma_asym = estimate_sigma_asym(data, float(data.rel_error or 0.0)) if form == "fast" else None
+    arrays = data_arrays(data, form, sigma_asym)
     started = datetime.now(timezone.utc)
-    if sampler == "nutpie":
-        try:
-            idata = sample_nutpie(built.model, **kwargs)
-        except Exception as exc:  # noqa: BLE001 - any failure of the fast path falls back, loudly
-            warnings.warn(f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2)
-            notes.append(f"nutpie failed ({type(exc).__name__}); sampled with PyMC's NUTS instead")
-            used = "pymc"
-            idata = sample_pymc(built.model, **kwargs)
-    else:
-        idata = sample_pymc(built.model, **kwargs)
+    layout = group_layout(data, spec, arrays if form == "fast" else None)
+    notes: list[str] = []
+    attempts: list[dict] = []
+    kept = None
+    for k, plan in enumerate(sampling.escalation_plan(spec, layout, target_accept, escalate)):
+        (idata, used, attempt_notes), seconds = sampling.timed(
+            sampling.sample_once, data, spec, form, layout, arrays, sigma_asym, plan=plan, draws=draws,
+            tune=tune, chains=chains, seed=seed + 7919 * k, sampler=sampler, progress=progress, cores=cores)
+        notes += [n for n in attempt_notes if n not in notes]
+        record = sampling.attempt_record(idata, plan, layout, seconds)
+        record["sampler"] = used
+        attempts.append(record)
+        if kept is None or sampling.badness(record) < sampling.badness(attempts[kept[0]]):
+            kept = (len(attempts) - 1, idata, plan, used)
+        if sampling.clean(record):
+            break
+    index, idata, plan, used = kept
+    for i, record in enumerate(attempts):
+        record["kept"] = i == index
+    if len(attempts) > 1:
+        first = attempts[0]
+        notes.append(
+            f"the first sampling attempt was not clean ({first['divergences']} divergent transitions, max R-hat "
+            f"{first['max_r_hat']:.3f}); refitted automatically {len(attempts) - 1} time(s) and kept attempt "
+            f"{index + 1} ({plan.parametrization}, target_accept {plan.target_accept})"
+            + ("" if sampling.clean(attempts[index]) else "; no attempt was clean")
+        )
     seconds = (datetime.now(timezone.utc) - started).total_seconds()
+    built = BuiltModel(model=None, data=data, spec=spec, form=form, sigma_asym=sigma_asym, arrays=arrays,
+                       layout=sampling.attempt_layout(layout, plan))
     add_pointwise(idata, built, seed)
     settings = {
         "draws": draws, "tune": tune, "chains": chains, "seed": seed, "sampler": used,
-        "target_accept": target_accept, "seconds": round(seconds, 2), "form": built.form,
+        "target_accept": plan.target_accept, "seconds": round(seconds, 2), "form": built.form,
         "error_mode": data.error_mode,
-        "sigma_asym_empirical": None if built.sigma_asym is None else dict(zip(data.taxa, map(float, built.sigma_asym))),
+        "parametrization": sampling.attempt_layout(layout, plan).describe(),
+        "attempts": attempts,
+        "sigma_asym_empirical": None if sigma_asym is None else dict(zip(data.taxa, map(float, sigma_asym))),
     }
     provenance = {
         "created": started.isoformat(), "input_sha256": table.digest(), "source": table.source,

@@ -12,13 +12,13 @@ import arviz as az
 import numpy as np
 import pandas as pd
 
-from allobranch.errors import AllobranchError
+from allobranch.errors import InputError, Problem
 from allobranch.geometry import junction_geometry, naive_summary
 from allobranch.inference import diagnostics as dg
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.table import JunctionTable, ValidationReport
 from allobranch.intake.units import from_internal_radius
-from allobranch.model.build import HYPER_PARAMETERS
+from allobranch.model.structure import HYPER_PARAMETERS
 from allobranch.model.spec import ModelSpec
 
 #: Default probability of the highest-density intervals.
@@ -217,22 +217,45 @@ class FitResult:
 
     @classmethod
     def load(cls, path: str | os.PathLike) -> "FitResult":
-        """Read a result written by :meth:`save`."""
-        from allobranch.errors import Problem
+        """Read a result written by :meth:`save`.
 
+        Parameters
+        ----------
+        path : str or path-like
+            The ``fit.nc`` file.
+
+        Returns
+        -------
+        FitResult
+            The fit, its junction table, validation report, spec, settings and notes.
+
+        Raises
+        ------
+        InputError
+            If there is no file at ``path``, or it is not a saved allobranch fit (another NetCDF file, a
+            damaged or truncated file, or no NetCDF at all).
+        """
         path = Path(path)
         if not path.is_file():
-            raise AllobranchError(f"{path}: no saved fit here -> give the fit.nc written by 'allobranch fit'")
+            raise _load_error(path, "no saved fit here", "give the fit.nc written by 'allobranch fit'",
+                              "file_not_found")
         try:
             idata = az.from_netcdf(path)
-            attrs = idata.attrs
-            prov = json.loads(attrs["allobranch_provenance"])
-            data = _read_exact_csv(attrs["allobranch_table"])
-            rep = pd.read_json(_io(attrs["allobranch_report"]), orient="split")
-            repeats = (_read_exact_csv(attrs["allobranch_repeats"])
-                       if "allobranch_repeats" in attrs else None)
-        except (KeyError, OSError, ValueError) as exc:
-            raise AllobranchError(f"{path}: not a saved allobranch fit ({exc}) -> re-run 'allobranch fit'") from exc
+        except Exception as exc:  # h5py, h5netcdf and xarray raise many unrelated types for foreign or damaged files
+            raise _not_a_fit(path, exc) from None
+        try:
+            return cls._from_saved(idata)
+        except (KeyError, TypeError, ValueError, AttributeError) as exc:
+            raise _not_a_fit(path, exc) from None
+
+    @classmethod
+    def _from_saved(cls, idata: az.InferenceData) -> "FitResult":
+        """Rebuild a result from the attributes :meth:`save` wrote (KeyError etc. when they are not there)."""
+        attrs = idata.attrs
+        prov = json.loads(attrs["allobranch_provenance"])
+        data = _read_exact_csv(attrs["allobranch_table"])
+        rep = pd.read_json(_io(attrs["allobranch_report"]), orient="split")
+        repeats = _read_exact_csv(attrs["allobranch_repeats"]) if "allobranch_repeats" in attrs else None
         problems = [Problem(**{k: (None if pd.isna(v) else v) for k, v in r.items()}) for r in rep.to_dict("records")]
         mapping = ColumnMapping(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in prov["mapping"].items()})
         table = JunctionTable(data=data, mapping=mapping, report=ValidationReport(problems=problems),
@@ -240,6 +263,19 @@ class FitResult:
         return cls(idata=idata, table=table, spec=ModelSpec.from_dict(prov["spec"]),
                    settings=json.loads(attrs.get("allobranch_settings", "{}")),
                    notes=json.loads(attrs.get("allobranch_notes", "[]")))
+
+
+def _load_error(path: Path, message: str, hint: str, code: str) -> InputError:
+    return InputError([Problem("fatal", str(path), None, None, message, hint, code)])
+
+
+def _not_a_fit(path: Path, exc: Exception) -> InputError:
+    """The error for a file that :meth:`FitResult.load` cannot read as a saved fit; names the cause briefly."""
+    cause = str(exc).splitlines()[0][:160] if str(exc) else ""
+    reason = f"{type(exc).__name__}: {cause}" if cause else type(exc).__name__
+    return _load_error(path, f"not a saved allobranch fit or damaged ({reason})",
+                       "refit with 'allobranch fit' (or allobranch.fit in Python), or give the fit.nc that it wrote",
+                       "not_a_fit")
 
 
 #: Text columns of saved tables.

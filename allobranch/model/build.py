@@ -21,166 +21,53 @@ textbook form used to validate the fast one.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-
 import numpy as np
 import pymc as pm
 import pytensor.tensor as pt
-from scipy.special import gammaln
 
 from allobranch.model import kernel
 from allobranch.model.asymmetry import estimate_sigma_asym
 from allobranch.model.data import ModelData
 from allobranch.model.ops import JunctionLoglik
-from allobranch.model.spec import CENTERED_ABOVE, ModelSpec
-
-#: Smallest exponent used inside the law (keeps prior draws with a <= 0 finite; far from any posterior).
-A_FLOOR = 0.05
-#: Stand-in for log(0) in the log-sum-exp over absent daughters (latent form).
-NEG_LARGE = -1e6
-#: Hyper-parameters (besides exponents) that diagnostics always report when present.
-HYPER_PARAMETERS: tuple[str, ...] = (
-    "mu", "tau_taxon", "tau_specimen", "sigma_dev", "sigma_meas", "sigma_asym", "nu",
+from allobranch.model.spec import ModelSpec
+from allobranch.model.structure import (  # noqa: F401 - re-exported for callers of this module
+    A_FLOOR, HYPER_PARAMETERS, BuiltModel, GroupLayout, data_arrays, group_layout, model_form, resolve_levels,
 )
 
-
-@dataclass
-class BuiltModel:
-    """A PyMC model plus what is needed to evaluate it junction by junction after sampling.
-
-    Attributes
-    ----------
-    model : pymc.Model
-    data : ModelData
-    spec : ModelSpec
-    form : {"fast", "full", "latent"}
-        ``fast``: marginal likelihood with measurement error and asymmetry fixed; ``full``: marginal with
-        them sampled; ``latent``: true daughters as parameters.
-    sigma_asym : ndarray or None
-        Empirical asymmetry scale per taxon (``fast`` form).
-    arrays : dict
-        The ``pm.Data`` arrays by name (see :meth:`data_arrays`).
-    """
-
-    model: pm.Model
-    data: ModelData
-    spec: ModelSpec
-    form: str
-    sigma_asym: np.ndarray | None = None
-    arrays: dict = field(default_factory=dict)
-
-    @property
-    def student(self) -> bool:
-        """Whether the parent deviation is Student-t."""
-        return self.spec.deviation == "student_t"
-
-    def pointwise(
-        self, a_spec: np.ndarray, sigma_dev: float, sigma_rel: float | None = None,
-        sigma_asym: float | None = None, nu: float = 30.0,
-    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Per-junction log-likelihood and the log parent's predictive mean and variance for one draw.
-
-        The log-likelihood includes the Student-t normalising terms, so it is the full log density of
-        the junction's readings (parent given daughters, and the daughters' contrasts).
-        """
-        d = self.data
-        a_spec = np.maximum(np.asarray(a_spec, dtype=float), A_FLOOR)
-        if self.form == "fast":
-            A = self.arrays
-            ll, _, mean, var = kernel.fast_terms(
-                A["log_parent_obs"], A["mu_post"], A["g_post"], A["c_post"], A["ybar"],
-                A["daughter_mask"], A["s0sq"], A["ll_daughters"], d.specimen_idx, a_spec,
-                float(sigma_dev), float(nu), self.student,
-            )
-        else:
-            srel = float(d.rel_error or 0.0) if sigma_rel is None else float(sigma_rel)
-            skip = np.ones(5, dtype=bool)
-            ll, _, mean, var = kernel.junction_terms(
-                d.log_parent, d.log_daughters, d.mask.astype(float), d.var_abs_parent,
-                d.var_abs_daughters, d.specimen_idx, a_spec, float(sigma_dev), srel,
-                float(sigma_asym), float(nu), self.student, skip,
-            )
-        if self.student:
-            ll = ll + (gammaln((nu + 1) / 2) - gammaln(nu / 2) - 0.5 * np.log(nu * np.pi))
-        return ll, mean, var
+#: Stand-in for log(0) in the log-sum-exp over absent daughters (latent form).
+NEG_LARGE = -1e6
 
 
-def resolve_levels(data: ModelData, spec: ModelSpec) -> tuple[bool, bool]:
-    """Decide which hierarchy levels are in the model.
-
-    Returns
-    -------
-    (taxon_level, specimen_level) : tuple of bool
-    """
-    taxon_level = spec.taxon_level if spec.taxon_level is not None else len(data.taxa) > 1
-    specimen_level = (
-        spec.specimen_level if spec.specimen_level is not None else len(data.specimens) > len(data.taxa)
-    )
-    if spec.fixed_exponent is not None:  # a point law for every junction: no exponent varies
-        taxon_level = specimen_level = False
-    return bool(taxon_level), bool(specimen_level)
+def _partially_centred(name: str, parent, tau, w: np.ndarray, dims: str):
+    """Group exponents ``a = parent + tau^(1-w) (r - w parent)`` with ``r ~ Normal(w parent, tau^w)``
+    (see :mod:`allobranch.model.partial_centering`): ``a ~ Normal(parent, tau)`` whatever ``w``."""
+    r = pm.Normal(name, w * parent, tau**w, dims=dims)
+    return parent + tau ** (1.0 - w) * (r - w * parent)
 
 
-def model_form(data: ModelData, spec: ModelSpec) -> str:
-    """``fast``, ``full`` or ``latent`` (see :class:`BuiltModel`)."""
-    if spec.likelihood == "latent":
-        return "latent"
-    if data.error_mode in ("known", "absolute_only") and spec.asymmetry == "empirical":
-        return "fast"
-    return "full"
-
-
-def _centered(data: ModelData, spec: ModelSpec, group_idx: np.ndarray, n_groups: int) -> bool:
-    """Whether a hierarchy level is centred: by the spec, or (``auto``) when its median group holds more
-    than :data:`CENTERED_ABOVE` junctions' worth of information at 5 % error (junctions scaled by
-    ``(0.05 / relative error)^2``; the data then dominate each group)."""
-    if spec.parametrization == "centered":
-        return True
-    if spec.parametrization == "noncentered":
-        return False
-    rel = data.rel_error if data.rel_error else 0.05
-    counts = np.bincount(group_idx, minlength=n_groups)
-    return float(np.median(counts)) * (0.05 / max(rel, 1e-3)) ** 2 > CENTERED_ABOVE
-
-
-def _exponents(data: ModelData, spec: ModelSpec) -> pt.TensorVariable:
+def _exponents(data: ModelData, spec: ModelSpec, layout: GroupLayout) -> pt.TensorVariable:
     """Population, taxon and specimen exponents; returns the specimen exponents."""
     p = spec.priors
-    taxon_level, specimen_level = resolve_levels(data, spec)
     if spec.fixed_exponent is not None:
         mu = pm.Deterministic("mu", pt.as_tensor_variable(float(spec.fixed_exponent)))
     else:
         mu = pm.Normal("mu", p.mu_mean, p.mu_sd)
-    if taxon_level:
+    if layout.taxon_level:
         tau_t = pm.HalfNormal("tau_taxon", p.tau_taxon)
-        if _centered(data, spec, data.taxon_idx, len(data.taxa)) and not spec.fixed_taxa:
-            a_taxon = pm.Normal("a_taxon_free", mu, tau_t, dims="taxon")
-        else:
-            z_t = pm.Normal("z_taxon", 0.0, 1.0, dims="taxon")
-            a_taxon = mu + tau_t * z_t
+        a_taxon = _partially_centred("r_taxon", mu, tau_t, layout.w_taxon, "taxon")
     else:
         a_taxon = pt.ones(len(data.taxa)) * mu
-    if spec.fixed_taxa:
-        unknown = set(spec.fixed_taxa) - set(data.taxa)
-        if unknown:
-            raise ValueError(f"fixed_taxa names unknown taxa {sorted(unknown)}; taxa are {data.taxa}")
-        fixed_mask = np.array([t in spec.fixed_taxa for t in data.taxa])
-        fixed_vals = np.array([spec.fixed_taxa.get(t, 0.0) for t in data.taxa])
-        a_taxon = pt.where(fixed_mask, fixed_vals, a_taxon)
+    if layout.fixed_taxa.any():
+        a_taxon = pt.where(layout.fixed_taxa, layout.fixed_values, a_taxon)
     a_taxon = pm.Deterministic("a_taxon", a_taxon, dims="taxon")
     parent_a = a_taxon[data.specimen_taxon_idx]
-    if specimen_level:
+    if layout.specimen_level:
         tau_s = pm.HalfNormal("tau_specimen", p.tau_specimen)
-        if _centered(data, spec, data.specimen_idx, len(data.specimens)):
-            a_free = pm.Normal("a_specimen_free", parent_a, tau_s, dims="specimen")
-        else:
-            z_s = pm.Normal("z_specimen", 0.0, 1.0, dims="specimen")
-            a_free = parent_a + tau_s * z_s
-        if spec.fixed_taxa:
+        a_free = _partially_centred("r_specimen", parent_a, tau_s, layout.w_specimen, "specimen")
+        if layout.pinned.any():
             # a point law for a taxon holds for every junction of that taxon, so its specimens are pinned
-            # too (their unused free values have no likelihood and do not affect the rest)
-            pinned = np.array([data.taxa[t] in spec.fixed_taxa for t in data.specimen_taxon_idx])
-            a_free = pt.where(pinned, parent_a, a_free)
+            # too (their unused raw values are non-centred, have no likelihood and do not affect the rest)
+            a_free = pt.where(layout.pinned, parent_a, a_free)
         a_spec = pm.Deterministic("a_specimen", a_free, dims="specimen")
     else:
         a_spec = pm.Deterministic("a_specimen", parent_a, dims="specimen")
@@ -209,31 +96,7 @@ def _student_constant(nu, n: int):
     return n * (pt.gammaln((nu + 1) / 2) - pt.gammaln(nu / 2) - 0.5 * pt.log(nu * np.pi))
 
 
-def data_arrays(data: ModelData, form: str, sigma_asym_taxa: np.ndarray | None = None) -> dict:
-    """Arrays held as ``pm.Data`` for a model form (recomputed to swap data without recompiling)."""
-    base = {
-        "log_parent_obs": data.log_parent,
-        "daughter_mask": data.mask.astype(float),
-        "specimen_idx": data.specimen_idx.astype(np.int64),
-    }
-    if form == "fast":
-        srel = float(data.rel_error or 0.0)
-        tau_j = np.asarray(sigma_asym_taxa)[data.taxon_idx] ** 2
-        mu, g, c, ybar, lld = kernel.precompute(
-            data.log_daughters, data.mask, data.var_abs_daughters, srel, tau_j
-        )
-        s0sq = srel**2 + data.var_abs_parent + kernel.S2_FLOOR
-        return {**base, "mu_post": mu, "g_post": g, "c_post": c, "ybar": ybar, "s0sq": s0sq,
-                "ll_daughters": lld}
-    return {
-        **base,
-        "log_daughters_obs": data.log_daughters,
-        "var_abs_parent": data.var_abs_parent,
-        "var_abs_daughters": data.var_abs_daughters,
-    }
-
-
-def build_model(data: ModelData, spec: ModelSpec | None = None) -> BuiltModel:
+def build_model(data: ModelData, spec: ModelSpec | None = None, layout: GroupLayout | None = None) -> BuiltModel:
     """Build the PyMC model for a junction table.
 
     Parameters
@@ -242,12 +105,15 @@ def build_model(data: ModelData, spec: ModelSpec | None = None) -> BuiltModel:
         Arrays from :func:`allobranch.model.data.model_data`.
     spec : ModelSpec, optional
         What to fit; defaults to ``ModelSpec()``.
+    layout : GroupLayout, optional
+        Levels, fixed groups and partial-centring weights (:func:`allobranch.model.structure.group_layout`);
+        computed from ``spec`` (with the pilot when ``parametrization="auto"``) when not given.
 
     Returns
     -------
     BuiltModel
-        Holds the ``pymc.Model``, whose variables are ``mu``, ``tau_taxon``, ``z_taxon``, ``a_taxon``,
-        ``tau_specimen``, ``a_specimen``, ``sigma_dev``, ``sigma_meas`` (when estimated), ``sigma_asym``
+        Holds the ``pymc.Model``, whose variables are ``mu``, ``tau_taxon``, ``r_taxon``, ``a_taxon``,
+        ``tau_specimen``, ``r_specimen``, ``a_specimen``, ``sigma_dev``, ``sigma_meas`` (when estimated), ``sigma_asym``
         (when sampled), ``nu`` (Student-t) and the junction log-likelihood.
     """
     spec = spec or ModelSpec()
@@ -257,9 +123,11 @@ def build_model(data: ModelData, spec: ModelSpec | None = None) -> BuiltModel:
     if form == "fast":
         sigma_asym_taxa = estimate_sigma_asym(data, float(data.rel_error or 0.0))
     arrays = data_arrays(data, form, sigma_asym_taxa)
+    if layout is None:
+        layout = group_layout(data, spec, arrays if form == "fast" else None)
     with pm.Model(coords=coords) as model:
         sh = {name: pm.Data(name, value) for name, value in arrays.items()}
-        a_spec = pt.maximum(_exponents(data, spec), A_FLOOR)
+        a_spec = pt.maximum(_exponents(data, spec, layout), A_FLOOR)
         sigma_rel = _measurement_sd(data, spec)
         sigma_dev = pm.HalfNormal("sigma_dev", spec.priors.sigma_dev)
         nu = _nu(spec)
@@ -283,7 +151,8 @@ def build_model(data: ModelData, spec: ModelSpec | None = None) -> BuiltModel:
             pm.Potential("junction_loglik", total)
         else:
             _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu)
-    return BuiltModel(model=model, data=data, spec=spec, form=form, sigma_asym=sigma_asym_taxa, arrays=arrays)
+    return BuiltModel(model=model, data=data, spec=spec, form=form, sigma_asym=sigma_asym_taxa, arrays=arrays,
+                      layout=layout)
 
 
 def _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu) -> None:

@@ -16,6 +16,10 @@ import pandas as pd
 from allobranch.intake.mapping import ColumnMapping
 
 
+#: Kinds of daughter split the simulator knows (see :func:`simulate_junctions`).
+SPLITS: tuple[str, ...] = ("dirichlet", "uniform", "lognormal", "side_branch")
+
+
 @dataclass
 class SimulatedData:
     """A simulated junction table and the truth behind it.
@@ -64,6 +68,7 @@ def simulate_junctions(
     trifurcation_share: float = 0.0,
     parent_range: tuple[float, float] = (0.05, 2.0),
     split_concentration: float = 4.0,
+    split: str = "dirichlet",
     seed: int | None = 0,
 ) -> SimulatedData:
     """Simulate a junction table from the hierarchical branching model.
@@ -92,7 +97,13 @@ def simulate_junctions(
         Range of nominal parent radii (mm), drawn log-uniformly.
     split_concentration : float
         Dirichlet concentration of how the parent's ``a``-th power splits among daughters (larger is more
-        symmetric).
+        symmetric; ``split="dirichlet"``), or the SD of the log daughters about their mean
+        (``split="lognormal"``, where values near 0.1-0.5 are realistic).
+    split : {"dirichlet", "uniform", "lognormal", "side_branch"}
+        How the parent's ``a``-th power is shared among the daughters (:data:`SPLITS`): a Dirichlet of the
+        given concentration; a uniform fraction (Dirichlet with concentration 1); log-normal daughters
+        about their junction mean (the model's own assumption), rescaled to obey the law; or one daughter
+        continuing with most of the power (a share from Beta(8, 2)) and the others as side branches.
     seed : int or None
         Seed of the random generator; the same seed gives the same table.
 
@@ -100,6 +111,8 @@ def simulate_junctions(
     -------
     SimulatedData
     """
+    if split not in SPLITS:
+        raise ValueError(f"split must be one of {', '.join(SPLITS)}; got {split!r}")
     rng = np.random.default_rng(seed)
     names = [f"T{i + 1}" for i in range(taxa)] if isinstance(taxa, (int, np.integer)) else [str(t) for t in taxa]
     n_spec = _per_group(specimens_per_taxon, len(names), "specimens_per_taxon")
@@ -118,8 +131,7 @@ def simulate_junctions(
         nominal = np.exp(rng.uniform(lo, hi, size=n))
         k = np.where(rng.uniform(size=n) < trifurcation_share, 3, 2)
         for j in range(n):
-            split = rng.dirichlet(np.full(k[j], split_concentration))
-            r_true_d = nominal[j] * split ** (1.0 / a)
+            r_true_d = nominal[j] * _shares(split, int(k[j]), split_concentration, a, rng) ** (1.0 / a)
             r_true_p = nominal[j] * np.exp(sigma_dev * rng.standard_normal())
             true_vals = np.concatenate([[r_true_p], r_true_d])
             obs = _observe(true_vals, rel_error, abs_error, rng)
@@ -153,6 +165,20 @@ def simulate_junctions(
         "a_specimen": a_spec,
     }
     return SimulatedData(frame=frame, truth=truth, true_radii=pd.DataFrame(true_rows), mapping=mapping)
+
+
+def _shares(kind: str, k: int, concentration: float, a: float, rng: np.random.Generator) -> np.ndarray:
+    """Shares of the parent's ``a``-th power among ``k`` daughters (they sum to one, exact algebra)."""
+    if kind == "dirichlet":
+        return rng.dirichlet(np.full(k, concentration))
+    if kind == "uniform":
+        return rng.dirichlet(np.ones(k))
+    if kind == "lognormal":
+        powers = np.exp(a * concentration * rng.standard_normal(k))
+        return powers / powers.sum()
+    main = rng.beta(8.0, 2.0)  # side_branch: one daughter continues with most of the power
+    rest = (1.0 - main) * rng.dirichlet(np.full(k - 1, 4.0))
+    return rng.permutation(np.concatenate([[main], rest]))
 
 
 def _observe(true_vals: np.ndarray, rel_error: float, abs_error: float, rng: np.random.Generator) -> np.ndarray:

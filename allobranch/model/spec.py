@@ -17,9 +17,10 @@ DEVIATIONS: tuple[str, ...] = ("normal", "student_t")
 ASYMMETRY: tuple[str, ...] = ("empirical", "sampled")
 #: Allowed parametrisations of the hierarchy.
 PARAMETRIZATIONS: tuple[str, ...] = ("auto", "noncentered", "centered")
-#: Junctions (at 5 % error) per group above which ``auto`` centres a hierarchy level (the data then
-#: dominate each group's exponent; common practice, no source: centred suits well-informed groups).
-CENTERED_ABOVE = 80
+#: Allowed sampler names.
+SAMPLERS: tuple[str, ...] = ("nutpie", "pymc")
+#: Default sampler settings of every fit (the command line, :func:`allobranch.fit` and the comparison's fits).
+SAMPLER_DEFAULTS: dict = {"draws": 1000, "tune": 1000, "chains": 4, "target_accept": 0.9, "sampler": "nutpie"}
 
 
 @dataclass(frozen=True)
@@ -82,8 +83,10 @@ class ModelSpec:
         method, leaving no per-junction parameters; ``latent`` keeps every true daughter radius as a
         parameter (exact, slow; used to validate the fast form).
     parametrization : {"auto", "noncentered", "centered"}
-        Parametrisation of the hierarchy; ``auto`` centres a level whose median group holds more than
-        :data:`CENTERED_ABOVE` junctions' worth of information at 5 % error, and is non-centred otherwise.
+        Parametrisation of the hierarchy's groups. ``auto`` (default) partially centres every group by the
+        ratio of the spread between groups to the group's own posterior SD, both measured by a quick pilot
+        (:mod:`allobranch.model.partial_centering`); ``centered`` / ``noncentered`` use one extreme for every
+        group.
     asymmetry : {"empirical", "sampled"}
         The true daughters' spread about their junction mean (their asymmetry) has a normal prior with
         scale ``sigma_asym``, which shrinks the apparent asymmetry that measurement error adds.
