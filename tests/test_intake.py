@@ -165,7 +165,7 @@ def test_bad_encoding_names_line(tmp_path):
     with pytest.raises(InputError) as exc:
         read_junctions(path, parent="p", daughters="d1,d2")
     assert exc.value.problems[0].row == 3
-    assert "UTF-8" in str(exc.value)
+    assert "UTF-8" in str(exc.value) and "encoding=" in exc.value.problems[0].hint
 
 
 @pytest.mark.parametrize("text", ["", "   \n\n", "p,d1,d2\n", "p,d1,d2\n\n\n"])
@@ -212,6 +212,8 @@ def test_missing_columns_listed(tmp_path):
         ("", "d2", "missing_size"),
         ("-1", "d3", "nonpositive_size"),
         ("?", "d3", "not_numeric"),
+        ("NA", "d3", "missing_word"),
+        ("1e400", "p", "nonfinite_size"),
     ],
 )
 def test_bad_size_cell_names_row_column(tmp_path, cell, column, code):
@@ -223,7 +225,7 @@ def test_bad_size_cell_names_row_column(tmp_path, cell, column, code):
     (problem,) = _fatal(exc)
     assert (problem.row, problem.column, problem.code) == (3, column, code)
     assert "row 3" in str(exc.value) and f"column '{column}'" in str(exc.value)
-    if code == "not_numeric":
+    if code in ("not_numeric", "missing_word", "nonfinite_size"):
         assert repr(cell) in problem.message
 
 
@@ -238,10 +240,11 @@ def test_all_fatal_problems_collected(tmp_path):
 
 
 def test_se_problems(tmp_path):
-    text = "p,d1,d2,se\n1,0.6,0.5,-0.1\n1,0.6,0.5,abc\n"
+    text = "p,d1,d2,se\n1,0.6,0.5,-0.1\n1,0.6,0.5,abc\n1,0.6,0.5,NA\n1,0.6,0.5,inf\n"
     with pytest.raises(InputError) as exc:
         read_junctions(_write(tmp_path, text), parent="p", daughters="d1,d2", se="se")
-    assert {(p.row, p.column, p.code) for p in exc.value.problems} == {(2, "se", "bad_se"), (3, "se", "not_numeric")}
+    assert {(p.row, p.column, p.code) for p in exc.value.problems} == {
+        (2, "se", "bad_se"), (3, "se", "not_numeric"), (4, "se", "missing_word"), (5, "se", "nonfinite_se")}
 
 
 def test_duplicate_junction_in_specimen(tmp_path):

@@ -64,13 +64,13 @@ def resolve_mapping(
     return mapping_from_options(base=base, **mapping_kwargs)
 
 
-def _read_repeats(spec: str, main: RawTable) -> RawTable:
+def _read_repeats(spec: str, main: RawTable, encoding: str | None) -> RawTable:
     """Find and read the repeat readings: a file (relative paths beside the main file) or an Excel sheet."""
     path = Path(spec)
     if not path.is_absolute() and main.path is not None:
         path = main.path.parent / path
     if path.is_file():
-        return read_table(path)
+        return read_table(path, encoding=encoding)
     if main.kind == "excel" and spec in main.sheet_names:
         return read_table(main.path, sheet=spec)
     where = f" (looked in {path.parent})" if main.path is not None else ""
@@ -93,7 +93,9 @@ def read_junctions(
     ----------
     source : str, path-like or pandas.DataFrame
         CSV, TSV, semicolon-separated (decimal comma), Parquet or Excel (.xlsx) file, or a DataFrame (which
-        is not changed). Row numbers in messages count the header as row 1.
+        is not changed). Row numbers in messages count the header as row 1. Text files may start with a
+        byte-order mark, use CRLF line ends and quote fields (RFC 4180); spaces around column names are
+        ignored.
     mapping : ColumnMapping, optional
         How the columns map onto junctions.
     recipe : str or path-like, optional
@@ -101,6 +103,16 @@ def read_junctions(
     **mapping_kwargs
         Mapping fields given directly or overriding the mapping/recipe, e.g. ``parent="r0"``,
         ``daughters=["r1", "r2"]``, ``unit="um"``, ``measure="diameter"``, ``rel_error=0.05``.
+        ``encoding="latin-1"`` (any Python codec name; recipe key ``encoding`` under ``[input]``) reads text
+        files in that encoding instead of UTF-8; it applies to a repeat-readings text file too.
+
+    Notes
+    -----
+    Size and standard-error cells must be numbers or empty. Words that stand for a missing value
+    (:data:`allobranch.intake.validate.MISSING_WORDS`, e.g. ``NA``, ``n/a``, ``#N/A``), infinite values and
+    numbers too large to represent are refused with the row and column, so that no reading is treated as
+    absent by accident. An empty cell in the third or later daughter column means that junction has fewer
+    daughters; an empty standard-error cell is kept and flagged.
 
     Returns
     -------
@@ -122,6 +134,6 @@ def read_junctions(
     1
     """
     checked = resolve_mapping(mapping, recipe=recipe, **mapping_kwargs)
-    raw = read_table(source, sheet=checked.sheet)
-    repeats = _read_repeats(checked.repeats, raw) if checked.repeats else None
+    raw = read_table(source, sheet=checked.sheet, encoding=checked.encoding)
+    repeats = _read_repeats(checked.repeats, raw, checked.encoding) if checked.repeats else None
     return build_junction_table(raw, checked, repeats)

@@ -44,6 +44,9 @@ class ColumnMapping:
         the model to estimate the measurement error.
     sheet : str or int or None
         Sheet of an Excel workbook holding the junction table (first sheet when ``None``).
+    encoding : str or None
+        Text encoding of text tables (the junction table and a repeat-readings file), any Python codec name
+        such as ``"latin-1"`` or ``"cp1252"``; ``None`` reads UTF-8 (with or without a byte-order mark).
     """
 
     parent: str
@@ -57,6 +60,7 @@ class ColumnMapping:
     se: tuple[str, ...] = field(default_factory=tuple)
     repeats: str | None = None
     sheet: str | int | None = None
+    encoding: str | None = None
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "daughters", tuple(self.daughters))

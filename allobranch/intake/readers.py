@@ -1,12 +1,15 @@
 """Read a user's table from disk (CSV, TSV, semicolon/decimal-comma text, Parquet, Excel) or a DataFrame.
 
-The reader does no interpretation of values: text files are read as text so that validation can quote the
-user's own cell content in its messages, and every data row keeps the row number the user sees in the file
-(header = row 1). Blank lines are kept so that numbering stays right; validation reports them.
+The reader does no interpretation of values: text files are read as text, cell by cell exactly as written
+(no word such as ``NA`` is turned into a missing value here), so that validation can quote the user's own
+cell content in its messages. Every data row keeps the row number the user sees in the file (header = row
+1; a quoted field spanning several lines counts from its first line). Blank lines are kept so that
+numbering stays right; validation reports them. Column names are trimmed of surrounding spaces.
 """
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import os
@@ -16,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from allobranch.errors import InputError, Problem
+from allobranch.errors import InputError, Problem, RecipeError
 
 #: File extensions read as each kind of table.
 TEXT_EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".tab", "")
@@ -27,6 +30,11 @@ PARQUET_EXTENSIONS: tuple[str, ...] = (".parquet", ".pq")
 #: Label used in messages when the table came from a pandas DataFrame.
 DATAFRAME_LABEL = "<DataFrame>"
 
+#: Text encoding of text tables when none is named (a leading byte-order mark is allowed and removed).
+DEFAULT_ENCODING = "utf-8"
+#: Common encodings offered in messages; any Python text codec name is accepted.
+ENCODING_EXAMPLES: tuple[str, ...] = ("utf-8", "cp1252", "latin-1", "utf-16")
+
 # Leading bytes of common non-table files, so the user is told what the file really is.
 _MAGIC: tuple[tuple[bytes, str], ...] = (
     (b"\x89PNG", "a PNG image"),
@@ -36,8 +44,14 @@ _MAGIC: tuple[tuple[bytes, str], ...] = (
     (b"PK\x03\x04", "a zip archive (an Excel .xlsx workbook is one)"),
     (b"PAR1", "a Parquet file"),
     (b"\xd0\xcf\x11\xe0", "an old-style Excel .xls / Office document"),
-    (b"\xff\xfe", "UTF-16 text"),
-    (b"\xfe\xff", "UTF-16 text"),
+)
+
+# Byte-order marks of wide Unicode encodings (UTF-32 first: its little-endian mark starts like UTF-16's).
+_WIDE_BOMS: tuple[tuple[bytes, str], ...] = (
+    (codecs.BOM_UTF32_LE, "utf-32"),
+    (codecs.BOM_UTF32_BE, "utf-32"),
+    (codecs.BOM_UTF16_LE, "utf-16"),
+    (codecs.BOM_UTF16_BE, "utf-16"),
 )
 
 
@@ -77,7 +91,62 @@ def _fatal(label: str, message: str, hint: str, code: str, row: int | None = Non
     return InputError([Problem("fatal", label, row, None, message, hint, code)])
 
 
-def read_table(source: str | os.PathLike | pd.DataFrame, *, sheet: str | int | None = None) -> RawTable:
+def check_encoding(encoding: str | None, *, origin: str = "<options>", key: str = "encoding") -> str | None:
+    """Check that a text encoding is one Python can decode with.
+
+    Parameters
+    ----------
+    encoding : str or None
+        A codec name such as ``"latin-1"`` or ``"cp1252"`` (case-insensitive, surrounding spaces ignored);
+        ``None`` means :data:`DEFAULT_ENCODING`.
+    origin : str
+        Where the value came from (recipe file or ``"<options>"``), used in the message.
+    key : str
+        The recipe key or option name, used in the message.
+
+    Returns
+    -------
+    str or None
+        The name without surrounding spaces, or ``None``.
+
+    Raises
+    ------
+    RecipeError
+        If the name is not text or not a text encoding known to Python.
+
+    Examples
+    --------
+    >>> check_encoding(" latin-1 ")
+    'latin-1'
+    """
+    if encoding is None:
+        return None
+    if isinstance(encoding, str) and encoding.strip():
+        name = encoding.strip()
+        try:
+            b"x".decode(name, "ignore")  # LookupError for unknown names and for codecs that are not text encodings
+        except LookupError:
+            pass
+        else:
+            return name
+    raise RecipeError([Problem("fatal", origin, None, None,
+                               f"{key}: {encoding!r} is not a text encoding known to Python",
+                               f"give a Python codec name, e.g. {', '.join(ENCODING_EXAMPLES)}", "unknown_encoding")])
+
+
+def _encoding_hint(example: str) -> str:
+    """How to name a text file's encoding: the Python keyword of ``read_junctions`` and the recipe key."""
+    return (f'name the file\'s encoding: encoding="{example}" in read_junctions(...), or encoding = "{example}" '
+            f"under [input] in the recipe (common ones: {', '.join(ENCODING_EXAMPLES)}); or save the file "
+            "again as 'CSV UTF-8'")
+
+
+def read_table(
+    source: str | os.PathLike | pd.DataFrame,
+    *,
+    sheet: str | int | None = None,
+    encoding: str | None = None,
+) -> RawTable:
     """Read a table without interpreting its values.
 
     Parameters
@@ -85,23 +154,32 @@ def read_table(source: str | os.PathLike | pd.DataFrame, *, sheet: str | int | N
     source : str, path-like or pandas.DataFrame
         A ``.csv``/``.txt`` (comma, tab or semicolon separated; sniffed from the header line),
         ``.tsv``/``.tab``, ``.parquet``/``.pq`` or ``.xlsx``/``.xlsm`` file, or a DataFrame.
-        A semicolon-separated text file is read with decimal commas.
+        A semicolon-separated text file is read with decimal commas. Text follows RFC 4180 quoting:
+        fields in double quotes may hold the separator, line breaks and doubled quotes (``""``).
     sheet : str or int, optional
         Excel sheet name or 0-based position; the first sheet when ``None``. Ignored for other kinds.
+    encoding : str, optional
+        Text encoding of a text file (any Python codec name, e.g. ``"latin-1"``, ``"cp1252"``,
+        ``"utf-16"``); :data:`DEFAULT_ENCODING` when ``None``. A leading byte-order mark is removed.
+        Ignored for Parquet, Excel and DataFrames, which carry their own encoding.
 
     Returns
     -------
     RawTable
-        The cells and the user's row numbers.
+        The cells and the user's row numbers; column names without surrounding spaces.
 
     Raises
     ------
     InputError
-        If the file is missing, unreadable, binary, not UTF-8 text, empty or has only a header.
+        If the file is missing, unreadable, binary, not text in the encoding, empty, has only a header,
+        repeats a column name, or has rows with more fields than the header.
+    RecipeError
+        If ``encoding`` is not a text encoding known to Python.
     """
+    encoding = check_encoding(encoding)
     if isinstance(source, pd.DataFrame):
         frame = source.reset_index(drop=True)  # a new object: the caller's DataFrame is never changed
-        frame.columns = [str(c) for c in frame.columns]
+        frame.columns = _column_names(list(frame.columns), DATAFRAME_LABEL, None)
         raw = RawTable(
             frame=frame,
             label=DATAFRAME_LABEL,
@@ -128,22 +206,48 @@ def read_table(source: str | os.PathLike | pd.DataFrame, *, sheet: str | int | N
                 "unsupported_format",
             )
         else:
-            raw = _read_text(path, label)
+            raw = _read_text(path, label, encoding)
     if raw.frame.shape[1] == 0 or len(raw.frame) == 0:
         what = "has no columns" if raw.frame.shape[1] == 0 else "has a header but no data rows"
         raise _fatal(raw.label, f"the table {what}", "add one row per junction below the header", "empty_table")
     return raw
 
 
+def _column_names(header: list[object], label: str, row: int | None) -> list[str]:
+    """Header cells as column names: trimmed of spaces, unnamed ones labelled by position, none twice."""
+    names = []
+    for i, cell in enumerate(header):
+        name = "" if cell is None or (isinstance(cell, float) and np.isnan(cell)) else str(cell).strip()
+        names.append(name or f"(column {i + 1})")
+    dupes = [n for i, n in enumerate(names) if n in names[:i]]
+    if dupes:
+        raise _fatal(
+            label,
+            f"column name(s) {', '.join(repr(d) for d in dict.fromkeys(dupes))} appear more than once in the header"
+            " (surrounding spaces are ignored)",
+            "give every column a distinct name",
+            "duplicate_column",
+            row=row,
+        )
+    return names
+
+
 # -- text files ---------------------------------------------------------------------------------------
-def _decode(path: Path, label: str) -> str:
+def _binary(label: str) -> InputError:
+    return _fatal(
+        label,
+        "the file contains binary data (NUL bytes), not text",
+        "export the table as CSV (UTF-8) from your spreadsheet or analysis program",
+        "binary_file",
+    )
+
+
+def _decode(path: Path, label: str, encoding: str | None) -> str:
     try:
         data = path.read_bytes()
     except OSError as exc:
         raise _fatal(label, f"cannot read the file ({exc.strerror})", "check the file's permissions",
                      "unreadable") from None
-    if not data.strip():
-        raise _fatal(label, "the file is empty", "export the table again, with a header row", "empty_table")
     for magic, what in _MAGIC:
         if data.startswith(magic):
             raise _fatal(
@@ -152,24 +256,31 @@ def _decode(path: Path, label: str) -> str:
                 "give a CSV/TSV text file (UTF-8), or an .xlsx / .parquet file with the right extension",
                 "binary_file",
             )
-    if b"\x00" in data[:65536]:
-        raise _fatal(
-            label,
-            "the file contains binary data (NUL bytes), not text",
-            "export the table as CSV (UTF-8) from your spreadsheet or analysis program",
-            "binary_file",
-        )
+    if encoding is None:
+        for bom, wide in _WIDE_BOMS:
+            if data.startswith(bom):
+                raise _fatal(label, f"the file is {wide.upper()} text, not UTF-8 (it starts with a {wide.upper()} "
+                             "byte-order mark)", _encoding_hint(wide), "bad_encoding", row=1)
+    codec = encoding or DEFAULT_ENCODING
     try:
-        return data.decode("utf-8-sig")
+        text = data.decode(codec)
     except UnicodeDecodeError as exc:
+        if b"\x00" in data[:65536]:
+            raise _binary(label) from None
         line = data[: exc.start].count(b"\n") + 1
-        raise _fatal(
-            label,
-            f"the file is not UTF-8 text (undecodable byte 0x{data[exc.start]:02x} on line {line})",
-            "save the file again as 'CSV UTF-8' (most spreadsheet programs offer this)",
-            "bad_encoding",
-            row=line,
-        ) from None
+        byte = f"undecodable byte 0x{data[exc.start]:02x} on line {line}"
+        if encoding is None:
+            raise _fatal(label, f"the file is not UTF-8 text ({byte})", _encoding_hint(ENCODING_EXAMPLES[1]),
+                         "bad_encoding", row=line) from None
+        raise _fatal(label, f"the file is not {encoding} text ({byte})",
+                     f"{encoding!r} does not fit this file; {_encoding_hint(ENCODING_EXAMPLES[0])}", "bad_encoding",
+                     row=line) from None
+    if "\x00" in text[:65536]:
+        raise _binary(label)
+    text = text.removeprefix("\ufeff")  # Unicode byte-order mark U+FEFF
+    if not text.strip():
+        raise _fatal(label, "the file is empty", "export the table again, with a header row", "empty_table")
+    return text
 
 
 def _sniff_separator(header: str, suffix: str) -> tuple[str, str, str]:
@@ -181,47 +292,43 @@ def _sniff_separator(header: str, suffix: str) -> tuple[str, str, str]:
     return ",", ".", "csv"
 
 
-def _read_text(path: Path, label: str) -> RawTable:
-    text = _decode(path, label)
-    lines = text.splitlines(keepends=True)
-    n_leading_blank = 0
-    while n_leading_blank < len(lines) and not lines[n_leading_blank].strip():
-        n_leading_blank += 1
-    header_line = n_leading_blank + 1
-    body = "".join(lines[n_leading_blank:])
-    sep, decimal, kind = _sniff_separator(lines[n_leading_blank], path.suffix.lower())
-    names = next(csv.reader([lines[n_leading_blank].rstrip("\r\n")], delimiter=sep))
-    seen: set[str] = set()
-    dupes = [n for n in names if n in seen or seen.add(n)]  # type: ignore[func-returns-value]
-    if dupes:
-        raise _fatal(
-            label,
-            f"column name(s) {', '.join(repr(d) for d in dict.fromkeys(dupes))} appear more than once in the header",
-            "give every column a distinct name",
-            "duplicate_column",
-            row=header_line,
-        )
+def _read_text(path: Path, label: str, encoding: str | None) -> RawTable:
+    # Lines split as the csv module splits them (\n, \r\n or \r), so line numbers agree with the editor's.
+    lines = io.StringIO(_decode(path, label, encoding), newline="").readlines()
+    skip = next(i for i, line in enumerate(lines) if line.strip())  # _decode refuses an all-blank file
+    sep, decimal, kind = _sniff_separator(lines[skip], path.suffix.lower())
+    sep_name = "TAB" if sep == "\t" else sep
+    reader = csv.reader(lines[skip:], delimiter=sep, strict=True)
+    records: list[list[str]] = []
+    starts: list[int] = []  # file line on which each record starts (a quoted field may span lines)
+    consumed = 0
     try:
-        frame = pd.read_csv(
-            io.StringIO(body),
-            sep=sep,
-            dtype=str,
-            skip_blank_lines=False,
-            keep_default_na=True,
-        )
-    except pd.errors.ParserError as exc:
-        raise _fatal(
-            label,
-            f"the file cannot be parsed as a table ({exc})",
-            f"check that every row has the same number of '{'TAB' if sep == chr(9) else sep}'-separated fields "
-            "and that quotes are closed (line numbers count from the header line)",
-            "parse_error",
-        ) from None
-    except pd.errors.EmptyDataError:
-        raise _fatal(label, "the file has no header row", "put the column names on the first line",
-                     "empty_table") from None
-    rows = np.arange(len(frame)) + header_line + 1
-    return RawTable(frame=frame, label=label, rows=rows, decimal=decimal, kind=kind, path=path.resolve())
+        for record in reader:
+            starts.append(skip + consumed + 1)
+            consumed = reader.line_num
+            records.append(record)
+    except csv.Error as exc:
+        raise _fatal(label, f"the file cannot be parsed as a table from this row on ({exc})",
+                     "check that quotes are closed and that a quoted field is followed by the separator "
+                     f"'{sep_name}'", "parse_error", row=skip + consumed + 1) from None
+    header_row = starts[0]
+    names = _column_names(records[0], label, header_row)
+    width = len(names)
+    body = []
+    too_long = []
+    for record, row in zip(records[1:], starts[1:], strict=True):
+        extra = record[width:]
+        if any(cell.strip() for cell in extra):
+            too_long.append(Problem("fatal", label, row, None, f"this row has {len(record)} fields but the header "
+                                    f"has {width}", f"check that every row has the same number of '{sep_name}'-"
+                                    "separated fields, and quote fields that contain the separator",
+                                    "parse_error"))
+        body.append(record[:width] + [""] * (width - len(record)))  # empty trailing fields hold no data
+    if too_long:
+        raise InputError(too_long)
+    frame = pd.DataFrame(body, columns=names, dtype=object)
+    return RawTable(frame=frame, label=label, rows=np.array(starts[1:], dtype=int), decimal=decimal, kind=kind,
+                    path=path.resolve())
 
 
 # -- binary formats -----------------------------------------------------------------------------------
@@ -236,7 +343,7 @@ def _read_parquet(path: Path, label: str) -> RawTable:
             "unreadable",
         ) from None
     frame = frame.reset_index(drop=True)
-    frame.columns = [str(c) for c in frame.columns]
+    frame.columns = _column_names(list(frame.columns), label, 1)
     return RawTable(frame=frame, label=label, rows=np.arange(len(frame)) + 2, kind="parquet", path=path.resolve())
 
 
@@ -307,17 +414,8 @@ def _read_excel(path: Path, label: str, sheet: str | int | None) -> RawTable:
     last = max(i for i, r in enumerate(cells) if not blank(r))
     header = cells[first]
     width = max(i for i, v in enumerate(header) if v is not None and str(v).strip()) + 1
-    columns = [str(v) if v is not None else f"(column {i + 1})" for i, v in enumerate(header[:width])]
     sheet_label = f"{label} [sheet {chosen!r}]"
-    dupes = [c for i, c in enumerate(columns) if c in columns[:i]]
-    if dupes:
-        raise _fatal(
-            sheet_label,
-            f"column name(s) {', '.join(repr(d) for d in dict.fromkeys(dupes))} appear more than once in the header",
-            "give every column a distinct name",
-            "duplicate_column",
-            row=first + 1,
-        )
+    columns = _column_names(header[:width], sheet_label, first + 1)
     body = [(r + [None] * width)[:width] for r in cells[first + 1 : last + 1]]
     frame = pd.DataFrame(body, columns=columns, dtype=object)
     rows = np.arange(len(frame)) + first + 2

@@ -18,8 +18,10 @@ A recipe looks like::
 
     [input]
     sheet = "junctions"       # Excel sheet holding the table
+    encoding = "latin-1"      # text encoding of CSV/TSV files (default UTF-8); any Python codec name
 
-Every key is optional except ``parent`` and ``daughters``.
+Every key is optional except ``parent`` and ``daughters``. ``[input] encoding`` is the recipe form of the
+``encoding=`` keyword of :func:`allobranch.read_junctions`.
 """
 
 from __future__ import annotations
@@ -34,13 +36,14 @@ from typing import Any
 
 from allobranch.errors import OutputExistsError, Problem, RecipeError
 from allobranch.intake.mapping import MEASURES, ColumnMapping
+from allobranch.intake.readers import check_encoding
 from allobranch.intake.units import canonical_unit
 
 #: Recipe sections and the mapping fields each may hold; used by the reader, the writer and messages.
 RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
     "columns": ("taxon", "specimen", "junction", "parent", "daughters"),
     "measurement": ("measure", "unit", "rel_error", "se", "repeats"),
-    "input": ("sheet",),
+    "input": ("sheet", "encoding"),
 }
 
 OPTIONS_ORIGIN = "<options>"
@@ -79,7 +82,7 @@ def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_re
     ------
     RecipeError
         Listing every problem: fewer than two daughter columns, a column used twice, a wrong number of
-        standard-error columns, a relative error outside (0, 1), an unknown measure or unit.
+        standard-error columns, a relative error outside (0, 1), an unknown measure, unit or text encoding.
     """
     problems: list[Problem] = []
 
@@ -122,9 +125,14 @@ def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_re
         problems.extend(exc.problems)
     if mapping.sheet is not None and (isinstance(mapping.sheet, bool) or not isinstance(mapping.sheet, (str, int))):
         add("sheet", f"sheet {mapping.sheet!r} is neither a name nor a position", "give the sheet's name")
+    encoding = mapping.encoding
+    try:
+        encoding = check_encoding(mapping.encoding, origin=origin, key=_key("encoding", in_recipe))
+    except RecipeError as exc:
+        problems.extend(exc.problems)
     if problems:
         raise RecipeError(problems)
-    return dataclasses.replace(mapping, unit=unit, measure=measure)
+    return dataclasses.replace(mapping, unit=unit, measure=measure, encoding=encoding)
 
 
 def load_recipe(path: str | os.PathLike) -> ColumnMapping:
@@ -246,6 +254,7 @@ def mapping_from_options(
     se: str | Sequence[str] | None = None,
     repeats: str | None = None,
     sheet: str | int | None = None,
+    encoding: str | None = None,
 ) -> ColumnMapping:
     """Build a mapping from option values, on top of an optional base mapping (e.g. a recipe).
 
@@ -267,6 +276,8 @@ def mapping_from_options(
         Repeat-readings file (or Excel sheet name).
     sheet : str or int, optional
         Excel sheet holding the junction table.
+    encoding : str, optional
+        Text encoding of text tables, any Python codec name (e.g. ``"latin-1"``); UTF-8 when not given.
 
     Returns
     -------
@@ -287,7 +298,7 @@ def mapping_from_options(
     updates: dict[str, Any] = {
         "parent": parent, "daughters": _split(daughters), "taxon": taxon, "specimen": specimen,
         "junction": junction, "measure": measure, "unit": unit, "rel_error": rel_error,
-        "se": _split(se), "repeats": repeats, "sheet": sheet,
+        "se": _split(se), "repeats": repeats, "sheet": sheet, "encoding": encoding,
     }
     updates = {k: v for k, v in updates.items() if v is not None}
     if base is None:

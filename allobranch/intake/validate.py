@@ -24,8 +24,18 @@ from allobranch.intake.units import radius_factor
 #: Taxon label used when no taxon column is mapped.
 DEFAULT_TAXON = "all"
 
-#: Cell texts read as "no value" (compared case-insensitively after trimming spaces).
-MISSING_MARKERS: frozenset[str] = frozenset({"", "na", "n/a", "nan", "null", "none", "#n/a", "<na>", "-nan"})
+#: Cell texts that stand for "no value" in common exports (compared case-insensitively after trimming spaces).
+#: In number columns they are refused, so that no reading is taken as absent by accident (an absent
+#: reading is an empty cell); in label columns they count as a missing label.
+MISSING_WORDS: frozenset[str] = frozenset({"na", "n/a", "nan", "-nan", "null", "none", "#n/a", "#na", "<na>"})
+
+#: Why a number cell cannot be used, as found by :func:`parse_numbers` (kind -> what is said about the cell).
+UNUSABLE_NUMBER: dict[str, str] = {
+    "missing_word": "is a missing-value word, not a number",
+    "nonfinite": "is not a finite number",
+    "overflow": "is too large to be a number (it overflows to infinity)",
+    "not_numeric": "is not a number",
+}
 
 #: Columns of a repeat-readings table; ``specimen`` may be left out when specimens are not mapped.
 REPEAT_COLUMNS: tuple[str, ...] = ("specimen", "junction", "segment", "value")
@@ -37,35 +47,46 @@ MIN_SIBLING_RATIO = 0.1
 
 
 # -- cell parsing --------------------------------------------------------------------------------------
-def _is_missing(value: object) -> bool:
+def _is_empty(value: object) -> bool:
+    """An empty cell: nothing, a native missing value, or only spaces."""
     if value is None or value is pd.NA:
         return True
     if isinstance(value, float) and math.isnan(value):
         return True
-    return isinstance(value, str) and value.strip().lower() in MISSING_MARKERS
+    return isinstance(value, str) and not value.strip()
 
 
-def _to_float(value: object, decimal: str) -> float | None:
-    """Parse one cell; ``None`` when it is not a number (missing cells are NaN)."""
-    if _is_missing(value):
-        return math.nan
-    if isinstance(value, bool | np.bool_):
-        return None
-    if isinstance(value, numbers.Real):
-        return float(value)
-    if not isinstance(value, str):
-        return None
-    text = value.strip()
-    if "_" in text:
-        return None
-    if decimal == "," and "," in text:
-        if "." in text or text.count(",") > 1:
-            return None
-        text = text.replace(",", ".")
+def _is_missing_word(value: object) -> bool:
+    return isinstance(value, str) and value.strip().lower() in MISSING_WORDS
+
+
+def _parse_cell(value: object, decimal: str) -> tuple[float, str | None]:
+    """One cell as ``(number, None)``; ``(nan, None)`` when empty; ``(nan, kind)`` when unusable."""
+    if _is_empty(value):
+        return math.nan, None
+    if _is_missing_word(value):
+        return math.nan, "missing_word"
+    if isinstance(value, bool | np.bool_) or not isinstance(value, numbers.Real | str):
+        return math.nan, "not_numeric"
+    text = value.strip() if isinstance(value, str) else None
+    if text is not None:
+        if "_" in text:
+            return math.nan, "not_numeric"
+        if decimal == "," and "," in text:
+            if "." in text or text.count(",") > 1:
+                return math.nan, "not_numeric"
+            text = text.replace(",", ".")
     try:
-        return float(text)
+        number = float(value if text is None else text)
+    except OverflowError:  # a Python int beyond the float range
+        return math.nan, "overflow"
     except ValueError:
-        return None
+        return math.nan, "not_numeric"
+    if math.isfinite(number):
+        return number, None
+    if math.isinf(number) and text is not None and "inf" not in text.lower():  # "1e400"
+        return math.nan, "overflow"
+    return math.nan, "nonfinite"
 
 
 def parse_numbers(cells: pd.Series, decimal: str = ".") -> tuple[np.ndarray, np.ndarray]:
@@ -81,29 +102,61 @@ def parse_numbers(cells: pd.Series, decimal: str = ".") -> tuple[np.ndarray, np.
     Returns
     -------
     values : numpy.ndarray
-        Floats; NaN for empty cells and for cells that are not numbers.
+        Finite floats; NaN for empty cells and for cells that are not usable numbers.
     not_number : numpy.ndarray of bool
-        True where a cell holds something that is not a number (text such as ``"12 um"`` or ``"?"``).
+        True where a cell holds something other than a finite number or nothing: text such as ``"12 um"``
+        or ``"?"``, a word in :data:`MISSING_WORDS`, an infinite value, or a number too large to represent
+        (``"1e400"``). :func:`describe_unusable` says which.
 
     Examples
     --------
     >>> import pandas as pd
-    >>> parse_numbers(pd.Series(["1,5", "", "x"]), decimal=",")
-    (array([1.5, nan, nan]), array([False, False,  True]))
+    >>> parse_numbers(pd.Series(["1,5", "", "x", "NA"]), decimal=",")
+    (array([1.5, nan, nan, nan]), array([False, False,  True,  True]))
     """
-    parsed = [_to_float(v, decimal) for v in cells.tolist()]
-    bad = np.array([p is None for p in parsed], dtype=bool)
-    values = np.array([math.nan if p is None else p for p in parsed], dtype=float)
+    parsed = [_parse_cell(v, decimal) for v in cells.tolist()]
+    values = np.array([number for number, _ in parsed], dtype=float)
+    bad = np.array([kind is not None for _, kind in parsed], dtype=bool)
     return values, bad
 
 
+def describe_unusable(cell: object, decimal: str = ".") -> tuple[str, str]:
+    """Say why :func:`parse_numbers` refused a cell.
+
+    Parameters
+    ----------
+    cell : object
+        The cell as read.
+    decimal : {".", ","}
+        Decimal mark of numbers written as text.
+
+    Returns
+    -------
+    message : str
+        What is wrong, quoting the cell.
+    kind : str
+        A key of :data:`UNUSABLE_NUMBER`.
+
+    Examples
+    --------
+    >>> describe_unusable(" n/a ")
+    ("' n/a ' is a missing-value word, not a number", 'missing_word')
+    >>> describe_unusable("1e400")[1], describe_unusable("-inf")[1], describe_unusable("12 um")[1]
+    ('overflow', 'nonfinite', 'not_numeric')
+    """
+    kind = _parse_cell(cell, decimal)[1]
+    if kind is None:
+        raise ValueError(f"{cell!r} is empty or a usable number")
+    return f"{cell!r} {UNUSABLE_NUMBER[kind]}", kind
+
+
 def _label(value: object) -> str | None:
-    """A grouping label as text (``None`` when missing); whole-number floats lose their ``.0``."""
-    if _is_missing(value):
+    """A grouping label as trimmed text; ``None`` when empty or a missing-value word; ``2.0`` gives ``"2"``."""
+    if _is_empty(value) or _is_missing_word(value):
         return None
     if isinstance(value, float) and value.is_integer():
         return str(int(value))
-    return str(value)
+    return str(value).strip()
 
 
 def _blank_rows(frame: pd.DataFrame) -> np.ndarray:
@@ -111,9 +164,7 @@ def _blank_rows(frame: pd.DataFrame) -> np.ndarray:
         return np.zeros(len(frame), dtype=bool)
     blank = np.ones(len(frame), dtype=bool)
     for col in frame.columns:
-        cells = frame[col].tolist()
-        blank &= np.array([v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
-                           or (isinstance(v, str) and not v.strip()) for v in cells], dtype=bool)
+        blank &= np.array([_is_empty(v) for v in frame[col].tolist()], dtype=bool)
     return blank
 
 
@@ -153,27 +204,57 @@ def _check_columns(raw: RawTable, mapping: ColumnMapping) -> None:
         ])
 
 
+#: What to do about an unusable number cell, by the column's role and by the kind of problem (see
+#: :data:`UNUSABLE_NUMBER`; an overflow gets the non-finite hint); ``{decimal}`` becomes the decimal mark.
+_NUMBER_HINTS: dict[str, dict[str, str]] = {
+    "size": {
+        "missing_word": "write the measured size; leave the cell empty only where a third or later daughter is "
+                        "absent, and remove the row if the junction was not measured",
+        "nonfinite": "write a finite positive size",
+        "not_numeric": "write sizes as plain numbers (decimal {decimal}), or leave the cell empty for no value",
+    },
+    "se": {
+        "missing_word": "write the standard error as a number, or leave the cell empty if it is not known (the "
+                        "row is then kept with that reading's absolute error unknown)",
+        "nonfinite": "write standard errors as finite non-negative numbers",
+        "not_numeric": "write standard errors as plain non-negative numbers (decimal {decimal})",
+    },
+    "repeat": {
+        "missing_word": "write the reading as a number, or remove the row if it was not taken",
+        "nonfinite": "write repeat readings as finite positive numbers",
+        "not_numeric": "write repeat readings as plain numbers (decimal {decimal})",
+    },
+}
+
+
+def _parse_column(cells: pd.Series, rows: np.ndarray, column: str, role: str, decimal: str,
+                  out: _Collector) -> tuple[np.ndarray, np.ndarray]:
+    """Parse a number column, reporting every unusable cell as fatal; as :func:`parse_numbers`."""
+    values, bad = parse_numbers(cells, decimal)
+    mark = "comma" if decimal == "," else "point"
+    for i in np.flatnonzero(bad):
+        message, kind = describe_unusable(cells.iloc[i], decimal)
+        if kind in ("nonfinite", "overflow"):
+            kind, code = "nonfinite", f"nonfinite_{role}"
+        else:
+            code = kind
+        out.add("fatal", rows[i], column, message, _NUMBER_HINTS[role][kind].format(decimal=mark), code)
+    return values, bad
+
+
 def _parse_sizes(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping,
                  out: _Collector) -> np.ndarray:
     """Sizes as floats, shape (n, 1 + K): parent first, then daughter columns in the user's order."""
     sizes = np.empty((len(sub), len(mapping.size_columns)))
     for j, col in enumerate(mapping.size_columns):
         role = "parent" if j == 0 else f"daughter {j}"
-        values, bad = parse_numbers(sub[col], raw.decimal)
-        for i in np.flatnonzero(bad):
-            out.add("fatal", rows[i], col, f"{sub[col].iloc[i]!r} is not a number",
-                    "write sizes as plain numbers (decimal "
-                    + ("comma" if raw.decimal == "," else "point") + "), or leave the cell empty for no value",
-                    "not_numeric")
+        values, bad = _parse_column(sub[col], rows, col, "size", raw.decimal, out)
         if j <= 2:
             for i in np.flatnonzero(np.isnan(values) & ~bad):
                 out.add("fatal", rows[i], col, f"the {role} size is missing",
                         "fill it in, or remove the row: every junction needs a parent and at least two daughters"
                         " (the first two daughter columns)", "missing_size")
-        for i in np.flatnonzero(np.isinf(values)):
-            out.add("fatal", rows[i], col, f"the {role} size is infinite", "write a finite positive size",
-                    "nonfinite_size")
-        for i in np.flatnonzero(np.isfinite(values) & (values <= 0)):
+        for i in np.flatnonzero(values <= 0):
             out.add("fatal", rows[i], col, f"the {role} size is {_fmt(values[i])}; sizes must be positive",
                     "correct the value, or leave a third or later daughter cell empty if that daughter is absent",
                     "nonpositive_size")
@@ -188,12 +269,9 @@ def _parse_se(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: Colum
     if not mapping.se:
         return se
     for j, col in enumerate(mapping.se):
-        values, bad = parse_numbers(sub[col], raw.decimal)
-        for i in np.flatnonzero(bad):
-            out.add("fatal", rows[i], col, f"standard error {sub[col].iloc[i]!r} is not a number",
-                    "write standard errors as plain non-negative numbers", "not_numeric")
-        for i in np.flatnonzero(~np.isnan(values) & ~(np.isfinite(values) & (values >= 0))):
-            out.add("fatal", rows[i], col, f"standard error {_fmt(values[i])} is negative or infinite",
+        values, _ = _parse_column(sub[col], rows, col, "se", raw.decimal, out)
+        for i in np.flatnonzero(values < 0):
+            out.add("fatal", rows[i], col, f"standard error {_fmt(values[i])} is negative",
                     "write standard errors as finite non-negative numbers", "bad_se")
         if len(mapping.se) == 1:
             se[:] = values[:, None]
@@ -390,17 +468,14 @@ def _build_repeats(raw: RawTable, mapping: ColumnMapping, data: pd.DataFrame, sl
     daughters_named = {name: k for k, name in enumerate(mapping.daughters)}
     allowed = ", ".join(repr(n) for n in ("parent", *mapping.daughters))
 
-    values, bad = parse_numbers(sub["value"], raw.decimal)
+    values, bad = _parse_column(sub["value"], rows, "value", "repeat", raw.decimal, out)
     out_rows: list[dict[str, object]] = []
     specimens = [_label(v) for v in sub["specimen"].tolist()] if has_specimen else [None] * len(sub)
     junctions = [_label(v) for v in sub["junction"].tolist()]
     segments = [_label(v) for v in sub["segment"].tolist()]
     for i, row in enumerate(rows):
         value = values[i]
-        if bad[i]:
-            out.add("fatal", row, "value", f"{sub['value'].iloc[i]!r} is not a number",
-                    "write repeat readings as plain numbers", "not_numeric")
-        elif not (np.isfinite(value) and value > 0):
+        if not bad[i] and not value > 0:
             what = "missing" if np.isnan(value) else f"{_fmt(value)}"
             out.add("fatal", row, "value", f"the repeat reading is {what}; readings must be positive numbers",
                     "correct the value or remove the row", "bad_repeat")
