@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import json
 
 import arviz as az
 import matplotlib
@@ -13,13 +14,21 @@ import pytest
 from matplotlib.collections import PathCollection
 from matplotlib.image import imread
 
+import allobranch as ab
 from allobranch.geometry.curves import iso_exponent_band, iso_exponent_curve, smaller_ratio, symmetric_ratio
+from allobranch.inference.results import FitResult
+from allobranch.model.asymmetry import estimate_sigma_asym
+from allobranch.model.data import model_data
+from allobranch.model.spec import ModelSpec
+from allobranch.reporting.checks import CHECK_COLUMNS, PPP_TAIL, ppc_checks, ppc_pvalues, ppc_warnings
 from allobranch.reporting.plots import (
-    plot_diagnostics, plot_exponents, plot_law_comparison, plot_naive_vs_model, plot_ppc_parent,
+    plot_diagnostics, plot_exponents, plot_law_comparison, plot_naive_vs_model, plot_ppc_check,
     plot_ratio_plane,
 )
+from allobranch.reporting.plots.laws import ELPD_DIFF_MAX, LOG10_BF_LIMITS
 from allobranch.reporting.style import (
-    CLASSIC_LAW_STYLES, HOUSE_RC, MM_PER_INCH, WIDTHS_MM, figure, house_style, law_styles, save_figure,
+    CLASSIC_LAW_STYLES, HOUSE_RC, MM_PER_INCH, SMALL_PT, TEXT_PT, WIDTHS_MM, figure, house_style, law_styles,
+    save_figure,
 )
 
 LAWS = {"Rall (a=1.5)": 1.5, "da Vinci (a=2)": 2.0, "Murray (a=3)": 3.0}
@@ -84,20 +93,66 @@ def fake_laws() -> pd.DataFrame:
     return df
 
 
-def fake_ppc(seed: int = 0, n_draws: int = 30) -> pd.DataFrame:
-    """Posterior predictive table: observed parent radii and ``n_draws`` predicted sets per taxon."""
+def fake_checks(seed: int = 0, n_draws: int = 30) -> pd.DataFrame:
+    """Posterior predictive checks table: law residuals (observed per draw) and splits (observed once)."""
     rng = np.random.default_rng(seed)
     parts = []
-    for taxon, scale, n in (("Rattus", 0.2, 25), ("Sus", 1.5, 40), ("Quercus", 8.0, 18)):
-        obs = scale * rng.lognormal(0, 0.6, n)
-        parts.append(pd.DataFrame({"taxon": taxon, "source": "observed", "value": obs, "draw": -1}))
-        pred = scale * rng.lognormal(0, 0.65, (n_draws, n))
-        parts.append(pd.DataFrame({
-            "taxon": taxon, "source": "predicted", "value": pred.ravel(), "draw": np.repeat(np.arange(n_draws), n),
-        }))
-    out = pd.concat(parts, ignore_index=True)
-    out.attrs["unit"] = "mm"
-    return out
+    for taxon, n in (("Rattus", 25), ("Sus", 40), ("Quercus", 18)):
+        junction = [f"{taxon}/j{k}" for k in range(n)]
+        base = rng.normal(0, 0.06, n)
+        split = rng.uniform(0.4, 1.0, n)
+        parts.append(pd.DataFrame({"check": "split", "taxon": taxon, "junction": junction, "source": "observed",
+                                   "draw": -1, "value": split}))
+        for d in range(n_draws):
+            parts += [
+                pd.DataFrame({"check": "law_residual", "taxon": taxon, "junction": junction, "source": "observed",
+                              "draw": d, "value": base + rng.normal(0, 0.005)}),
+                pd.DataFrame({"check": "law_residual", "taxon": taxon, "junction": junction,
+                              "source": "replicated", "draw": d, "value": rng.normal(0, 0.06, n)}),
+                pd.DataFrame({"check": "split", "taxon": taxon, "junction": junction, "source": "replicated",
+                              "draw": d, "value": rng.uniform(0.4, 1.0, n)}),
+            ]
+    return pd.concat(parts, ignore_index=True)
+
+
+def fake_fit(seed: int = 0, exponent: float | None = None, asymmetry_factor: float = 1.0,
+             settings: dict | None = None) -> FitResult:
+    """A FitResult without sampling: simulated junctions and posterior draws scattered about the truth.
+
+    ``exponent`` puts every specimen's exponent at that value instead (a wrong posterior);
+    ``asymmetry_factor`` scales the asymmetry scale the fit records.
+    """
+    sim = ab.simulate_junctions(taxa=2, specimens_per_taxon=2, junctions_per_specimen=15, rel_error=0.05,
+                                seed=seed)
+    table = ab.read_junctions(sim.frame, sim.mapping)
+    data = model_data(table)
+    rng = np.random.default_rng(seed)
+    chains, draws = 2, 100
+    shape = (chains, draws)
+    truth = np.array([sim.truth["a_specimen"][s] for s in data.specimens])
+    a_spec = (np.full(truth.shape, float(exponent)) if exponent is not None else truth) + rng.normal(
+        0, 0.03, (*shape, len(truth)))
+    a_taxon = np.stack([a_spec[..., data.specimen_taxon_idx == t].mean(-1) for t in range(len(data.taxa))], -1)
+    posterior = {"mu": a_taxon.mean(-1) + rng.normal(0, 0.02, shape), "a_taxon": a_taxon, "a_specimen": a_spec,
+                 "tau_taxon": np.abs(rng.normal(0.2, 0.05, shape)),
+                 "tau_specimen": np.abs(rng.normal(0.1, 0.03, shape)),
+                 "sigma_dev": np.abs(rng.normal(sim.truth["sigma_dev"], 0.003, shape))}
+    idata = az.from_dict(
+        posterior=posterior,
+        sample_stats={"diverging": np.zeros(shape, bool), "energy": rng.normal(0, 1, shape)},
+        observed_data={"log_parent": data.log_parent},
+        coords={"taxon": data.taxa, "specimen": data.specimens, "junction": data.junctions},
+        dims={"a_taxon": ["taxon"], "a_specimen": ["specimen"], "log_parent": ["junction"]},
+    )
+    asym = estimate_sigma_asym(data, 0.05) * asymmetry_factor
+    base = {"draws": draws, "tune": draws, "chains": chains, "seed": seed, "sampler": "nutpie",
+            "target_accept": 0.9, "seconds": 1.0, "form": "fast", "error_mode": "known",
+            "sigma_asym_empirical": dict(zip(data.taxa, map(float, asym)))}
+    settings = {**base, **(settings or {})}
+    idata.attrs["allobranch_provenance"] = json.dumps({
+        "input_sha256": table.digest(), "source": table.source, "settings": settings,
+        "versions": {"allobranch": ab.__version__}})
+    return FitResult(idata=idata, table=table, spec=ModelSpec(), settings=settings)
 
 
 def fake_naive(seed: int = 0) -> pd.DataFrame:
@@ -187,11 +242,59 @@ def test_figure_width_in_millimetres():
         figure("triple")
 
 
-def test_house_style_is_print_legible_and_embeds_fonts():
-    # journals ask for 6-9 pt text at final size and embedded TrueType fonts
-    for key in ("font.size", "axes.labelsize", "xtick.labelsize", "ytick.labelsize", "legend.fontsize"):
-        assert 7 <= HOUSE_RC[key] <= 9
+# Journal guidance for figures at final print size:
+# - Nature research figure guide, "Building and exporting figure panels": single column 89 mm, double column
+#   183 mm; text between 5 pt and 7 pt; fonts embedded (TrueType, Type 42).
+# - Elsevier, "Artwork sizing": lettering 7 pt for normal text, no smaller than 6 pt (sub/superscripts);
+#   "a rule-of-thumb rather than a strict rule". Elsevier's column widths (single 90 mm, 1.5 columns 140 mm,
+#   double 190 mm) are written from memory.
+NATURE_WIDTHS_MM = {"single": 89.0, "double": 183.0}
+ELSEVIER_WIDTHS_MM = {"single": 90.0, "double": 190.0}  # from memory
+NATURE_TEXT_PT = (5.0, 7.0)
+ELSEVIER_TEXT_PT, ELSEVIER_MIN_PT = 7.0, 6.0
+
+
+def test_widths_fit_journal_columns():
+    for name in ("single", "double"):
+        # a figure at our width fits the column without being scaled down (Nature guide; Elsevier from memory)
+        assert WIDTHS_MM[name] <= NATURE_WIDTHS_MM[name]
+        assert WIDTHS_MM[name] <= ELSEVIER_WIDTHS_MM[name]
+    # and fills most of it, so it is not blown up either (common practice, no single source)
+    assert WIDTHS_MM["single"] >= 0.9 * NATURE_WIDTHS_MM["single"]
+    assert WIDTHS_MM["double"] >= 0.9 * NATURE_WIDTHS_MM["double"]
+
+
+def test_house_style_font_sizes_follow_journal_guidance():
+    # ordinary text at 7 pt: the top of Nature's 5-7 pt range and Elsevier's 7 pt; fonts embedded (Nature guide)
+    assert TEXT_PT == ELSEVIER_TEXT_PT and NATURE_TEXT_PT[0] <= TEXT_PT <= NATURE_TEXT_PT[1]
+    assert max(NATURE_TEXT_PT[0], ELSEVIER_MIN_PT) <= SMALL_PT <= TEXT_PT
+    for key in ("font.size", "axes.titlesize", "axes.labelsize", "xtick.labelsize", "ytick.labelsize",
+                "legend.fontsize", "legend.title_fontsize", "figure.titlesize"):
+        assert HOUSE_RC[key] == TEXT_PT, key
     assert HOUSE_RC["pdf.fonttype"] == 42
+
+
+def _texts(fig) -> list:
+    return [t for t in fig.findobj(matplotlib.text.Text) if t.get_visible() and t.get_text().strip()]
+
+
+def test_every_figure_text_within_journal_sizes():
+    # every visible text of every figure, ArviZ's panels included, between Elsevier's 6 pt minimum and
+    # Nature's 7 pt maximum (sources above)
+    figures = [
+        plot_exponents(fake_exponents(), laws=LAWS).figure,
+        plot_ratio_plane(fake_geometry(), LAWS, fake_exponents()).figure,
+        plot_law_comparison(fake_laws())[0].figure,
+        plot_ppc_check(fake_checks(), "law_residual", pvalues=ppc_pvalues(fake_checks(n_draws=5)))[0].figure,
+        plot_ppc_check(fake_checks(), "split")[0].figure,
+        plot_naive_vs_model(fake_naive()).figure,
+        plot_diagnostics(fake_idata(), ["mu", "a_taxon"])[0].figure,
+    ]
+    for fig in figures:
+        sizes = {round(t.get_fontsize(), 3) for t in _texts(fig)}
+        assert sizes and min(sizes) >= ELSEVIER_MIN_PT and max(sizes) <= NATURE_TEXT_PT[1], sizes
+        width_mm = fig.get_figwidth() * MM_PER_INCH
+        assert any(width_mm == pytest.approx(w) for w in WIDTHS_MM.values()), width_mm
 
 
 def test_law_styles_distinct_in_greyscale():
@@ -206,7 +309,7 @@ def test_plots_leave_user_rcparams_unchanged():
     plot_exponents(fake_exponents(), laws=LAWS)
     plot_ratio_plane(fake_geometry(), LAWS, fake_exponents())
     plot_law_comparison(fake_laws())
-    plot_ppc_parent(fake_ppc())
+    plot_ppc_check(fake_checks(), "law_residual")
     plot_naive_vs_model(fake_naive())
     plot_diagnostics(fake_idata(), ["mu"])
     assert _rc_snapshot() == before
@@ -402,54 +505,134 @@ def test_law_comparison_rejects_wrong_axes():
         plot_law_comparison(fake_laws(), axes=[ax])
 
 
+def test_law_comparison_clips_far_points_at_stated_limits():
+    laws = fake_laws()
+    laws.loc[1, "log10_bf"] = -87.0  # overall, Rall: far below the lower limit
+    laws.loc[7, "log10_bf"] = 6.2  # Rattus, Murray: above the upper limit
+    laws.loc[5, "elpd_diff"] = 43.0  # Rattus, Rall: a far worse ELPD
+    ax_elpd, ax_bf = plot_law_comparison(laws)
+    lo, hi = LOG10_BF_LIMITS
+    points = {ln.get_gid(): ln for ln in ax_bf.lines if (ln.get_gid() or "").startswith("bf:")}
+    # the clipped points sit on the limits, hollow (white face); the others where they are
+    assert points["bf:overall:Rall (a=1.5)"].get_xdata()[0] == lo
+    assert points["bf:Rattus:Murray (a=3)"].get_xdata()[0] == hi
+    assert points["bf:overall:Rall (a=1.5)"].get_markerfacecolor() == "white"
+    assert points["bf:overall:Murray (a=3)"].get_xdata()[0] == pytest.approx(0.4)
+    notes = {t.get_gid(): t.get_text() for t in ax_bf.texts if (t.get_gid() or "").startswith("bf-clipped:")}
+    assert notes == {"bf-clipped:overall:Rall (a=1.5)": "\u2190 -87", "bf-clipped:Rattus:Murray (a=3)": "6.2 \u2192"}
+    # the axis keeps the region around 0 readable: it ends just beyond the limits, not at -87
+    x0, x1 = ax_bf.get_xlim()
+    assert lo - 1.5 < x0 < lo and hi < x1 < hi + 1.5
+    elpd = next(c for c in ax_elpd.containers if c.lines[0].get_gid() == "elpd:Rattus:Rall (a=1.5)")
+    assert elpd.lines[0].get_xdata()[0] == ELPD_DIFF_MAX
+    assert any(t.get_gid() == "elpd-clipped:Rattus:Rall (a=1.5)" and "43" in t.get_text() for t in ax_elpd.texts)
+    assert ax_elpd.get_xlim()[1] < ELPD_DIFF_MAX * 1.2
+    # the limits are stated on the axes
+    assert f"clipped at {ELPD_DIFF_MAX:g}" in ax_elpd.get_xlabel()
+    assert f"clipped at {lo:g} and {hi:g}" in ax_bf.get_xlabel()
+
+
 # ---------------------------------------------------------------------------------------------------------
-# posterior predictive check
+# posterior predictive checks: plots
 
 
-def test_ppc_panels_per_taxon_log_scale():
-    ppc = fake_ppc(n_draws=30)
-    axes = plot_ppc_parent(ppc, max_draws=20)
-    assert [ax.get_title() for ax in axes] == ["Rattus\n(n = 25)", "Sus\n(n = 40)", "Quercus\n(n = 18)"]
+def test_ppc_panels_per_taxon_and_legend():
+    checks = fake_checks(n_draws=30)
+    axes = plot_ppc_check(checks, "law_residual", max_draws=20)
+    assert [ax.get_title() for ax in axes] == ["Rattus (n = 25)", "Sus (n = 40)", "Quercus (n = 18)"]
     for ax in axes:
-        assert ax.get_xscale() == "log"
-        assert ax.get_xlabel() == "Parent radius (mm)"
-        predicted = [ln for ln in ax.lines if (ln.get_gid() or "").startswith("predicted:")]
+        replicated = [ln for ln in ax.lines if (ln.get_gid() or "").startswith("replicated:")]
         observed = [ln for ln in ax.lines if (ln.get_gid() or "").startswith("observed:")]
-        assert len(predicted) == 20 and len(observed) == 1
+        assert len(replicated) == 20 and len(observed) == 20  # the observed residual depends on the draw
     (legend,) = axes[0].figure.legends
-    assert [t.get_text() for t in legend.get_texts()] == ["predicted (20 draws)", "observed"]
+    assert [t.get_text() for t in legend.get_texts()] == ["replicated (20 draws)",
+                                                          "observed, at each\ndraw's exponent (20)"]
+    assert "Law residual" in axes[0].figure.get_supxlabel()
     assert len(axes[0].figure.axes) == 3  # the fourth grid cell is removed
 
 
-def test_ppc_observed_curve_is_the_ecdf_of_the_data():
-    ppc = fake_ppc()
-    ax = plot_ppc_parent(ppc)[0]
-    obs = np.sort(ppc.loc[(ppc["taxon"] == "Rattus") & (ppc["source"] == "observed"), "value"])
-    (line,) = [ln for ln in ax.lines if ln.get_gid() == "observed:Rattus"]
-    x, y = line.get_data()
+def test_ppc_split_observed_once_and_pvalues_printed():
+    checks = fake_checks()
+    pvalues = ppc_pvalues(checks)
+    axes = plot_ppc_check(checks, "split", pvalues=pvalues)
+    observed = [ln for ln in axes[0].lines if (ln.get_gid() or "").startswith("observed:")]
+    assert len(observed) == 1
+    obs = np.sort(checks.loc[(checks["check"] == "split") & (checks["source"] == "observed")
+                             & (checks["taxon"] == "Rattus"), "value"])
+    x, y = observed[0].get_data()
     # reference definition: the empirical CDF reaches k/n at the k-th smallest value
     assert set(np.round(y, 12)) >= set(np.round(np.arange(1, obs.size + 1) / obs.size, 12))
     assert set(obs) <= set(x)
+    note = next(t for t in axes[0].texts if t.get_gid() == "pvalues:Rattus").get_text()
+    p_sd = pvalues.query("check == 'split' and taxon == 'Rattus' and statistic == 'sd'")["p_value"].iloc[0]
+    assert f"SD: p = {p_sd:.2f}" in note
 
 
-def test_ppc_prints_micrometres_and_wraps_long_taxa():
-    ppc = fake_ppc()
-    ppc["taxon"] = ppc["taxon"].map({"Rattus": "Rattus norvegicus domestica laboratory", "Sus": "Sus",
-                                     "Quercus": "Quercus"})
-    axes = plot_ppc_parent(ppc, unit="um")
-    assert axes[0].get_xlabel() == "Parent radius (µm)"
-    assert axes[0].get_title().count("\n") == 2  # the long name wraps, then the count
-
-
-def test_ppc_rejects_non_positive_radii_and_bad_source():
-    ppc = fake_ppc()
-    ppc.loc[0, "value"] = 0.0
-    with pytest.raises(ValueError, match="positive"):
-        plot_ppc_parent(ppc)
-    ppc = fake_ppc()
-    ppc.loc[0, "source"] = "simulated"
+def test_ppc_plot_rejects_bad_input():
+    with pytest.raises(ValueError, match="check must be"):
+        plot_ppc_check(fake_checks(), "parent")
+    checks = fake_checks()
+    checks.loc[0, "source"] = "simulated"
     with pytest.raises(ValueError, match="simulated"):
-        plot_ppc_parent(ppc)
+        plot_ppc_check(checks, "split")
+    checks = fake_checks()
+    checks.loc[0, "value"] = np.inf
+    with pytest.raises(ValueError, match="finite"):
+        plot_ppc_check(checks, "split")
+    fig, ax = plt.subplots()
+    with pytest.raises(ValueError, match="one Axes per taxon"):
+        plot_ppc_check(fake_checks(), "split", axes=[ax])
+
+
+# ---------------------------------------------------------------------------------------------------------
+# posterior predictive checks: the computation (checks that can fail)
+
+
+def test_ppc_checks_table_shape_and_seed():
+    fit = fake_fit()
+    checks = ppc_checks(fit, n_draws=10, seed=3)
+    assert tuple(checks.columns) == CHECK_COLUMNS
+    n = fit.table.n_junctions
+    # split observed once; law residual observed and replicated per draw; split replicated per draw
+    assert len(checks) == n + 3 * 10 * n
+    assert checks.attrs["n_draws"] == 10
+    pd.testing.assert_frame_equal(checks, ppc_checks(fit, n_draws=10, seed=3))  # same seed, same table
+    assert not checks.equals(ppc_checks(fit, n_draws=10, seed=4))
+
+
+def test_law_residual_observed_is_exact_algebra():
+    # exact algebra: at exponent a, the law's prediction is log((sum r_i^a)^(1/a)) from the observed daughters
+    fit = fake_fit()
+    checks = ppc_checks(fit, n_draws=1)
+    first = checks[(checks["check"] == "law_residual") & (checks["source"] == "observed")].iloc[0]
+    row = fit.table.data.iloc[0]
+    a = float(fit.idata.posterior["a_specimen"].sel(specimen=row["specimen"]).values[0, 0])
+    expected = np.log(row["parent"]) - np.log((row["d1"] ** a + row["d2"] ** a) ** (1 / a))
+    assert first["value"] == pytest.approx(expected, rel=1e-12)
+    split = checks[(checks["check"] == "split") & (checks["source"] == "observed")].iloc[0]
+    assert split["value"] == pytest.approx(min(row["d1"], row["d2"]) / max(row["d1"], row["d2"]), rel=1e-12)
+
+
+def test_checks_pass_at_the_truth_and_fail_at_a_wrong_exponent():
+    # a posterior about the simulated truth reproduces the data; one at a far exponent (1.5 instead of about
+    # 2.5) shifts every observed residual by roughly log(2) * (1/1.5 - 1/2.5) = 0.18 (exact algebra for a
+    # symmetric pair), far outside the replicated spread
+    good = ppc_pvalues(ppc_checks(fake_fit(), n_draws=40, seed=1))
+    assert not good["fails"].any(), good
+    bad = ppc_pvalues(ppc_checks(fake_fit(exponent=1.5), n_draws=40, seed=1))
+    failing = bad[bad["fails"]]
+    assert set(failing.loc[failing["statistic"] == "mean", "check"]) == {"law_residual"}
+    assert set(failing["taxon"]) == set(fake_fit().table.taxa)
+    message = ppc_warnings(bad)
+    assert len(message) == 2 and all(m.startswith("posterior predictive check of the law residual") for m in message)
+
+
+def test_split_check_fails_when_the_asymmetry_is_wrong():
+    # replicated daughters four times as asymmetric as the data: the split's mean and SD leave the data behind
+    bad = ppc_pvalues(ppc_checks(fake_fit(asymmetry_factor=4.0), n_draws=40, seed=1))
+    split = bad[bad["check"] == "split"]
+    assert split["fails"].all(), split
+    assert (split["p_value"] < PPP_TAIL).sum() + (split["p_value"] > 1 - PPP_TAIL).sum() == len(split)
 
 
 # ---------------------------------------------------------------------------------------------------------

@@ -9,18 +9,20 @@ import matplotlib.pyplot as plt
 import pandas as pd
 
 from allobranch.comparison.laws import CLASSIC_LAWS
+from allobranch.reporting.checks import ppc_checks, ppc_pvalues
 from allobranch.reporting.plots import (
     plot_diagnostics,
     plot_exponents,
     plot_law_comparison,
     plot_naive_vs_model,
-    plot_ppc_parent,
+    plot_ppc_check,
     plot_ratio_plane,
 )
 from allobranch.reporting.style import figure, house_style, save_figure
 
 #: Figure files written by :func:`write_figures`, by name (without suffix).
-FIGURE_NAMES = ("exponents", "ratio_plane", "naive_vs_model", "ppc_parent", "law_comparison", "diagnostics")
+FIGURE_NAMES = ("exponents", "ratio_plane", "naive_vs_model", "ppc_residual", "ppc_split", "law_comparison",
+                "diagnostics")
 
 
 #: Short display names of the classic laws in figures.
@@ -32,19 +34,23 @@ def default_laws() -> dict[str, float]:
     return {f"{SHORT_NAMES.get(law.label, law.label)} (a={law.value:g})": law.value for law in CLASSIC_LAWS}
 
 
+def law_display(label: str, value: float) -> str:
+    """A law's figure and report label: ``"Murray (a=3)"``, ``"turbulent (a=2.333)"``; the label alone when
+    ``value`` is not finite (the free model)."""
+    if not pd.notna(value):
+        return str(label)
+    return f"{SHORT_NAMES.get(str(label), str(label))} (a={float(value):.4g})"
+
+
 def display_names(laws_table: pd.DataFrame) -> pd.DataFrame:
     """The laws table with figure labels (``"Murray (a=3)"``, ``"turbulent (a=2.333)"``; ``free`` kept)."""
-    def label(row) -> str:
-        if not pd.notna(row["value"]):
-            return str(row["law"])
-        return f"{SHORT_NAMES.get(str(row['law']), str(row['law']))} (a={float(row['value']):.4g})"
-
     out = laws_table.copy()
-    out["law"] = [label(row) for _, row in out.iterrows()]
+    out["law"] = [law_display(law, value) for law, value in zip(out["law"], out["value"])]
     return out
 
 
-def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str = "single") -> dict:
+def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str = "single",
+                 checks: pd.DataFrame | None = None, pvalues: pd.DataFrame | None = None) -> dict:
     """Draw every figure for ``result`` (a FitResult); returns name -> matplotlib Figure.
 
     Parameters
@@ -55,6 +61,15 @@ def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str =
         p_rope); without it the law-comparison figure is skipped and reference lines show the classic laws.
     width : {"single", "double"}
         Journal column width.
+    checks, pvalues : pandas.DataFrame, optional
+        Posterior predictive checks and their p-values (:func:`~allobranch.reporting.checks.ppc_checks`,
+        :func:`~allobranch.reporting.checks.ppc_pvalues`); computed here, seeded with the fit's seed, when
+        not given.
+
+    Returns
+    -------
+    dict of str to matplotlib.figure.Figure
+        Keys :data:`FIGURE_NAMES` (``law_comparison`` only with a laws table).
     """
     if laws_table is not None:
         laws_table = display_names(laws_table)
@@ -71,8 +86,12 @@ def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str =
         fig, ax = figure(width=width, aspect=0.75)
         plot_naive_vs_model(result.naive_vs_model(), laws=laws, ax=ax)
         figs["naive_vs_model"] = fig
-    axes = plot_ppc_parent(result.ppc_table(), unit=result.table.unit)
-    figs["ppc_parent"] = _figure_of(axes)
+    if checks is None:
+        checks = ppc_checks(result, seed=int(result.settings.get("seed", 0)))
+    if pvalues is None:
+        pvalues = ppc_pvalues(checks)
+    for name, check in (("ppc_residual", "law_residual"), ("ppc_split", "split")):
+        figs[name] = _figure_of(plot_ppc_check(checks, check, pvalues=pvalues))
     if laws_table is not None:
         figs["law_comparison"] = _figure_of(plot_law_comparison(laws_table))
     figs["diagnostics"] = _figure_of(plot_diagnostics(result.idata, result.checked_parameters()[:4]))

@@ -24,8 +24,16 @@ import numpy as np
 #: Millimetres per inch, for converting journal widths.
 MM_PER_INCH = 25.4
 
-#: Figure widths in millimetres: one journal column and the full page width.
+#: Figure widths in millimetres: one journal column and the full page width. 85 mm fits the single
+#: columns of Nature (89 mm) and Elsevier journals (90 mm); 180 mm fits their full widths (183 and 190 mm).
+#: See ``tests/test_plots.py`` for the sources.
 WIDTHS_MM: dict[str, float] = {"single": 85.0, "double": 180.0}
+
+#: Text sizes in points at final print size: ordinary text (labels, ticks, legends, titles) and the
+#: smallest annotation. Nature asks for 5-7 pt, Elsevier for 7 pt text and nothing below 6 pt, so ordinary
+#: text is 7 pt and nothing is smaller than 6 pt (sources in ``tests/test_plots.py``).
+TEXT_PT = 7.0
+SMALL_PT = 6.0
 
 #: Okabe–Ito colours by name.
 OKABE_ITO: dict[str, str] = {
@@ -59,14 +67,14 @@ FIGURE_FORMATS: tuple[str, ...] = ("pdf", "svg", "png", "eps", "tiff", "jpg")
 HOUSE_RC: dict[str, object] = {
     "font.family": "sans-serif",
     "font.sans-serif": ["DejaVu Sans", "Arial", "Helvetica", "Liberation Sans"],
-    "font.size": 8,
-    "axes.titlesize": 8,
-    "axes.labelsize": 8,
-    "xtick.labelsize": 7,
-    "ytick.labelsize": 7,
-    "legend.fontsize": 7,
-    "legend.title_fontsize": 7,
-    "figure.titlesize": 9,
+    "font.size": TEXT_PT,
+    "axes.titlesize": TEXT_PT,
+    "axes.labelsize": TEXT_PT,
+    "xtick.labelsize": TEXT_PT,
+    "ytick.labelsize": TEXT_PT,
+    "legend.fontsize": TEXT_PT,
+    "legend.title_fontsize": TEXT_PT,
+    "figure.titlesize": TEXT_PT,
     "legend.frameon": False,
     "legend.handlelength": 2.6,
     "axes.linewidth": 0.6,
@@ -168,7 +176,7 @@ def house_style() -> contextlib.AbstractContextManager:
     >>> with house_style():
     ...     inside = matplotlib.rcParams["font.size"]
     >>> inside, matplotlib.rcParams["font.size"] == before
-    (8.0, True)
+    (7.0, True)
     """
     return matplotlib.rc_context(HOUSE_RC)
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 from allobranch.reporting.plots.diagnostics import plot_diagnostics
 from allobranch.reporting.plots.exponents import plot_exponents, plot_naive_vs_model
 from allobranch.reporting.plots.laws import plot_law_comparison
-from allobranch.reporting.plots.ppc import plot_ppc_parent
+from allobranch.reporting.plots.ppc import plot_ppc_check
 from allobranch.reporting.plots.ratio_plane import plot_ratio_plane
 
 __all__ = [
@@ -17,6 +17,6 @@ __all__ = [
     "plot_exponents",
     "plot_law_comparison",
     "plot_naive_vs_model",
-    "plot_ppc_parent",
+    "plot_ppc_check",
     "plot_ratio_plane",
 ]

@@ -7,7 +7,7 @@ from collections.abc import Sequence
 import arviz as az
 import numpy as np
 
-from allobranch.reporting.style import figure, house_style
+from allobranch.reporting.style import SMALL_PT, TEXT_PT, figure, house_style
 
 #: Height of one row of diagnostic panels in millimetres.
 PANEL_MM = 38.0
@@ -65,10 +65,10 @@ def plot_diagnostics(idata: az.InferenceData, var_names: Sequence[str], *, width
         axes = np.array([*grid[:-1].ravel()[:n_rank], energy_ax], dtype=object)
         az.plot_rank(idata, var_names=var_names, ax=axes[:n_rank], ref_line=True)
         if "sample_stats" in idata.groups() and "energy" in idata.sample_stats:
-            az.plot_energy(idata, ax=energy_ax, textsize=7, legend=True)
+            az.plot_energy(idata, ax=energy_ax, textsize=TEXT_PT, legend=True)
             # move ArviZ's legend (densities and BFMI per chain) beside the panel, off the densities
             handles, labels = energy_ax.get_legend_handles_labels()
-            energy_ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=6,
+            energy_ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=SMALL_PT,
                              borderaxespad=0.0)
         else:
             energy_ax.text(0.5, 0.5, "energy not recorded\nby the sampler", ha="center", va="center",

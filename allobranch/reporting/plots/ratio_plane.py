@@ -10,7 +10,7 @@ from allobranch.reporting.plots._common import (
     EXPONENT_COLUMNS, LawsLike, hdi_percent, law_values, legend_above, require_columns,
 )
 from allobranch.reporting.style import (
-    DATA_COLOR, FLAG_COLOR, FLAG_MARKER, LIGHT_GREY, OKABE_ITO, house_style, law_styles, new_axes,
+    DATA_COLOR, FLAG_COLOR, FLAG_MARKER, LIGHT_GREY, OKABE_ITO, SMALL_PT, house_style, law_styles, new_axes,
 )
 
 #: Columns of the junction geometry table this plot reads.
@@ -112,7 +112,7 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         y_hi = max([*y[placed], *sym]) + 0.04
         ax.plot([0, 2], [0, 2], color=LIGHT_GREY, lw=0.6, zorder=0)
         ax.text(x_lo + 0.012, x_lo + 0.03, "symmetric (x = y)", rotation=45, rotation_mode="anchor",
-                fontsize=6, color="#888888", va="bottom", ha="left", transform_rotates_text=True)
+                fontsize=SMALL_PT, color="#888888", va="bottom", ha="left", transform_rotates_text=True)
         if np.any(x[placed] >= 1):
             ax.axvline(1.0, color="#888888", lw=0.8, linestyle=":", zorder=0, gid="parent-line",
                        label="daughter = parent")
@@ -123,6 +123,6 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         n_missing = int((~placed).sum())
         if n_missing:
             ax.text(0.02, 0.02, f"{n_missing} junction(s) without valid sizes\nof a parent and two daughters not shown",
-                    transform=ax.transAxes, fontsize=6, color="#555555", va="bottom", gid="missing-note")
+                    transform=ax.transAxes, fontsize=SMALL_PT, color="#555555", va="bottom", gid="missing-note")
         legend_above(ax)
     return ax
