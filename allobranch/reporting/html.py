@@ -1,33 +1,42 @@
-"""A one-file, offline HTML report built from plain data (tables, strings, figures).
+"""A one-file, offline HTML report rendered from a jinja2 template and plain data (tables, text, figures).
 
-The report depends on nothing but its inputs: DataFrames, strings, lists of warnings and figures (matplotlib
-Figures or image files). Figures are embedded as base64 ``data:`` URIs and the CSS is inline, so the file
-opens anywhere without a network connection. Every piece of user-provided text is HTML-escaped.
+The report depends on nothing but its inputs: DataFrames, strings, warnings and figures (matplotlib Figures
+or image files). Figures are embedded as base64 ``data:`` URIs and the CSS is inline, so the file opens
+anywhere without a network connection. The template (``templates/report.html``) escapes every piece of
+text (jinja2 autoescaping).
+
+Order: the answer first (exponent per taxon with its interval and the law verdict, beside the forest
+figure), then the evidence, the diagnostics and warnings, the data and its validation flags, the methods and
+the research-use caution.
 """
 
 from __future__ import annotations
 
 import base64
-import html
 import io
 import math
 import numbers
 import os
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 from pathlib import Path
 
+import jinja2
 import pandas as pd
 from matplotlib.figure import Figure
 
 from allobranch.reporting.style import atomic_write, house_style
+from allobranch.reporting.warning_groups import WarningGroup, group_warnings
 
-#: Shown in every report, near the top; not optional.
+#: Shown in every report; not optional.
 CAUTION = (
     "allobranch is a research tool. Branching exponents estimated from casts, scans or images are not "
     "clinical measurements: do not use them to diagnose, treat or make any decision about a patient, and "
     "defer to qualified professionals for such decisions. Results depend on where along each segment the "
-    "radii were measured, on segmentation quality and on the model's assumptions stated below."
+    "radii were measured, on segmentation quality and on the model's assumptions stated under Methods."
 )
+#: One line under the title pointing at the caution.
+CAUTION_SHORT = "Research tool: not for clinical decisions."
 
 #: Sentence placed above the methods paragraph.
 METHODS_NOTE = (
@@ -43,196 +52,317 @@ IMAGE_TYPES: dict[str, str] = {
 
 #: Resolution of matplotlib figures rendered into the report.
 REPORT_DPI = 150
+#: Figures at least this wide (inches) span the page instead of sharing a row.
+WIDE_FIGURE_IN = 5.0
+
+#: Report sections: anchor and heading, in order (the contents line).
+SECTIONS: tuple[tuple[str, str], ...] = (
+    ("answer", "Answer"),
+    ("evidence", "Evidence"),
+    ("diagnostics", "Diagnostics and warnings"),
+    ("data", "Data and flags"),
+    ("methods", "Methods"),
+    ("caution", "Caution"),
+)
+#: Columns that may hold sentences: their text cells get room to wrap.
+LONG_TEXT_COLUMNS: tuple[str, ...] = ("message", "hint", "reason", "meaning", "value")
 
 #: A figure for the report: a matplotlib Figure or the path of an image file.
 FigureLike = Figure | str | os.PathLike
 #: A table for the report: a DataFrame, or a mapping shown as two columns (item, value).
 Table = pd.DataFrame | Mapping[str, object]
 
-_CSS = """
-body { font-family: system-ui, -apple-system, "Segoe UI", "DejaVu Sans", Arial, sans-serif; margin: 0;
-       color: #1a1a1a; background: #fff; line-height: 1.45; }
-main { max-width: 60rem; margin: 0 auto; padding: 1.5rem 1.25rem 3rem; }
-h1 { font-size: 1.6rem; margin: 0 0 1rem; }
-h2 { font-size: 1.25rem; margin: 2rem 0 0.6rem; border-bottom: 1px solid #ddd; padding-bottom: 0.2rem; }
-h3 { font-size: 1.05rem; margin: 1.2rem 0 0.4rem; }
-.box { border: 2px solid; border-radius: 6px; padding: 0.6rem 1rem; margin: 0 0 1rem; }
-.box h2 { border: none; margin: 0 0 0.3rem; font-size: 1.1rem; }
-.warn { border-color: #D55E00; background: #fff3ea; }
-.ok { border-color: #009E73; background: #eefaf5; }
-.caution { border-color: #444; background: #f4f4f4; }
-nav ol { columns: 2; margin: 0.3rem 0 0; }
-table { border-collapse: collapse; margin: 0.4rem 0 1rem; font-size: 0.88rem; }
-th, td { border: 1px solid #ccc; padding: 0.2rem 0.5rem; text-align: left; vertical-align: top; }
-th { background: #f0f0f0; }
-td.num { text-align: right; font-variant-numeric: tabular-nums; }
-.scroll { max-height: 28rem; overflow: auto; }
-figure { margin: 1rem 0; }
-figure img { max-width: 100%; height: auto; border: 1px solid #eee; }
-figcaption { font-size: 0.9rem; color: #444; }
-.methods { border-left: 4px solid #0072B2; background: #f5f9fc; padding: 0.5rem 1rem; }
-.muted { color: #666; font-size: 0.9rem; }
-footer { margin-top: 2.5rem; font-size: 0.85rem; color: #555; }
-@media print { .scroll { max-height: none; overflow: visible; } nav { display: none; } }
-"""
+_ENV = jinja2.Environment(
+    loader=jinja2.PackageLoader("allobranch.reporting", "templates"),
+    autoescape=True,
+    undefined=jinja2.StrictUndefined,
+    keep_trailing_newline=True,
+)
 
 
-def _esc(text: object) -> str:
-    return html.escape(str(text), quote=True)
+@dataclass(frozen=True)
+class Cell:
+    """One table cell: its text (escaped by the template) and CSS class."""
+
+    text: str
+    cls: str = ""
 
 
-def _format_cell(value: object) -> tuple[str, bool]:
-    """Cell text (escaped) and whether it is numeric."""
-    if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA:
+@dataclass
+class TableView:
+    """A table ready for the template."""
+
+    columns: list[str]
+    rows: list[list[Cell]]
+    scroll: bool = False
+    wide: bool = False
+    id: str = ""
+
+
+@dataclass(frozen=True)
+class FigureView:
+    """An embedded figure: ``data:`` URI, caption (also the alt text) and whether it spans the page."""
+
+    uri: str
+    caption: str
+    wide: bool = False
+
+
+def format_cell(value: object) -> tuple[str, bool]:
+    """Cell text (not escaped) and whether it is numeric.
+
+    Parameters
+    ----------
+    value : object
+
+    Returns
+    -------
+    (str, bool)
+        Missing values give an em dash; booleans "yes"/"no"; reals four significant digits.
+    """
+    if value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value)):
         return "—", False
     if isinstance(value, bool):
         return ("yes" if value else "no"), False
     if isinstance(value, numbers.Integral):
-        return _esc(f"{int(value):d}"), True
+        return f"{int(value):d}", True
     if isinstance(value, numbers.Real):
-        return _esc(f"{float(value):.4g}"), True
-    return _esc(value), False
+        return f"{float(value):.4g}", True
+    return str(value), False
 
 
-def _table(table: Table | None, *, scroll: bool = False) -> str:
-    """An HTML table of a DataFrame, or of a mapping as two columns (item, value); "" for None."""
+def table_view(table: Table | None, *, scroll: bool = False, wide: bool = False, id: str = "") -> TableView | None:
+    """A :class:`TableView` of a DataFrame, or of a mapping as two columns (item, value); None for None.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame, mapping or None
+    scroll : bool
+        Put the table in a box with a vertical scroll bar (long tables).
+    wide : bool
+        Let the table take the page's width, so long text wraps.
+    id : str
+        HTML id of the table.
+
+    Returns
+    -------
+    TableView or None
+    """
     if table is None:
-        return ""
+        return None
     if not isinstance(table, pd.DataFrame):
         table = pd.DataFrame({"item": list(table.keys()), "value": list(table.values())})
-    head = "".join(f"<th>{_esc(c)}</th>" for c in table.columns)
+    long = [str(c) in LONG_TEXT_COLUMNS for c in table.columns]
     rows = []
     for values in table.itertuples(index=False, name=None):
         cells = []
-        for v in values:
-            text, numeric = _format_cell(v)
-            cells.append(f'<td class="num">{text}</td>' if numeric else f"<td>{text}</td>")
-        rows.append(f"<tr>{''.join(cells)}</tr>")
-    body = f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
-    return f'<div class="scroll">{body}</div>' if scroll else body
+        for v, is_long in zip(values, long):
+            text, numeric = format_cell(v)
+            cells.append(Cell(text, "num" if numeric else "long" if is_long else ""))
+        rows.append(cells)
+    return TableView([str(c) for c in table.columns], rows, scroll=scroll, wide=wide, id=id)
 
 
-def _paragraphs(text: str | Sequence[str]) -> str:
-    """Escaped paragraphs: a string is split at blank lines, a sequence gives one paragraph per item."""
-    items = [p for p in (text.split("\n\n") if isinstance(text, str) else text)]
-    return "".join(f"<p>{_esc(p.strip())}</p>" for p in items if str(p).strip())
-
-
-def _bullets(items: Sequence[str]) -> str:
-    """An escaped bullet list; "" when empty."""
-    return "<ul>" + "".join(f"<li>{_esc(i)}</li>" for i in items) + "</ul>" if len(items) else ""
-
-
-def _figure_uri(fig: FigureLike) -> str:
-    """A ``data:`` URI of a matplotlib figure (PNG) or of an image file."""
+def _figure_bytes(fig: FigureLike) -> tuple[bytes, str, float]:
+    """Bytes, MIME type and width in inches (0 when unknown) of a figure."""
     if isinstance(fig, Figure):
         buf = io.BytesIO()
         with house_style():
             fig.savefig(buf, format="png", dpi=REPORT_DPI)
-        data, mime = buf.getvalue(), "image/png"
-    elif isinstance(fig, (str, os.PathLike)):
+        return buf.getvalue(), "image/png", float(fig.get_figwidth())
+    if isinstance(fig, (str, os.PathLike)):
         path = Path(fig)
         mime = IMAGE_TYPES.get(path.suffix.lower())
         if mime is None:
             raise ValueError(f"figure file {str(path)!r} must be one of {sorted(IMAGE_TYPES)}")
         if not path.is_file():
             raise FileNotFoundError(f"figure file {str(path)!r} does not exist")
-        data = path.read_bytes()
-    else:
-        raise TypeError(f"a figure must be a matplotlib Figure or an image path; got {type(fig).__name__}")
-    return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+        return path.read_bytes(), mime, 0.0
+    raise TypeError(f"a figure must be a matplotlib Figure or an image path; got {type(fig).__name__}")
 
 
-def _figures(figures: Mapping[str, FigureLike] | None) -> str:
+def figure_views(figures: Mapping[str, FigureLike] | None) -> list[FigureView]:
+    """Embedded figures, by caption: matplotlib Figures become PNG, image files are embedded as they are.
+
+    Parameters
+    ----------
+    figures : mapping of str to figure, optional
+
+    Returns
+    -------
+    list of FigureView
+    """
     out = []
     for caption, fig in (figures or {}).items():
-        out.append(f'<figure><img src="{_figure_uri(fig)}" alt="{_esc(caption)}">'
-                   f"<figcaption>{_esc(caption)}</figcaption></figure>")
-    return "".join(out)
+        data, mime, width_in = _figure_bytes(fig)
+        uri = f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+        out.append(FigureView(uri, str(caption), wide=width_in >= WIDE_FIGURE_IN))
+    return out
 
 
-def _section(anchor: str, heading: str, body: str) -> str:
-    if not body:
-        body = '<p class="muted">Not provided.</p>'
-    return f'<section id="{anchor}"><h2>{_esc(heading)}</h2>{body}</section>'
+def _paragraphs(text: str | Sequence[str]) -> list[str]:
+    """Paragraphs: a string is split at blank lines, a sequence gives one paragraph per item."""
+    items = text.split("\n\n") if isinstance(text, str) else [str(t) for t in text]
+    return [" ".join(p.split()) for p in items if p.strip()]
 
 
-def _subsection(heading: str, body: str) -> str:
-    return f"<h3>{_esc(heading)}</h3>{body}" if body else ""
+def flags_view(flags: pd.DataFrame | None) -> tuple[TableView | None, list[str]]:
+    """The validation-flags table and the sentences above it.
+
+    The ``file`` column is dropped (and named in a sentence) when every flag comes from one file; message and
+    hint columns wrap.
+
+    Parameters
+    ----------
+    flags : pandas.DataFrame, optional
+        One row per validation problem (:meth:`allobranch.ValidationReport.to_frame`).
+
+    Returns
+    -------
+    (TableView or None, list of str)
+    """
+    if flags is None:
+        return None, ["Not provided."]
+    if flags.empty:
+        return None, ["No rows were flagged or excluded."]
+    notes = [f"{len(flags)} row(s) flagged or excluded; flagged junctions are kept in the model."]
+    if "file" in flags and flags["file"].nunique(dropna=False) == 1:
+        notes.append(f"All refer to {flags['file'].iloc[0]}; row numbers are as you see them in that file.")
+        flags = flags.drop(columns="file")
+    flags = flags.dropna(axis=1, how="all")
+    return table_view(flags, scroll=len(flags) > 15, wide=True, id="flags"), notes
 
 
-#: Report sections: anchor and heading, in order.
-SECTIONS: tuple[tuple[str, str], ...] = (
-    ("data", "Data summary and validation"),
-    ("model", "Model and priors"),
-    ("diagnostics", "Sampler diagnostics"),
-    ("exponents", "Estimated exponents"),
-    ("laws", "Law comparison and verdicts"),
-    ("methods", "Methods paragraph"),
-)
+def status_line(groups: Sequence[WarningGroup]) -> dict[str, object]:
+    """The line under the title: whether all is well, or how many warnings of which kinds."""
+    if not groups:
+        return {"ok": True, "text": "No warnings: every diagnostic passed."}
+    n = sum(g.count for g in groups)
+    kinds = ", ".join(g.kind for g in groups[:4]) + (", ..." if len(groups) > 4 else "")
+    return {"ok": False, "text": f"{n} warning{'s' if n != 1 else ''} of {len(groups)} kind"
+                                 f"{'s' if len(groups) != 1 else ''} ({kinds})."}
 
 
-def write_html_report(
-    path: str | os.PathLike,
-    *,
-    title: str = "Branching-exponent analysis",
-    warnings: Sequence[str] = (),
-    data_summary: Table | None = None,
-    validation_flags: pd.DataFrame | None = None,
-    data_figures: Mapping[str, FigureLike] | None = None,
-    model_description: str | Sequence[str] = "",
-    priors: Table | None = None,
-    assumptions: Sequence[str] = (),
-    diagnostics: pd.DataFrame | None = None,
-    diagnostic_figures: Mapping[str, FigureLike] | None = None,
-    exponents: pd.DataFrame | None = None,
-    naive: pd.DataFrame | None = None,
-    exponent_figures: Mapping[str, FigureLike] | None = None,
-    laws: pd.DataFrame | None = None,
-    verdicts: Sequence[str] | pd.DataFrame = (),
-    law_figures: Mapping[str, FigureLike] | None = None,
-    methods: str | Sequence[str] = "",
-    provenance: Mapping[str, object] | None = None,
-) -> Path:
+@dataclass
+class ReportParts:
+    """Everything a report shows, as plain data; see :func:`write_html_report` for each field."""
+
+    title: str = "Branching-exponent analysis"
+    answer: pd.DataFrame | None = None
+    answer_figure: Mapping[str, FigureLike] | None = None
+    answer_notes: Sequence[str] = ()
+    answer_heading: str = "Branching exponent per taxon"
+    laws: pd.DataFrame | None = None
+    laws_all_scopes: pd.DataFrame | None = None
+    verdicts: pd.DataFrame | None = None
+    verdict_rule: str = ""
+    law_figures: Mapping[str, FigureLike] | None = None
+    no_laws: str = "No law comparison was run."
+    checks: pd.DataFrame | None = None
+    checks_text: str | Sequence[str] = ""
+    check_figures: Mapping[str, FigureLike] | None = None
+    exponents: pd.DataFrame | None = None
+    naive: pd.DataFrame | None = None
+    exponent_figures: Mapping[str, FigureLike] | None = None
+    warnings: Sequence[str | WarningGroup] = ()
+    warning_notes: Sequence[str] = ()
+    attempts: pd.DataFrame | None = None
+    attempts_sentence: str = ""
+    parametrization: str = ""
+    diagnostics: pd.DataFrame | None = None
+    diagnostic_figures: Mapping[str, FigureLike] | None = None
+    data_summary: Table | None = None
+    validation_flags: pd.DataFrame | None = None
+    data_figures: Mapping[str, FigureLike] | None = None
+    model_description: str | Sequence[str] = ""
+    priors: Table | None = None
+    assumptions: Sequence[str] = ()
+    methods: str | Sequence[str] = ""
+    provenance: Mapping[str, object] = field(default_factory=dict)
+
+
+def _groups(warnings: Sequence[str | WarningGroup]) -> list[WarningGroup]:
+    if all(isinstance(w, WarningGroup) for w in warnings):
+        return list(warnings)
+    return group_warnings(str(w) for w in warnings)
+
+
+def render_report(parts: ReportParts) -> str:
+    """The report's HTML text.
+
+    Parameters
+    ----------
+    parts : ReportParts
+
+    Returns
+    -------
+    str
+    """
+    from allobranch import __version__
+
+    groups = _groups(parts.warnings)
+    flags, flag_notes = flags_view(parts.validation_flags)
+    context = {
+        "title": parts.title,
+        "status": status_line(groups),
+        "caution_short": CAUTION_SHORT,
+        "toc": SECTIONS,
+        "answer": {"heading": parts.answer_heading, "table": table_view(parts.answer, id="answer-table"),
+                   "notes": _paragraphs(parts.answer_notes),
+                   "figure": next(iter(figure_views(parts.answer_figure)), None)},
+        "evidence": {
+            "laws": table_view(parts.laws), "all_scopes": table_view(parts.laws_all_scopes, scroll=True),
+            "verdicts": table_view(parts.verdicts, wide=True), "rule": parts.verdict_rule,
+            "law_figures": figure_views(parts.law_figures), "no_laws": parts.no_laws,
+            "checks": table_view(parts.checks), "checks_text": _paragraphs(parts.checks_text),
+            "check_figures": figure_views(parts.check_figures),
+            "exponents": table_view(parts.exponents, scroll=True), "naive": table_view(parts.naive, scroll=True),
+            "exponent_figures": figure_views(parts.exponent_figures),
+        },
+        "warning_groups": groups,
+        "warning_notes": _paragraphs(parts.warning_notes),
+        "attempts": {"sentence": parts.attempts_sentence, "parametrization": parts.parametrization,
+                     "table": table_view(parts.attempts)},
+        "diagnostics": {"table": table_view(parts.diagnostics, scroll=True),
+                        "figures": figure_views(parts.diagnostic_figures)},
+        "data": {"summary": table_view(parts.data_summary), "flags": flags, "flags_notes": flag_notes,
+                 "figures": figure_views(parts.data_figures)},
+        "methods": {"model": _paragraphs(parts.model_description), "priors": table_view(parts.priors),
+                    "assumptions": [str(a) for a in parts.assumptions], "paragraphs": _paragraphs(parts.methods),
+                    "note": METHODS_NOTE},
+        "caution": CAUTION,
+        "provenance": table_view({"allobranch version": __version__, **dict(parts.provenance)}),
+    }
+    return _ENV.get_template("report.html").render(**context)
+
+
+def write_html_report(path: str | os.PathLike, parts: ReportParts | None = None, **fields) -> Path:
     """Write a self-contained HTML report of an analysis.
 
     Parameters
     ----------
     path : str or os.PathLike
         Output file; written atomically (complete or not at all). Its directory must exist.
-    title : str
-        Report title.
-    warnings : sequence of str
-        Everything the reader must see first (failed diagnostics, high Pareto k, flagged data, ...);
-        shown at the top in a coloured box, or a note that there were none.
-    data_summary : pandas.DataFrame or mapping, optional
-        Counts and description of the data (a mapping becomes a two-column table).
-    validation_flags : pandas.DataFrame, optional
-        One row per validation problem (e.g. :meth:`allobranch.ValidationReport.to_frame`).
-    data_figures, diagnostic_figures, exponent_figures, law_figures : mapping of str to figure, optional
-        Figures for each section, by caption: a :class:`matplotlib.figure.Figure` (embedded as PNG) or the
+    parts : ReportParts, optional
+        What the report shows; alternatively give its fields as keywords:
+
+        ``title``; ``answer`` (the answer table: one row per estimate with its interval and verdict),
+        ``answer_figure`` (``{caption: figure}``, shown beside it), ``answer_notes``, ``answer_heading``;
+        ``laws`` (law comparison of the overall scope), ``laws_all_scopes`` (every scope, folded),
+        ``verdicts`` (scope, verdict, reason), ``verdict_rule``, ``law_figures``, ``no_laws`` (shown when
+        there is no comparison); ``checks`` (posterior predictive p-values), ``checks_text``,
+        ``check_figures``; ``exponents``, ``naive``, ``exponent_figures``; ``warnings`` (strings, grouped by
+        kind with :func:`~allobranch.reporting.warning_groups.group_warnings`, or ready
+        :class:`~allobranch.reporting.warning_groups.WarningGroup` objects), ``warning_notes``;
+        ``attempts`` (sampling attempts table), ``attempts_sentence``, ``parametrization``;
+        ``diagnostics``, ``diagnostic_figures``; ``data_summary``, ``validation_flags`` (e.g.
+        :meth:`allobranch.ValidationReport.to_frame`), ``data_figures``; ``model_description``, ``priors``,
+        ``assumptions``, ``methods``; ``provenance`` (the allobranch version is added).
+
+        Figures are mappings from caption to a :class:`matplotlib.figure.Figure` (embedded as PNG) or the
         path of an image file (PNG, JPEG, GIF, SVG or WebP; embedded as it is).
-    model_description : str or sequence of str
-        The model in plain words; a string is split into paragraphs at blank lines.
-    priors : pandas.DataFrame or mapping, optional
-        The priors used, one row per parameter.
-    assumptions : sequence of str
-        Assumptions the results rest on, listed under the model.
-    diagnostics : pandas.DataFrame, optional
-        Sampler diagnostics (R-hat, ESS, divergences, ...).
-    exponents : pandas.DataFrame, optional
-        Exponents table (level, group, taxon, mean, sd, HDI, r_hat, ess_bulk).
-    naive : pandas.DataFrame, optional
-        Naive per-junction summaries, shown beside the model's estimates and labelled as naive.
-    laws : pandas.DataFrame, optional
-        Law comparison table (one row per hypothesis).
-    verdicts : sequence of str or pandas.DataFrame
-        The verdict for each scope, as sentences or as a table.
-    methods : str or sequence of str
-        A methods paragraph the user can adapt.
-    provenance : mapping, optional
-        Package version, data hash, seed, recipe, ... shown at the end. The allobranch version is added
-        when absent.
+    **fields
+        Fields of :class:`ReportParts` (only when ``parts`` is not given).
 
     Returns
     -------
@@ -248,51 +378,11 @@ def write_html_report(
     --------
     >>> import tempfile, pathlib
     >>> out = pathlib.Path(tempfile.mkdtemp()) / "report.html"
-    >>> write_html_report(out, warnings=["2 divergent transitions"]).name
+    >>> write_html_report(out, warnings=["2 divergent transition(s)"]).name
     'report.html'
     """
-    from allobranch import __version__
-
-    warnings = [str(w) for w in warnings]
-    if warnings:
-        warn_box = (f'<section id="warnings" class="box warn" role="alert"><h2>Warnings ({len(warnings)})</h2>'
-                    f"{_bullets(warnings)}</section>")
-    else:
-        warn_box = ('<section id="warnings" class="box ok"><h2>Warnings</h2>'
-                    "<p>No warnings were raised.</p></section>")
-    caution_box = f'<aside id="caution" class="box caution"><strong>Caution.</strong> {_esc(CAUTION)}</aside>'
-    toc = "".join(f'<li><a href="#{a}">{_esc(h)}</a></li>' for a, h in SECTIONS)
-
-    if validation_flags is not None and validation_flags.empty:
-        flags = '<p class="muted">No rows were flagged or excluded.</p>'
-    else:
-        flags = _table(validation_flags, scroll=True)
-    verdict_body = _table(verdicts) if isinstance(verdicts, pd.DataFrame) else _bullets([str(v) for v in verdicts])
-    methods_body = _paragraphs(methods)
-    bodies = {
-        "data": _table(data_summary) + _subsection("Validation flags", flags) + _figures(data_figures),
-        "model": (_paragraphs(model_description) + _subsection("Priors", _table(priors))
-                  + _subsection("Assumptions", _bullets([str(a) for a in assumptions]))),
-        "diagnostics": _table(diagnostics, scroll=True) + _figures(diagnostic_figures),
-        "exponents": (_table(exponents, scroll=True)
-                      + _subsection("Naive per-junction summaries (these ignore measurement error)",
-                                    _table(naive, scroll=True))
-                      + _figures(exponent_figures)),
-        "laws": (_table(laws, scroll=True) + _subsection("Verdicts", verdict_body) + _figures(law_figures)),
-        "methods": (f'<p class="muted">{_esc(METHODS_NOTE)}</p><div class="methods">{methods_body}</div>'
-                    if methods_body else ""),
-    }
-    sections = "".join(_section(a, h, bodies[a]) for a, h in SECTIONS)
-    prov = {"allobranch version": __version__, **dict(provenance or {})}
-    footer = f"<footer><h2>Provenance</h2>{_table(prov)}<p>{_esc(CAUTION)}</p></footer>"
-
-    document = (
-        "<!DOCTYPE html>\n"
-        '<html lang="en"><head><meta charset="utf-8">'
-        '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        f"<title>{_esc(title)}</title><style>{_CSS}</style></head>\n"
-        f"<body><main><h1>{_esc(title)}</h1>\n{warn_box}\n{caution_box}\n"
-        f'<nav aria-label="Contents"><strong>Contents</strong><ol>{toc}</ol></nav>\n'
-        f"{sections}\n{footer}</main></body></html>\n"
-    )
+    if parts is not None and fields:
+        raise TypeError("give either parts or keyword fields, not both")
+    parts = parts if parts is not None else ReportParts(**fields)
+    document = render_report(parts)
     return atomic_write(path, lambda fh: fh.write(document.encode("utf-8")))

@@ -1,17 +1,33 @@
-"""The one-file HTML report of a result folder: data, model in words, diagnostics, exponents, laws."""
+"""The one-file HTML report of a fit and its law comparison: the answer first, then evidence and checks.
+
+Everything is read from the structured results: the :class:`~allobranch.inference.results.FitResult`
+(exponents, diagnostics, warnings, settings with the sampling attempts) and a law comparison
+(:class:`~allobranch.comparison.compare.LawComparison`, or
+:class:`~allobranch.reporting.saved_comparison.SavedComparison` read from its CSV files).
+"""
 
 from __future__ import annotations
 
 import os
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict
 from pathlib import Path
 
 import matplotlib.pyplot as plt
 import pandas as pd
 
-from allobranch.reporting.figures import make_figures
-from allobranch.reporting.html import write_html_report
+from allobranch.comparison.verdict import RULE
+from allobranch.inference.results import HDI_PROB
+from allobranch.reporting.attempts import attempts_sentence, attempts_table, parametrization_note
+from allobranch.reporting.checks import CHECKS, PPP_TAIL, ppc_checks, ppc_pvalues, ppc_warnings
+from allobranch.reporting.figures import law_display, make_figures
+from allobranch.reporting.html import ReportParts, write_html_report
+from allobranch.reporting.plots._common import hdi_percent
+from allobranch.reporting.plots.laws import clip_note
+from allobranch.reporting.saved_comparison import SavedComparison
 from allobranch.reporting.tables import rounded
+from allobranch.reporting.warning_groups import merge_fit_and_comparison
+
+__all__ = ["REPORT_FILE", "SavedComparison", "answer_table", "build_report", "methods_paragraph"]
 
 #: File name of the report inside the result folder.
 REPORT_FILE = "report.html"
@@ -45,12 +61,31 @@ ASSUMPTIONS = (
     "Exponents vary between taxa and specimens but not along the tree (no size or generation covariate).",
 )
 
+#: Columns of the naive-versus-model table shown in the report.
+NAIVE_SHOWN: tuple[str, ...] = ("taxon", "mean", "hdi_low", "hdi_high", "naive_median", "naive_q25", "naive_q75",
+                                "n_junctions", "n_no_root")
+#: Columns of the law-evidence tables shown in the report.
+EVIDENCE_SHOWN: tuple[str, ...] = ("scope", "law", "elpd_diff", "dse", "weight", "log10_bf", "p_rope",
+                                   "n_high_k")
 
-def methods_paragraph(result) -> str:
-    """A methods paragraph for a manuscript, filled in from the fit's settings."""
+
+def methods_paragraph(result, hdi_label: str = "90% HDI") -> str:
+    """A methods paragraph for a manuscript, filled in from the fit's settings.
+
+    Parameters
+    ----------
+    result : FitResult
+    hdi_label : str
+        The interval reported, e.g. ``"90% HDI"``.
+
+    Returns
+    -------
+    str
+    """
     s = result.settings
     t = result.table
     v = result.provenance.get("versions", {})
+    level = hdi_label.replace(" HDI", "")
     return (
         f"Branching exponents were estimated with allobranch {v.get('allobranch', '')} from {t.n_junctions} "
         f"junctions of {len(t.specimens)} specimens in {len(t.taxa)} taxa. Radii were analysed on the log "
@@ -61,47 +96,90 @@ def methods_paragraph(result) -> str:
         f"({s.get('sampler')}; {s.get('chains')} chains, {s.get('draws')} draws after {s.get('tune')} "
         f"tuning steps); convergence was checked with rank-normalised R-hat (<= 1.01), bulk and tail "
         f"effective sample sizes (>= 400) and divergences (PyMC {v.get('pymc', '')}, ArviZ "
-        f"{v.get('arviz', '')}). We report posterior means with 90% highest-density intervals."
+        f"{v.get('arviz', '')}). We report posterior means with {level} highest-density intervals."
     )
 
 
-@dataclass
-class SavedComparison:
-    """A law comparison read back from the files ``allobranch compare`` wrote (for the report)."""
+def _law_values(evidence: pd.DataFrame | None) -> dict[str, float]:
+    if evidence is None or evidence.empty:
+        return {}
+    return {str(k): float(v) for k, v in evidence[["law", "value"]].drop_duplicates("law").itertuples(index=False)}
 
-    evidence: pd.DataFrame
-    by_taxon: pd.DataFrame
-    verdicts: pd.DataFrame
-    warnings: list[str] = field(default_factory=list)
 
-    @property
-    def overall(self) -> pd.DataFrame:
-        """Rows of the overall scope."""
-        return self.evidence[self.evidence["scope"] == "overall"].reset_index(drop=True)
+def _verdict_label(verdict: str, values: dict[str, float]) -> str:
+    return law_display(verdict, values[verdict]) if verdict in values else str(verdict)
 
-    def laws_table(self) -> pd.DataFrame:
-        """The long evidence table (every scope)."""
-        return self.evidence
 
-    @classmethod
-    def read(cls, folder: str | os.PathLike) -> "SavedComparison | None":
-        """Read ``laws.csv``, ``laws_by_taxon.csv`` and ``laws_verdicts.csv`` from ``folder`` (None if absent)."""
-        folder = Path(folder)
-        names = ("laws.csv", "laws_by_taxon.csv", "laws_verdicts.csv")
-        if not all((folder / n).is_file() for n in names):
-            return None
-        evidence, by_taxon, verdicts = (pd.read_csv(folder / n) for n in names)
-        warnings = []
-        md = folder / "laws.md"
-        if md.is_file():
-            text = md.read_text(encoding="utf-8").split("## Warnings", 1)
-            if len(text) == 2:
-                warnings = [line[2:] for line in text[1].splitlines() if line.startswith("- ") and line != "- none"]
-        return cls(evidence=evidence, by_taxon=by_taxon, verdicts=verdicts, warnings=warnings)
+def answer_table(exponents: pd.DataFrame, verdicts: pd.DataFrame | None = None,
+                 evidence: pd.DataFrame | None = None, junctions: dict[str, int] | None = None) -> pd.DataFrame:
+    """The report's answer: population and taxon exponents with their interval and law verdict.
+
+    Parameters
+    ----------
+    exponents : pandas.DataFrame
+        ``FitResult.exponents()`` (``attrs["hdi_prob"]`` names the interval's column).
+    verdicts : pandas.DataFrame, optional
+        Columns ``scope`` (``"overall"`` or a taxon), ``verdict`` and ``reason``.
+    evidence : pandas.DataFrame, optional
+        The law evidence (columns ``law``, ``value``), for the laws' display names.
+    junctions : dict of str to int, optional
+        Junctions per taxon.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per population and taxon estimate: ``estimate``, ``junctions``, ``exponent a`` (posterior
+        mean), the interval (e.g. ``"90% HDI"``), and with verdicts ``verdict`` and ``reason``.
+    """
+    label = hdi_percent(exponents)
+    rows = exponents[exponents["level"].isin(["population", "taxon"])]
+    by_scope = {} if verdicts is None else {str(s): (v, r) for s, v, r in verdicts[["scope", "verdict", "reason"]]
+                                                 .itertuples(index=False)}
+    values = _law_values(evidence)
+    junctions = junctions or {}
+    out = []
+    for row in rows.itertuples(index=False):
+        population = row.level == "population"
+        scope = "overall" if population else str(row.group)
+        entry = {"estimate": "all taxa (population)" if population else str(row.group),
+                 "junctions": sum(junctions.values()) if population else junctions.get(str(row.group)),
+                 "exponent a": f"{row.mean:.2f}", label: f"[{row.hdi_low:.2f}, {row.hdi_high:.2f}]"}
+        if verdicts is not None:
+            verdict, reason = by_scope.get(scope, ("—", "not compared"))
+            entry.update({"verdict": _verdict_label(str(verdict), values), "reason": str(reason)})
+        out.append(entry)
+    return pd.DataFrame(out)
+
+
+def _evidence_tables(laws) -> dict:
+    """The law-comparison tables of the report (display names, rounded)."""
+    evidence = laws.evidence.copy()
+    values = _law_values(evidence)
+    evidence["law"] = [law_display(law, value) for law, value in zip(evidence["law"], evidence["value"])]
+    shown = evidence[[c for c in EVIDENCE_SHOWN if c in evidence]].round(3)
+    overall = shown[shown["scope"] == "overall"].drop(columns="scope")
+    verdicts = laws.verdicts.copy()
+    verdicts["verdict"] = [_verdict_label(str(v), values) for v in verdicts["verdict"]]
+    return {"laws": overall if len(overall) else shown,
+            "laws_all_scopes": shown if shown["scope"].nunique() > 1 else None,
+            "verdicts": verdicts}
+
+
+def _diagnostics_table(result) -> pd.DataFrame:
+    checks = result.sampler_checks()
+    sampler = pd.DataFrame([{"parameter": f"sampler: {k}", "r_hat": v} for k, v in checks.items()])
+    return rounded(pd.concat([result.diagnostics(), sampler], ignore_index=True))
+
+
+def _checks_table(pvalues: pd.DataFrame) -> pd.DataFrame:
+    out = pvalues.copy()
+    out["check"] = out["check"].map(CHECKS)
+    return out.round(3)
 
 
 def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "single",
-                 title: str = "Branching-exponent analysis") -> Path:
+                 title: str = "Branching-exponent analysis", hdi_prob: float | None = None,
+                 seed: int | None = None) -> Path:
     """Write the HTML report of ``result`` (a FitResult) to ``path``.
 
     Parameters
@@ -109,60 +187,105 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
     result : FitResult
     path : path-like
         Output HTML file.
-    laws : LawComparison, optional
-        The law comparison; when given, its tables, verdicts and figure are included.
+    laws : LawComparison or SavedComparison, optional
+        The law comparison; when given, its verdicts, evidence, warnings and figure are included.
     width : {"single", "double"}
         Figure width.
     title : str
         Report title (say here when the data are simulated).
+    hdi_prob : float, optional
+        Probability of the intervals; default: the one the fit recorded (``settings["hdi_prob"]``), else
+        :data:`~allobranch.inference.results.HDI_PROB`.
+    seed : int, optional
+        Seed of the posterior predictive replicates; default: the fit's seed.
+
+    Returns
+    -------
+    pathlib.Path
     """
-    laws_long = laws.laws_table() if laws is not None else None
-    figs = make_figures(result, laws_long, width=width)
-    t = result.table
     s = result.settings
-    warnings = list(result.warnings) + (list(laws.warnings) if laws is not None else [])
+    hdi_prob = float(hdi_prob if hdi_prob is not None else s.get("hdi_prob", HDI_PROB))
+    seed = int(seed if seed is not None else s.get("seed", 0))
+    exponents = result.exponents(hdi_prob)
+    label = hdi_percent(exponents)
+    checks = ppc_checks(result, seed=seed)
+    pvalues = ppc_pvalues(checks)
+    figs = make_figures(result, laws.laws_table() if laws is not None else None, width=width, checks=checks,
+                        pvalues=pvalues)
+    t = result.table
     n_flags = len(t.report.flags)
+    warnings = merge_fit_and_comparison(result.warnings, laws.warnings if laws is not None else ())
+    warnings += ppc_warnings(pvalues)
     if n_flags:
-        warnings.append(f"{n_flags} junction(s) were flagged during validation (kept in the model); see the "
-                        "data section.")
-    data_summary = {
-        "source": t.source, "junctions": t.n_junctions, "taxa": len(t.taxa), "specimens": len(t.specimens),
-        "daughters per junction": ", ".join(f"{k}: {v}" for k, v in t.data["n_daughters"].value_counts().sort_index().items()),
-        "sizes": f"{t.mapping.measure} in {t.unit}", "measurement error": ERROR_WORDS.get(s.get("error_mode"), ""),
-    }
-    priors = pd.DataFrame([{"parameter": k, "scale": v} for k, v in asdict(result.spec.priors).items()])
-    checks = result.sampler_checks()
-    diag = result.diagnostics()
-    diag_table = pd.concat([diag, pd.DataFrame([{"parameter": f"sampler: {k}", "r_hat": v}
-                                               for k, v in checks.items()])], ignore_index=True)
+        warnings.append(f"{n_flags} junction(s) were flagged during validation (kept in the model); see the data "
+                        "section.")
+    junctions = t.data["taxon"].astype(str).value_counts().to_dict()
+    evidence = _evidence_tables(laws) if laws is not None else {}
+    n_draws = checks.attrs.get("n_draws")
+    answer_notes = [f"Exponent a: posterior mean and {label} (highest-density interval) of the hierarchical "
+                    "model, which accounts for measurement error."]
+    answer_notes.append("Verdict: a law, 'none' (of the laws compared) or 'undecided', by the decision rule "
+                        "under Evidence." if laws is not None else
+                        "No law comparison was given: run 'allobranch compare ... --fit FIT_DIR/fit.nc' into the "
+                        "same folder for verdicts.")
     try:
         path = write_html_report(
             path,
             title=title,
+            answer=answer_table(exponents, laws.verdicts if laws is not None else None,
+                                laws.evidence if laws is not None else None, junctions),
+            answer_figure={f"Exponents with {label}s, population, taxa and specimens, and the laws compared":
+                           figs["exponents"]},
+            answer_notes=answer_notes,
+            answer_heading=f"Branching exponent per taxon ({label})",
+            **evidence,
+            verdict_rule=RULE if laws is not None else "",
+            law_figures=None if laws is None else {f"Law comparison. {clip_note()}": figs["law_comparison"]},
+            no_laws="No law comparison in this result folder.",
+            checks=_checks_table(pvalues),
+            checks_text=(f"Replicated data drawn from the fitted model at {n_draws} posterior draws (seed {seed}) "
+                         "are compared with the data: the law's residual (observed log parent minus the law's "
+                         "prediction from the observed daughters, at each draw's exponent) and the split "
+                         "(smaller over larger daughter). p is the share of replicates whose statistic is at "
+                         f"least the observed one; outside [{PPP_TAIL:g}, {1 - PPP_TAIL:g}] the check fails."),
+            check_figures={"Law residual: observed (black) against replicated (blue), by taxon": figs["ppc_residual"],
+                           "Split of the daughters: observed against replicated, by taxon": figs["ppc_split"]},
+            exponents=rounded(exponents),
+            naive=rounded(result.naive_vs_model(hdi_prob)[list(NAIVE_SHOWN)]),
+            exponent_figures={"Naive per-junction exponents beside the model": figs["naive_vs_model"]},
             warnings=warnings,
-            data_summary=data_summary,
+            warning_notes=[*result.notes, *getattr(laws, "notes", [])],
+            attempts=attempts_table(s),
+            attempts_sentence=attempts_sentence(s),
+            parametrization=parametrization_note(s),
+            diagnostics=_diagnostics_table(result),
+            diagnostic_figures={"Rank plots and energy": figs["diagnostics"]},
+            data_summary=_data_summary(result),
             validation_flags=t.report.to_frame(),
-            data_figures={"Junction ratios with iso-exponent curves": figs["ratio_plane"],
-                          "Posterior predictive check of the parent radius": figs["ppc_parent"]},
+            data_figures={"Junction ratios with iso-exponent curves": figs["ratio_plane"]},
             model_description=MODEL_WORDS.format(error=ERROR_WORDS.get(s.get("error_mode"), ""),
                                                  deviation=result.spec.deviation, sampler=s.get("sampler"),
                                                  chains=s.get("chains"), draws=s.get("draws"),
                                                  tune=s.get("tune"), seed=s.get("seed")),
-            priors=priors,
+            priors=pd.DataFrame([{"parameter": k, "scale": v} for k, v in asdict(result.spec.priors).items()]),
             assumptions=ASSUMPTIONS,
-            diagnostics=rounded(diag_table),
-            diagnostic_figures={"Rank plots and energy": figs["diagnostics"]},
-            exponents=rounded(result.exponents()),
-            naive=rounded(result.naive_vs_model()),
-            exponent_figures={"Exponents with 90% HDIs": figs["exponents"],
-                              "Naive per-junction exponents beside the model": figs["naive_vs_model"]},
-            laws=None if laws is None else laws.overall,
-            verdicts=() if laws is None else laws.verdicts,
-            law_figures=None if laws is None else {"Law comparison": figs["law_comparison"]},
-            methods=methods_paragraph(result),
+            methods=methods_paragraph(result, label),
             provenance={k: v for k, v in result.provenance.items() if k != "command"},
         )
     finally:
         for fig in figs.values():
             plt.close(fig)
     return Path(path)
+
+
+def _data_summary(result) -> dict:
+    t = result.table
+    counts = t.data["n_daughters"].value_counts().sort_index()
+    return {
+        "source": t.source, "junctions": t.n_junctions, "taxa": len(t.taxa), "specimens": len(t.specimens),
+        "daughters per junction": ", ".join(f"{k}: {v}" for k, v in counts.items()),
+        "sizes": f"{t.mapping.measure} in {t.unit}",
+        "measurement error": ERROR_WORDS.get(result.settings.get("error_mode"), ""),
+        "flagged / excluded rows": f"{len(t.report.flags)} / {len(t.report.excluded)}",
+    }
+

@@ -6,6 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from allobranch.reporting.attempts import attempts_sentence, attempts_table, parametrization_note
 from allobranch.reporting.html import CAUTION
 
 #: Columns shown (and their number format) in published tables.
@@ -84,6 +85,19 @@ def fit_summary_markdown(result, hdi_prob: float = 0.9) -> str:
         f"{result.settings.get('seconds')} s; divergences {checks['divergences']}, "
         f"min E-BFMI {checks['bfmi_min']:.2f}",
         f"- input SHA-256 {result.provenance.get('input_sha256', '?')}", "",
+        *_attempts_markdown(result.settings),
         "## Caution", "", CAUTION, "",
     ]
     return "\n".join(lines)
+
+
+def _attempts_markdown(settings: dict) -> list[str]:
+    """The "Sampling attempts" section of the summary (nothing for fits that did not record attempts)."""
+    table = attempts_table(settings)
+    if table is None:
+        return []
+    lines = ["## Sampling attempts", "", attempts_sentence(settings), ""]
+    note = parametrization_note(settings)
+    if note:
+        lines += [f"Parametrization of the kept attempt: {note}", ""]
+    return lines + [table.to_markdown(index=False, floatfmt=".4g"), ""]
