@@ -91,8 +91,17 @@ def initial_point(density_layout, layout: GroupLayout, spec: ModelSpec, specimen
 
     mu = float(np.clip(pe.mu, 0.5, 6.0))
     if "mu" in pos:
-        x[pos["mu"]] = mu
+        x[pos["mu"]] = mu  # ("mu_z", the conditioned form, starts at its centre, 0)
     a_taxon = np.where(layout.fixed_taxa, layout.fixed_values, np.clip(pe.a_taxon, 0.5, 6.0))
+    if layout.whiten:  # standardised deviations start at 0 (the conditional means), spreads at the pilot's
+        for name, prior, tau in (("tau_taxon_log__", pr.tau_taxon, pe.tau_taxon),
+                                 ("tau_specimen_log__", pr.tau_specimen, pe.tau_specimen)):
+            if name in pos:
+                x[pos[name]] = np.log(max(float(tau), 0.1 * prior))
+        x[pos["sigma_dev_log__"]] = np.log(np.clip(pe.sigma_dev, 1e-3, 1.0))
+        if "nu_log__" in pos:
+            x[pos["nu_log__"]] = np.log(20.0)
+        return x
     if "r_taxon" in pos:
         tau = max(float(pe.tau_taxon), 0.1 * pr.tau_taxon)
         x[pos["tau_taxon_log__"]] = np.log(tau)
@@ -149,10 +158,20 @@ def _sample_fast(data: ModelData, spec: ModelSpec, layout: GroupLayout, arrays: 
         taxon_level=layout.taxon_level, specimen_level=layout.specimen_level,
         student=spec.deviation == "student_t", priors=spec.priors, fixed_exponent=spec.fixed_exponent,
         fixed_taxa_mask=layout.fixed_taxa, fixed_taxa_values=layout.fixed_values, w_taxon=layout.w_taxon,
-        w_specimen=layout.w_specimen,
+        w_specimen=layout.w_specimen, condition_mu=layout.condition_mu,
+        whiten=_pilot_precision(layout) if layout.whiten else None,
     )
     init = initial_point(density.layout, layout, spec, data.specimen_taxon_idx)
     return sample_direct(density, init, {"taxon": data.taxa, "specimen": data.specimens}, **kwargs)
+
+
+def _pilot_precision(layout: GroupLayout) -> tuple[np.ndarray, np.ndarray]:
+    """The pilot's specimen exponents and precisions (0 where a specimen's likelihood is flat)."""
+    pe = layout.pilot
+    sd = np.asarray(pe.sd_specimen, dtype=float)
+    with np.errstate(divide="ignore"):
+        prec = np.where(np.isfinite(sd) & (sd > 0), 1.0 / sd**2, 0.0)
+    return np.asarray(pe.a_specimen, dtype=float), prec
 
 
 def attempt_record(idata: az.InferenceData, plan: AttemptPlan, layout: GroupLayout, seconds: float) -> dict:

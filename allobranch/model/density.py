@@ -12,6 +12,14 @@ nutpie calls the callback from its own threads without the Python interpreter, s
 
 Unconstrained parameters, in order: ``mu`` (unless fixed), ``log tau_taxon`` and ``r_taxon`` (taxon
 level), ``log tau_specimen`` and ``r_specimen`` (specimen level), ``log sigma_dev``, ``log nu`` (Student-t).
+
+Conditioned population exponent (``condition_mu``): with few, well-measured groups under it, the population
+exponent's conditional spread grows with the groups' spread (``mu`` given the groups has SD about
+``tau / sqrt(n)``), a funnel that no fixed weighting removes. When the groups directly under ``mu`` are
+centred, ``mu`` given them and their spread is exactly normal (prior times normal terms, exact algebra:
+precision ``P = 1/s0^2 + n/tau^2``, mean ``(m0/s0^2 + sum r/tau^2)/P``), so it is sampled as
+``mu = mean + z / sqrt(P)`` with ``z`` standard normal a posteriori, whatever ``tau`` is; the log density
+gains the Jacobian ``-log(P)/2``.
 """
 
 from __future__ import annotations
@@ -31,8 +39,8 @@ from allobranch.model import kernel
 A_FLOOR = 0.05
 
 # integer header slots
-_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP = range(10)
-_HEAD = 10
+_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP, _MU_COND, _WHITE = range(12)
+_HEAD = 12
 # float header slots
 _MU_MEAN, _MU_SD, _TT_SCALE, _TS_SCALE, _SD_SCALE, _NU_A, _NU_B, _MU_FIXED = range(8)
 _FHEAD = 8
@@ -127,7 +135,7 @@ class FastDensity:
 def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_level: bool,
          specimen_level: bool, student: bool, priors, fixed_exponent: float | None,
          fixed_taxa_mask: np.ndarray, fixed_taxa_values: np.ndarray, w_taxon: np.ndarray,
-         w_specimen: np.ndarray) -> FastDensity:
+         w_specimen: np.ndarray, condition_mu: bool = False, whiten: tuple | None = None) -> FastDensity:
     """Pack a fast-form model for the compiled density.
 
     Parameters
@@ -145,6 +153,13 @@ def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_lev
         Taxa whose exponent (and their specimens') is fixed, and the values.
     w_taxon, w_specimen : ndarray
         Partial-centring weights (1 centred, 0 non-centred). Fixed groups are always non-centred.
+    condition_mu : bool
+        Sample the population exponent conditioned on the groups directly under it (see the module
+        docstring); those groups are then centred (their weights set to 1).
+    whiten : (ndarray, ndarray) or None
+        Pilot exponent and precision of every specimen (precision 0 where its likelihood is flat): sample
+        the whole hierarchy whitened given the spreads (see :func:`_white_hierarchy`); overrides the
+        weights and ``condition_mu``.
 
     Returns
     -------
@@ -160,10 +175,16 @@ def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_lev
     pinned = fixed_t[spec_taxon]
     w_t = np.where(fixed_t, 0.0, np.clip(np.broadcast_to(w_taxon, n_taxa) if taxon_level else 0.0, 0, 1))
     w_s = np.where(pinned, 0.0, np.clip(np.broadcast_to(w_specimen, n_spec) if specimen_level else 0.0, 0, 1))
+    white = whiten is not None and mu_free and (taxon_level or specimen_level)
+    condition_mu = bool(condition_mu and mu_free and (taxon_level or specimen_level)) and not white
+    if condition_mu and taxon_level:
+        w_t = np.where(fixed_t, 0.0, 1.0)
+    elif condition_mu:
+        w_s = np.where(pinned, 0.0, 1.0)
 
     names, shapes = [], []
     if mu_free:
-        names.append("mu"); shapes.append(())  # noqa: E702
+        names.append("mu_z" if (condition_mu or white) else "mu"); shapes.append(())  # noqa: E702
     if taxon_level:
         names += ["tau_taxon_log__", "r_taxon"]; shapes += [(), (n_taxa,)]  # noqa: E702
     if specimen_level:
@@ -183,8 +204,9 @@ def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_lev
                            {"a_taxon": ("taxon",), "a_specimen": ("specimen",)})
 
     head = np.zeros(_HEAD, dtype=np.int64)
-    head[[_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP]] = [
-        n, K, n_taxa, n_spec, mu_free, taxon_level, specimen_level, student, layout.ndim, layout.n_expanded]
+    head[[_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP, _MU_COND, _WHITE]] = [
+        n, K, n_taxa, n_spec, mu_free, taxon_level, specimen_level, student, layout.ndim, layout.n_expanded,
+        condition_mu, white]
     ints = np.concatenate([head, np.asarray(arrays["specimen_idx"], dtype=np.int64), spec_taxon,
                            fixed_t.astype(np.int64), pinned.astype(np.int64)])
     fhead = np.zeros(_FHEAD)
@@ -197,6 +219,8 @@ def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_lev
         fhead, arrays["log_parent_obs"], arrays["mu_post"].ravel(), arrays["g_post"].ravel(), arrays["c_post"],
         arrays["ybar"], arrays["daughter_mask"].ravel(), arrays["s0sq"], arrays["ll_daughters"], w_t, w_s,
         fixed_vals,
+        np.nan_to_num(np.asarray(whiten[0], dtype=float)) if white else np.zeros(n_spec),
+        np.nan_to_num(np.asarray(whiten[1], dtype=float)) if white else np.zeros(n_spec),
     ])
     return FastDensity(ints=ints, floats=floats, layout=layout)
 
@@ -222,6 +246,13 @@ def _views(ints, floats):
     w_s = floats[q:q + ns]; q += ns  # noqa: E702
     fixed_vals = floats[q:q + nt]
     return spec_idx, spec_taxon, fixed_t, pinned, y0, mu, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals
+
+
+@nb.njit(cache=True, nogil=True)
+def _pilot_views(ints, floats):
+    n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
+    q = _FHEAD + n * (5 + 3 * K) + 2 * nt + ns
+    return floats[q:q + ns], floats[q + ns:q + 2 * ns]
 
 
 @nb.njit(cache=True, nogil=True)
@@ -333,8 +364,205 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxo
 
 
 @nb.njit(cache=True, nogil=True)
+def _conditioned_mu(x, ints, floats):
+    """``mu`` from its standardised value ``x[0]`` given the groups under it (``x[1]`` their log spread,
+    ``x[2:]`` their raw values; fixed groups excluded), with the pieces of the chain rule."""
+    nt, ns = ints[_NT], ints[_NS]
+    p = _HEAD + ints[_N] + ns
+    if ints[_TAXON]:
+        m, skip = nt, ints[p:p + nt]  # fixed taxa
+    else:
+        m, skip = ns, ints[p + nt:p + nt + ns]  # pinned specimens
+    T = math.exp(2.0 * x[1])
+    s0sq = floats[_MU_SD] ** 2
+    n = 0
+    total = 0.0
+    for i in range(m):
+        if not skip[i]:
+            n += 1
+            total += x[2 + i]
+    P = 1.0 / s0sq + n / T
+    mean = (floats[_MU_MEAN] / s0sq + total / T) / P
+    sd = 1.0 / math.sqrt(P)
+    mu = mean + sd * x[0]
+    dmean_dr = (1.0 / T) / P
+    # derivatives in log tau (d/dlog tau = 2 T d/dT)
+    dmean_dlt = 2.0 * T * (n * mean - total) / (T * T * P)
+    dsd_dlt = 2.0 * T * 0.5 * P ** -1.5 * n / (T * T)
+    dlogsd_dlt = 2.0 * T * n / (2.0 * T * T * P)
+    return mu, sd, dmean_dr, dmean_dlt, dsd_dlt, dlogsd_dlt, m, skip
+
+
+@nb.njit(cache=True, nogil=True)
+def _white_hierarchy(x, ints, floats):
+    """Whitened hierarchy (complex arithmetic, for complex-step derivatives).
+
+    With the pilot's Gaussian approximation of every specimen's likelihood, ``N(ahat_s, 1/prec_s)``, the
+    exponents given the spreads are jointly normal; messages passed up the tree (specimens -> taxa -> mu)
+    give each node's conditional normal given its parent, and each node is sampled as its conditional
+    mean plus ``z`` times its conditional SD, top down. This is an exact change of variables for any
+    spreads (the Jacobian is added), and under the approximation every ``z`` is standard normal a posteriori
+    and independent of the spreads, so no funnel remains at any spread.
+
+    Returns the specimen exponents, the log prior of all exponents and spreads plus the Jacobians, the
+    population exponent and the taxon exponents.
+    """
+    nt, ns = ints[_NT], ints[_NS]
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
+     fixed_vals) = _views(ints, floats)
+    ahat, prec = _pilot_views(ints, floats)
+    taxon_level = ints[_TAXON] != 0
+    spec_level = ints[_SPEC] != 0
+    m0, s0 = floats[_MU_MEAN], floats[_MU_SD]
+    zmu = x[0]
+    p = 1
+    lp = 0.0 + 0.0j
+    if taxon_level:
+        lt_t = x[p]
+        z_t = x[p + 1:p + 1 + nt]
+        p += 1 + nt
+        T_t = np.exp(2.0 * lt_t)
+        lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TT_SCALE]) - 0.5 * T_t / floats[_TT_SCALE] ** 2 + lt_t
+    if spec_level:
+        lt_s = x[p]
+        z_s = x[p + 1:p + 1 + ns]
+        T_s = np.exp(2.0 * lt_s)
+        lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TS_SCALE]) - 0.5 * T_s / floats[_TS_SCALE] ** 2 + lt_s
+    # messages up: each free specimen's marginal about its parent
+    up_prec_t = np.zeros(nt, dtype=np.complex128)  # into taxon t (or into mu when no taxon level)
+    up_mean_t = np.zeros(nt, dtype=np.complex128)
+    for s in range(ns):
+        if pinned[s] or prec[s] <= 0.0:
+            continue
+        if spec_level:
+            v = T_s + 1.0 / prec[s]
+        else:
+            v = (1.0 + 0.0j) / prec[s]
+        up_prec_t[spec_taxon[s]] += 1.0 / v
+        up_mean_t[spec_taxon[s]] += ahat[s] / v
+    up_prec_mu = 0.0 + 0.0j
+    up_mean_mu = 0.0 + 0.0j
+    for t in range(nt):
+        if fixed_t[t] or up_prec_t[t].real <= 0.0:
+            continue
+        if taxon_level:
+            v = T_t + 1.0 / up_prec_t[t]
+            up_prec_mu += 1.0 / v
+            up_mean_mu += (up_mean_t[t] / up_prec_t[t]) / v
+        else:
+            up_prec_mu += up_prec_t[t]
+            up_mean_mu += up_mean_t[t]
+    # top down: mu
+    P = 1.0 / (s0 * s0) + up_prec_mu
+    sd = 1.0 / np.sqrt(P)
+    mu = (m0 / (s0 * s0) + up_mean_mu) / P + sd * zmu
+    lp += -0.5 * _LOG2PI - math.log(s0) - 0.5 * ((mu - m0) / s0) ** 2 + np.log(sd)
+    a_t = np.empty(nt, dtype=np.complex128)
+    for t in range(nt):
+        if fixed_t[t]:
+            a_t[t] = fixed_vals[t]
+            if taxon_level:
+                lp += -0.5 * _LOG2PI - 0.5 * z_t[t] * z_t[t]
+        elif taxon_level:
+            Pt = 1.0 / T_t + up_prec_t[t]
+            sdt = 1.0 / np.sqrt(Pt)
+            a_t[t] = (mu / T_t + up_mean_t[t]) / Pt + sdt * z_t[t]
+            lp += -0.5 * _LOG2PI - 0.5 * np.log(T_t) - 0.5 * (a_t[t] - mu) ** 2 / T_t + np.log(sdt)
+        else:
+            a_t[t] = mu
+    a_s = np.empty(ns, dtype=np.complex128)
+    for s in range(ns):
+        parent = a_t[spec_taxon[s]]
+        if not spec_level:
+            a_s[s] = parent
+        elif pinned[s]:
+            a_s[s] = parent
+            lp += -0.5 * _LOG2PI - 0.5 * z_s[s] * z_s[s]
+        else:
+            Ps = 1.0 / T_s + prec[s]
+            sds = 1.0 / np.sqrt(Ps)
+            a_s[s] = (parent / T_s + prec[s] * ahat[s]) / Ps + sds * z_s[s]
+            lp += -0.5 * _LOG2PI - 0.5 * np.log(T_s) - 0.5 * (a_s[s] - parent) ** 2 / T_s + np.log(sds)
+    return a_s, lp, mu, a_t
+
+
+@nb.njit(cache=True, nogil=True)
+def _logp_grad_white(x, ints, floats, grad):
+    """Log density and gradient of the whitened form: complex-step derivatives of the hierarchy (exact
+    to rounding, Squire & Trapp 1998) chained with the kernel's analytic derivatives."""
+    n, ns = ints[_N], ints[_NS]
+    student = ints[_STUDENT] != 0
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
+     fixed_vals) = _views(ints, floats)
+    ndim = x.shape[0]
+    n_h = ndim - (2 if student else 1)  # hierarchy coordinates come first
+    xc = x[:n_h].astype(np.complex128)
+    a_s, lp_h, _, _ = _white_hierarchy(xc, ints, floats)
+    log_sdev = x[n_h]
+    sdev = math.exp(log_sdev)
+    nu = math.exp(x[n_h + 1]) if student else 30.0
+    a_eff = np.empty(ns)
+    for s in range(ns):
+        a_eff[s] = a_s[s].real if a_s[s].real > A_FLOOR else A_FLOOR
+    ll, dll, _, _ = kernel.fast_terms(y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu,
+                                      student)
+    total = 0.0
+    d_as = np.zeros(ns)
+    d_sdev = 0.0
+    d_nu = 0.0
+    for j in range(n):
+        total += ll[j]
+        d_as[spec_idx[j]] += dll[j, 0]
+        d_sdev += dll[j, 1]
+        d_nu += dll[j, 4]
+    for s in range(ns):
+        if a_s[s].real <= A_FLOOR:
+            d_as[s] = 0.0
+    for i in range(n_h):
+        xc[i] += 1j * kernel.H
+        a_i, lp_i, _, _ = _white_hierarchy(xc, ints, floats)
+        xc[i] -= 1j * kernel.H
+        gi = lp_i.imag / kernel.H
+        for s in range(ns):
+            gi += d_as[s] * a_i[s].imag / kernel.H
+        grad[i] = gi
+    lp = total + lp_h.real
+    hn, dhn = _half_normal_log(log_sdev, floats[_SD_SCALE])
+    lp += hn
+    grad[n_h] = dhn + sdev * d_sdev
+    if student:
+        alpha, beta = floats[_NU_A], floats[_NU_B]
+        const = n * (math.lgamma((nu + 1.0) / 2.0) - math.lgamma(nu / 2.0) - 0.5 * math.log(nu * math.pi))
+        d_const = n * (0.5 * _digamma((nu + 1.0) / 2.0) - 0.5 * _digamma(nu / 2.0) - 0.5 / nu)
+        lp += const + alpha * math.log(beta) - math.lgamma(alpha) + (alpha - 1.0) * math.log(nu) - beta * nu
+        lp += math.log(nu)
+        grad[n_h + 1] = nu * (d_nu + d_const + (alpha - 1.0) / nu - beta) + 1.0
+    return lp
+
+
+@nb.njit(cache=True, nogil=True)
 def _logp_grad(x, ints, floats, grad):
     """Log density and gradient (written into ``grad``) at the unconstrained point ``x``."""
+    if ints[_WHITE]:
+        return _logp_grad_white(x, ints, floats, grad)
+    if not ints[_MU_COND]:
+        return _logp_grad_plain(x, ints, floats, grad)
+    mu, sd, dmean_dr, dmean_dlt, dsd_dlt, dlogsd_dlt, m, skip = _conditioned_mu(x, ints, floats)
+    x2 = x.copy()
+    x2[0] = mu
+    lp = _logp_grad_plain(x2, ints, floats, grad) + math.log(sd)
+    g_mu = grad[0]
+    grad[0] = g_mu * sd
+    grad[1] += g_mu * (dmean_dlt + x[0] * dsd_dlt) + dlogsd_dlt
+    for i in range(m):
+        if not skip[i]:
+            grad[2 + i] += g_mu * dmean_dr
+    return lp
+
+
+@nb.njit(cache=True, nogil=True)
+def _logp_grad_plain(x, ints, floats, grad):
+    """Log density and gradient with ``x[0]`` the population exponent itself (when it is free)."""
     n, nt, ns = ints[_N], ints[_NT], ints[_NS]
     student = ints[_STUDENT] != 0
     (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
@@ -423,6 +651,31 @@ def _logp_grad(x, ints, floats, grad):
 def _expand(x, ints, floats, out):
     """Stored values: mu, [tau_taxon], a_taxon, [tau_specimen], a_specimen, sigma_dev, [nu]."""
     nt, ns = ints[_NT], ints[_NS]
+    if ints[_WHITE]:
+        n_h = x.shape[0] - (2 if ints[_STUDENT] else 1)
+        a_s_c, _, mu_c, a_t_c = _white_hierarchy(x[:n_h].astype(np.complex128), ints, floats)
+        k = 0
+        out[k] = mu_c.real
+        k += 1
+        if ints[_TAXON]:
+            out[k] = math.exp(x[1])
+            k += 1
+        for i in range(nt):
+            out[k + i] = a_t_c[i].real
+        k += nt
+        if ints[_SPEC]:
+            out[k] = math.exp(x[1 + (1 + nt if ints[_TAXON] else 0)])
+            k += 1
+        for s in range(ns):
+            out[k + s] = a_s_c[s].real
+        k += ns
+        out[k] = math.exp(x[n_h])
+        if ints[_STUDENT]:
+            out[k + 1] = math.exp(x[n_h + 1])
+        return
+    if ints[_MU_COND]:
+        x = x.copy()
+        x[0] = _conditioned_mu(x, ints, floats)[0]
     (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
      fixed_vals) = _views(ints, floats)
     (mu, lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt,
@@ -465,7 +718,7 @@ def _unpack(user_data):
     head = nb.carray(_as_pointer(ptrs[0]), (_HEAD,), np.int64)
     n, K, nt, ns = head[_N], head[_K], head[_NT], head[_NS]
     n_int = _HEAD + n + 2 * ns + nt
-    n_float = _FHEAD + n * (5 + 3 * K) + 2 * nt + ns
+    n_float = _FHEAD + n * (5 + 3 * K) + 2 * nt + 3 * ns
     ints = nb.carray(_as_pointer(ptrs[0]), (n_int,), np.int64)
     floats = nb.carray(_as_pointer(ptrs[1]), (n_float,), np.float64)
     return ints, floats

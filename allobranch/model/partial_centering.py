@@ -68,15 +68,17 @@ class PilotEstimate:
     w_specimen: np.ndarray
     w_taxon: np.ndarray
 
-    def describe(self) -> str:
-        """One line for provenance and reports."""
+    def describe(self, w_taxon: np.ndarray | None = None, w_specimen: np.ndarray | None = None) -> str:
+        """One line for provenance and reports (the weights used, default the pilot's own)."""
         def share(w: np.ndarray) -> str:
             if w.size == 0:
                 return "absent"
             return f"weights {np.min(w):.2f}-{np.max(w):.2f} (median {np.median(w):.2f})"
 
-        return (f"partial centring from a pilot: taxon level {share(self.w_taxon)}, specimen level "
-                f"{share(self.w_specimen)}; 1 = centred, 0 = non-centred")
+        w_t = self.w_taxon if w_taxon is None else w_taxon
+        w_s = self.w_specimen if w_specimen is None else w_specimen
+        return (f"partial centring from a pilot: taxon level {share(w_t)}, specimen level "
+                f"{share(w_s)}; 1 = centred, 0 = non-centred")
 
 
 def _specimen_loglik(arrays: dict, spec_idx: np.ndarray, n_spec: int, a_spec: np.ndarray, sdev: float,

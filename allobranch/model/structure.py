@@ -19,6 +19,9 @@ from allobranch.model.density import A_FLOOR, fast_arrays
 from allobranch.model.partial_centering import PilotEstimate, pilot
 from allobranch.model.spec import ModelSpec
 
+#: Mean partial-centring weight of the groups under the population exponent from which ``auto`` centres
+#: them and samples the population exponent given them (:mod:`allobranch.model.density`).
+CONDITION_MU_ABOVE = 0.5
 #: Relative error assumed by the pilot when the table's error is not known (it only sets sampling weights).
 PILOT_REL_ERROR = 0.05
 
@@ -51,13 +54,19 @@ class GroupLayout:
     w_specimen: np.ndarray
     parametrization: str
     pilot: PilotEstimate | None = None
+    condition_mu: bool = False
+    whiten: bool = False
 
     def describe(self) -> str:
         """One line for provenance, ``summary.md`` and the report."""
+        if self.whiten:
+            return ("whitened hierarchy: every exponent sampled as its conditional mean plus a standardised "
+                    "deviation given the spreads, from the pilot's normal approximation of each specimen")
+        cond = "; population exponent sampled given the groups under it" if self.condition_mu else ""
         if self.parametrization == "auto" and self.pilot is not None:
-            return self.pilot.describe()
+            return self.pilot.describe(self.w_taxon, self.w_specimen) + cond
         kind = {"centered": "centred", "noncentered": "non-centred"}.get(self.parametrization, self.parametrization)
-        return f"{kind} at every level"
+        return f"{kind} at every level{cond}"
 
     def with_weights(self, parametrization: str) -> "GroupLayout":
         """The same layout with every free group centred or non-centred (fixed groups stay non-centred)."""
@@ -66,8 +75,22 @@ class GroupLayout:
             self.taxon_level, self.specimen_level, self.fixed_taxa, self.fixed_values, self.pinned,
             np.where(self.fixed_taxa, 0.0, value) if self.taxon_level else np.zeros(0),
             np.where(self.pinned, 0.0, value) if self.specimen_level else np.zeros(0),
-            parametrization, self.pilot,
+            parametrization, self.pilot, condition_mu=value == 1.0 and self.has_top_groups,
         )
+
+    @property
+    def has_top_groups(self) -> bool:
+        """Whether free groups sit directly under a free population exponent (then ``mu`` can be
+        conditioned on them)."""
+        if self.fixed_values is None or (self.taxon_level and (~self.fixed_taxa).any()):
+            return self.taxon_level or self.specimen_level
+        return self.specimen_level and bool((~self.pinned).any())
+
+    def top_weights(self) -> np.ndarray:
+        """Weights of the free groups directly under the population exponent."""
+        if self.taxon_level:
+            return self.w_taxon[~self.fixed_taxa]
+        return self.w_specimen[~self.pinned] if self.specimen_level else np.zeros(0)
 
 
 def group_layout(data: ModelData, spec: ModelSpec, arrays: dict | None = None) -> GroupLayout:
@@ -109,10 +132,20 @@ def group_layout(data: ModelData, spec: ModelSpec, arrays: dict | None = None) -
                          spec.parametrization, est)
     if spec.parametrization != "auto":
         return layout.with_weights(spec.parametrization)
-    return GroupLayout(taxon_level, specimen_level, fixed, values, pinned,
-                       np.where(fixed, 0.0, layout.w_taxon) if taxon_level else layout.w_taxon,
-                       np.where(pinned, 0.0, layout.w_specimen) if specimen_level else layout.w_specimen,
-                       "auto", est)
+    w_t = np.where(fixed, 0.0, layout.w_taxon) if taxon_level else layout.w_taxon
+    w_s = np.where(pinned, 0.0, layout.w_specimen) if specimen_level else layout.w_specimen
+    auto = GroupLayout(taxon_level, specimen_level, fixed, values, pinned, w_t, w_s, "auto", est,
+                       whiten=spec.fixed_exponent is None and (taxon_level or specimen_level))
+    if spec.fixed_exponent is None and auto.has_top_groups and auto.top_weights().size \
+            and float(np.mean(auto.top_weights())) >= CONDITION_MU_ABOVE:
+        # well-measured groups under mu: centre them and condition mu on them (removes the mu-tau funnel)
+        if taxon_level:
+            w_t = np.where(fixed, 0.0, 1.0)
+        else:
+            w_s = np.where(pinned, 0.0, 1.0)
+        return GroupLayout(taxon_level, specimen_level, fixed, values, pinned, w_t, w_s, "auto", est, True,
+                           auto.whiten)
+    return auto
 
 #: Hyper-parameters (besides exponents) that diagnostics always report when present.
 HYPER_PARAMETERS: tuple[str, ...] = (
