@@ -521,12 +521,15 @@ def test_report_renders_in_headless_chromium(browser, fit_report, tmp_path):
     assert 0.02 < non_white < 0.9  # text, table and figure drawn; not a blank or solid page
 
 
-def test_broken_image_is_caught_by_the_browser_check(browser, tmp_path):
-    # the check itself: an image whose bytes do not decode is reported (a control for the test above)
+def test_browser_check_catches_broken_images_and_console_errors(browser, tmp_path):
+    # controls for the test above: an image whose bytes do not decode, a console error and an uncaught
+    # exception are all reported
     page = tmp_path / "broken.html"
     page.write_text('<!DOCTYPE html><html><body><img alt="broken" src="data:image/png;base64,'
-                    + base64.b64encode(b"not a png").decode() + '"></body></html>', encoding="utf-8")
+                    + base64.b64encode(b"not a png").decode() + '"><script>console.error("seen");'
+                    'null.missing;</script></body></html>', encoding="utf-8")
     browser.call("Page.navigate", url=page.as_uri())
     browser.wait_for("Page.loadEventFired")
     images = _evaluate(browser, _IMAGES_JS)
     assert images == [{"ok": False, "alt": "broken", "error": images[0]["error"]}]
+    assert any("seen" in e for e in browser.errors) and any(e.startswith("exception") for e in browser.errors)

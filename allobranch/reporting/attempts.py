@@ -15,6 +15,8 @@ import pandas as pd
 #: Keys of one attempt, in the order of the table's columns (after ``attempt``).
 ATTEMPT_KEYS: tuple[str, ...] = ("parametrization", "target_accept", "divergences", "max_r_hat", "min_ess_bulk",
                                  "seconds", "kept")
+#: Decimals shown for the numeric keys (R-hat to the third decimal, as its 1.01 threshold needs).
+DECIMALS: dict[str, int] = {"max_r_hat": 3, "min_ess_bulk": 0, "seconds": 2}
 
 
 def _attempts(settings: Mapping) -> list[Mapping]:
@@ -35,7 +37,8 @@ def attempts_table(settings: Mapping) -> pd.DataFrame | None:
     Returns
     -------
     pandas.DataFrame or None
-        Columns ``attempt`` and :data:`ATTEMPT_KEYS` (a key an attempt lacks is left empty).
+        Columns ``attempt`` and :data:`ATTEMPT_KEYS` (a key an attempt lacks is left empty), rounded as
+        :data:`DECIMALS` says.
 
     Examples
     --------
@@ -50,7 +53,10 @@ def attempts_table(settings: Mapping) -> pd.DataFrame | None:
     if not attempts:
         return None
     rows = [{"attempt": i, **{k: a.get(k) for k in ATTEMPT_KEYS}} for i, a in enumerate(attempts, start=1)]
-    return pd.DataFrame(rows, columns=["attempt", *ATTEMPT_KEYS])
+    table = pd.DataFrame(rows, columns=["attempt", *ATTEMPT_KEYS])
+    for key, digits in DECIMALS.items():
+        table[key] = pd.to_numeric(table[key], errors="coerce").round(digits)
+    return table
 
 
 def _how(attempt: Mapping) -> str:
