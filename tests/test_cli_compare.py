@@ -45,7 +45,11 @@ def test_compare_reuses_saved_fit_and_writes_files(saved, tmp_path, capsys):
     assert laws.loc[laws["law"] == "turbulent", "value"].iloc[0] == pytest.approx(7 / 3)  # exact fraction
     by_taxon = pd.read_csv(out / "laws_by_taxon.csv")
     assert list(by_taxon["taxon"]) == ["T1"]
-    assert by_taxon["verdict"].iloc[0] in {"murray", "turbulent", "none", "undecided"}
+    # Truth: taxon exponent 2.51 (simulate_junctions, seed 11), 20 junctions: the posterior (SD about 0.2)
+    # puts most, but far from 90 %, of its mass within 0.25 of 7/3 and a fair share near 3, so neither law
+    # can be declared nor both rejected (verdict rule, allobranch/comparison/verdict.py).
+    assert by_taxon["verdict"].iloc[0] == "undecided"
+    assert by_taxon["reason"].iloc[0].startswith("closest law turbulent")
     # The free model was re-used, not refitted: its ELPD is ArviZ's loo of the saved fit.
     import arviz as az
 
@@ -88,7 +92,7 @@ def test_compare_error_in_a_subprocess_has_no_traceback(saved, tmp_path):
     csv, _, _ = saved
     proc = subprocess.run([sys.executable, "-m", "allobranch.cli", "compare", str(csv), *FLAGS,
                            "--out", str(tmp_path / "x"), "--law", "rall=1/0", *SHORT],
-                          capture_output=True, text=True, timeout=300)
+                          capture_output=True, text=True, timeout=3600)
     assert proc.returncode == 2
     assert "not a number" in proc.stderr and "Traceback" not in proc.stderr
 
@@ -106,4 +110,11 @@ def test_sampler_seed_reaches_the_comparison(saved):
     runs = [ab.compare_laws(free, ["murray"], scopes=("overall",), draws=100, tune=100, chains=1, seed=4)
             for _ in range(2)]
     cols = ["elpd", "elpd_diff", "log10_bf", "p_rope"]
-    np.testing.assert_allclose(runs[0].overall[cols].to_numpy(float), runs[1].overall[cols].to_numpy(float))
+    first = runs[0].overall[cols].to_numpy(float)
+    # assert_allclose treats NaN == NaN as equal: make sure there are numbers to compare
+    assert np.isfinite(first[:, 0]).all() and np.isfinite(first[1:]).all()
+    np.testing.assert_allclose(first, runs[1].overall[cols].to_numpy(float))
+    # ... and the seed matters: another seed refits the law with other draws, so its ELPD moves
+    other = ab.compare_laws(free, ["murray"], scopes=("overall",), draws=100, tune=100, chains=1, seed=5)
+    murray = lambda r: r.overall.set_index("law").loc["murray", "elpd"]  # noqa: E731
+    assert murray(other) != murray(runs[0])

@@ -151,5 +151,12 @@ def test_naive_summary_by_specimen_and_bad_grouping():
     geo = junction_geometry(_table([1.0, 1.0], [[0.8, 0.7], [0.8, 0.6]], ["A", "B"]))
     by_spec = naive_summary(geo, by=("taxon", "specimen"))
     assert list(by_spec.columns[:2]) == ["taxon", "specimen"] and len(by_spec) == 2
+    rows = by_spec.set_index("taxon")
+    # exact algebra: 0.8^2 + 0.6^2 = 1, so the second junction's exponent is 2; the first is the root of
+    # 0.8^a + 0.7^a = 1 (reference: scipy.optimize.brentq)
+    assert rows.loc["B", "median"] == pytest.approx(2.0, rel=1e-10)
+    want = brentq(lambda x: 0.8**x + 0.7**x - 1.0, 0.05, 100.0, xtol=1e-14)
+    assert rows.loc["A", "median"] == pytest.approx(want, rel=1e-9)
+    assert (rows["n_junctions"] == 1).all() and (rows["n_no_root"] == 0).all()
     with pytest.raises(ValueError, match="taxon"):
         naive_summary(geo, by=("junction",))
