@@ -37,19 +37,23 @@ def calibration():
 
 def test_reduced_calibration_runs_and_covers(calibration) -> None:
     # Eight datasets from the prior: the pipeline runs end to end (including the check that swapping data
-    # into the compiled model reproduces allobranch.fit exactly), ranks lie in range, and at least 5 of
-    # the 8 population-exponent intervals cover the truth (P(X <= 4) = 0.005 for X ~ Binomial(8, 0.9),
-    # scipy.stats.binom), and at least 18 of the 24 taxon intervals (P(X <= 17) < 0.01).
+    # into the compiled model reproduces allobranch.fit exactly), ranks lie in range, and the number of
+    # 90 % intervals covering the truth is not implausibly low for X ~ Binomial(n, 0.9): at least the
+    # 1 % quantile (scipy.stats.binom.ppf), i.e. 5 of the 8 population-exponent intervals (P(X <= 4) =
+    # 0.005) and 18 of the 24 taxon intervals (P(X <= 17) = 0.007).
     frame = calibration.run(8, base_seed=9100, verify=True, log=lambda m: None)
     assert set(frame["quantity"]) == set(calibration.QUANTITIES)
     assert frame["dataset"].nunique() == 8
     assert ((frame["rank"] >= 0) & (frame["rank"] <= frame["n_draws"])).all()
+    # the ranks are not all at one end (a sampler stuck at its start, or a swapped-in dataset that did not
+    # reach the model, puts every true value outside the draws)
+    assert frame["rank"].nunique() > 1
     mu = frame[frame["quantity"] == "mu"]
     taxa = frame[frame["quantity"] == "a_taxon"]
-    assert stats.binom.cdf(4, 8, 0.9) < 0.01
-    assert int(mu["covered"].sum()) >= 5
-    assert stats.binom.cdf(17, 24, 0.9) < 0.01
-    assert int(taxa["covered"].sum()) >= 18
+    assert len(mu) == 8 and len(taxa) == 24
+    for rows in (mu, taxa):
+        least = int(stats.binom.ppf(0.01, len(rows), 0.9))
+        assert int(rows["covered"].sum()) >= least, (len(rows), least)
 
 
 @pytest.mark.slow
