@@ -2,19 +2,23 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import argparse
 import sys
 import time
 from pathlib import Path
 
 from allobranch.cli.fit import add_sampler_arguments, spec_from_args
+from allobranch.cli.options import add_worker_argument
 from allobranch.cli.options import add_mapping_arguments, table_from_args
-from allobranch.comparison.compare import LawComparison, compare_laws
 from allobranch.comparison.laws import CLASSIC_LAWS, resolve_laws
 from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
 from allobranch.errors import InputError
-from allobranch.inference.results import FitResult
 from allobranch.reporting.outputs import prepare_output_dir, write_files
+
+if TYPE_CHECKING:  # the comparison loads ArviZ; only when it runs
+    from allobranch.comparison.compare import LawComparison
 
 #: Files written into ``--out``.
 LAWS_FILE, BY_TAXON_FILE, REPORT_FILE = "laws.csv", "laws_by_taxon.csv", "laws.md"
@@ -52,6 +56,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="re-use a saved free-model fit (fit.nc from 'allobranch fit') instead of refitting; "
                              "its model options then apply")
     add_sampler_arguments(parser)
+    add_worker_argument(parser)
     parser.set_defaults(func=run)
 
 
@@ -102,12 +107,16 @@ def run(args: argparse.Namespace) -> int:
     except ValueError as exc:
         raise InputError(str(exc)) from None
     table = table_from_args(args)
+    from allobranch.comparison.compare import compare_laws
+    from allobranch.inference.results import FitResult
+
     free = FitResult.load(args.fit_file) if args.fit_file else None
     scopes = ("overall", "taxon") if args.scope == "both" else (args.scope,)
     result = compare_laws(
         table, laws, delta=args.delta, scopes=scopes, seed=args.seed, draws=args.draws, tune=args.tune,
         chains=args.chains, sampler=args.sampler, target_accept=args.target_accept,
         spec=None if free else spec_from_args(args), progress=not args.quiet, fit=free,
+        escalate=args.escalate, workers=args.workers,
     )
     written = write_outputs(result, args.out, force=args.force)
     for w in result.warnings:

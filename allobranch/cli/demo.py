@@ -7,14 +7,16 @@ from pathlib import Path
 
 from allobranch.cli.compare import write_outputs
 from allobranch.cli.fit import add_sampler_arguments, fit_and_write
+from allobranch.cli.options import add_worker_argument
 from allobranch.demo import DEMO_FILES, demo_folder, write_demo
-from allobranch.reporting.figures import write_figures
 from allobranch.reporting.outputs import prepare_output_dir
-from allobranch.reporting.report import REPORT_FILE, build_report
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch demo``."""
+    from allobranch.reporting.figures import write_figures
+    from allobranch.reporting.report import REPORT_FILE, build_report
+
     import allobranch as ab
     from allobranch.cli.check import format_check_report
 
@@ -30,7 +32,7 @@ def run(args: argparse.Namespace) -> int:
     result = fit_and_write(table, args, out)
     laws = ab.compare_laws(table, fit=result, seed=args.seed, draws=args.draws, tune=args.tune,
                            chains=args.chains, sampler=args.sampler, target_accept=args.target_accept,
-                           progress=not args.quiet)
+                           escalate=args.escalate, workers=args.workers, progress=not args.quiet)
     write_outputs(laws, out, force=args.force)
     print("Law verdicts (law, 'none' or 'undecided'):")
     for row in laws.verdicts.itertuples():
@@ -55,6 +57,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--out", metavar="DIR", default="allobranch_demo", help="results folder (default allobranch_demo)")
     add_sampler_arguments(parser)
+    add_worker_argument(parser)
     # shorter chains than 'fit' so that the demo's 16 fits (free model and every law) finish in minutes;
     # 4 x 500 draws still give ESS well above 400 on these data
     parser.set_defaults(func=run, draws=500, tune=500)

@@ -6,21 +6,55 @@ import argparse
 import sys
 
 from allobranch.cli.options import add_mapping_arguments, table_from_args
-from allobranch.model.spec import DEVIATIONS, ModelSpec
-from allobranch.reporting.fit_outputs import FIT_FILES, write_fit_outputs
+from allobranch.model.spec import DEVIATIONS, PARAMETRIZATIONS, SAMPLER_DEFAULTS, SAMPLERS, ModelSpec
+
+
+def positive_int(text: str) -> int:
+    """argparse type: a whole number of at least 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value
+
+
+def probability(text: str) -> float:
+    """argparse type: a number strictly between 0 and 1."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number between 0 and 1, got {text!r}") from None
+    if not 0 < value < 1:
+        raise argparse.ArgumentTypeError(f"must lie strictly between 0 and 1, got {value}")
+    return value
 
 
 def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
     """Sampler and model options shared by ``fit`` and ``demo``."""
     g = parser.add_argument_group("sampling")
     g.add_argument("--seed", type=int, default=0, help="random seed (same seed, same tables; default 0)")
-    g.add_argument("--draws", type=int, default=1000, help="posterior draws per chain (default 1000; demo 500)")
-    g.add_argument("--tune", type=int, default=1000, help="tuning steps per chain (default 1000; demo 500)")
-    g.add_argument("--chains", type=int, default=4, help="number of chains (default 4)")
-    g.add_argument("--sampler", choices=("nutpie", "pymc"), default="nutpie",
+    d = SAMPLER_DEFAULTS
+    g.add_argument("--draws", type=positive_int, default=d["draws"],
+                   help=f"posterior draws per chain (default {d['draws']})")
+    g.add_argument("--tune", type=positive_int, default=d["tune"],
+                   help=f"tuning steps per chain (default {d['tune']})")
+    g.add_argument("--chains", type=positive_int, default=d["chains"], help=f"number of chains (default {d['chains']})")
+    g.add_argument("--sampler", choices=SAMPLERS, default=d["sampler"],
                    help="NUTS implementation (default nutpie; falls back to pymc if nutpie fails)")
-    g.add_argument("--target-accept", type=float, default=0.9, dest="target_accept",
-                   help="NUTS target acceptance (default 0.9; raise to 0.95-0.99 after divergences)")
+    g.add_argument("--target-accept", type=probability, default=d["target_accept"], dest="target_accept",
+                   help=f"NUTS target acceptance of the first attempt (default {d['target_accept']}; a fit that "
+                   "fails its checks is refitted automatically with higher values)")
+    g.add_argument("--parametrization", choices=PARAMETRIZATIONS, default="auto",
+                   help="how the hierarchy's groups are sampled: auto (whitened from a pilot, default), "
+                   "centered or noncentered")
+    g.add_argument("--no-taxon-level", action="store_false", dest="taxon_level", default=None,
+                   help="one exponent shared by all taxa (no taxon level in the hierarchy)")
+    g.add_argument("--no-specimen-level", action="store_false", dest="specimen_level", default=None,
+                   help="specimens share their taxon's exponent (no specimen level in the hierarchy)")
+    g.add_argument("--no-escalate", action="store_false", dest="escalate",
+                   help="do not refit automatically when the first attempt has divergences or a high R-hat")
     g.add_argument("--deviation", choices=DEVIATIONS, default="normal",
                    help="junction deviation from the law: normal, or student_t for outlying junctions")
     g.add_argument("--hdi", type=float, default=0.9, help="HDI probability of the tables (default 0.9)")
@@ -30,18 +64,22 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
 
 def spec_from_args(args: argparse.Namespace) -> ModelSpec:
     """Model specification from the command-line options."""
-    return ModelSpec(deviation=args.deviation)
+    return ModelSpec(deviation=args.deviation, parametrization=args.parametrization, taxon_level=args.taxon_level,
+                     specimen_level=args.specimen_level)
 
 
 def fit_and_write(table, args: argparse.Namespace, out) -> object:
     """Fit ``table`` with the options in ``args`` and write the result folder ``out``; print a digest."""
     import allobranch as ab
+    from allobranch.reporting.fit_outputs import FIT_FILES, write_fit_outputs
     from allobranch.reporting.outputs import prepare_output_dir
 
     prepare_output_dir(out, list(FIT_FILES), force=args.force)  # fail before the long fit, not after
     result = ab.fit(table, spec_from_args(args), draws=args.draws, tune=args.tune, chains=args.chains,
                     seed=args.seed, sampler=args.sampler, target_accept=args.target_accept,
-                    progress=not args.quiet)
+                    escalate=args.escalate, progress=not args.quiet)
+    for note in result.notes:
+        print(f"NOTE: {note}", file=sys.stderr)
     write_fit_outputs(result, out, hdi_prob=args.hdi, force=True)
     for w in result.warnings:
         print(f"WARNING: {w}", file=sys.stderr)

@@ -50,6 +50,9 @@ def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool =
                        help="table of repeat readings (columns specimen, junction, segment, value); for an "
                             "Excel TABLE also a sheet name")
     group.add_argument("--sheet", metavar="NAME", help="Excel sheet holding the junctions (default: the first)")
+    group.add_argument("--encoding", metavar="NAME",
+                       help="text encoding of a CSV/TSV TABLE and repeat-readings file, e.g. cp1252, latin-1, "
+                       "utf-16 (default: UTF-8)")
 
 
 def mapping_from_args(args: argparse.Namespace) -> ColumnMapping:
@@ -72,8 +75,15 @@ def mapping_from_args(args: argparse.Namespace) -> ColumnMapping:
     return mapping_from_options(
         base=base, parent=args.parent, daughters=args.daughters, taxon=args.taxon, specimen=args.specimen,
         junction=args.junction, measure=args.measure, unit=args.unit, rel_error=args.rel_error, se=args.se,
-        repeats=repeats, sheet=args.sheet,
+        repeats=repeats, sheet=args.sheet, encoding=args.encoding,
     )
+
+
+def add_worker_argument(parser: argparse.ArgumentParser) -> None:
+    """``--workers``: local processes running a comparison's fits."""
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="worker processes running the law fits (default: one per processor core); the "
+                        "results do not depend on it")
 
 
 def table_from_args(args: argparse.Namespace) -> JunctionTable:

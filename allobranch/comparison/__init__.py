@@ -8,8 +8,16 @@ probability near each law), :mod:`~allobranch.comparison.verdict` (the decision 
 
 from __future__ import annotations
 
-from allobranch.comparison.compare import LawComparison, compare_laws
 from allobranch.comparison.laws import CLASSIC_LAWS, Law, parse_law, resolve_laws
 from allobranch.comparison.rope import DEFAULT_DELTA
 
 __all__ = ["CLASSIC_LAWS", "DEFAULT_DELTA", "Law", "LawComparison", "compare_laws", "parse_law", "resolve_laws"]
+
+
+def __getattr__(name: str):
+    # the comparison itself (ArviZ, sampling) loads on first use, so light imports of laws stay light
+    if name in ("LawComparison", "compare_laws"):
+        from allobranch.comparison import compare
+
+        return getattr(compare, name)
+    raise AttributeError(f"module 'allobranch.comparison' has no attribute {name!r}")

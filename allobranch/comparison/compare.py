@@ -2,23 +2,22 @@
 
 from __future__ import annotations
 
-import itertools
-import sys
 import time
 from collections.abc import Iterable, Mapping, Sequence
+from concurrent.futures import Executor
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
-from allobranch.comparison import bayes_factor, loo, rope, verdict
-from allobranch.comparison.laws import FREE, SCOPES, Law, hypothesis_spec, resolve_laws
+from allobranch.comparison import bayes_factor, jobs, loo, rope, verdict
+from allobranch.comparison.jobs import OVERALL
+from allobranch.comparison.laws import FREE, SCOPES, Law, resolve_laws
 from allobranch.errors import InputError
 from allobranch.inference.fit import LOGLIK_VAR
-from allobranch.inference.fit import fit as fit_model
 from allobranch.inference.results import FitResult
 from allobranch.intake.table import JunctionTable
-from allobranch.model.spec import ModelSpec
+from allobranch.model.spec import SAMPLER_DEFAULTS, ModelSpec
 
 #: Columns of :attr:`LawComparison.overall` (and of the long evidence table, for every scope).
 EVIDENCE_COLUMNS: tuple[str, ...] = (
@@ -31,8 +30,6 @@ LAWS_TABLE_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd", "elpd_di
 #: Per-law evidence columns of :attr:`LawComparison.by_taxon`, each suffixed ``_<label>``.
 BY_TAXON_LAW_COLUMNS: tuple[str, ...] = ("p_rope", "log10_bf", "log10_bf_narrow", "log10_bf_wide", "bf_method",
                                          "elpd_diff", "dse", "weight")
-#: Default sampler settings for the hypothesis fits (as :func:`allobranch.fit`).
-DEFAULT_DRAWS, DEFAULT_TUNE, DEFAULT_CHAINS, DEFAULT_TARGET_ACCEPT = 1000, 1000, 4, 0.9
 
 
 @dataclass
@@ -131,9 +128,9 @@ def _check_scopes(scopes: Iterable[str]) -> tuple[str, ...]:
     return scopes
 
 
-def _free_fit(table_or_fit: JunctionTable | FitResult, fit: FitResult | None, spec: ModelSpec | None,
-              sampler: dict, progress: bool) -> tuple[FitResult, JunctionTable]:
-    """The free model's fit (given or fitted here) and the table to fit the laws to."""
+def _free_fit(table_or_fit: JunctionTable | FitResult, fit: FitResult | None, spec: ModelSpec | None
+              ) -> tuple[FitResult | None, JunctionTable]:
+    """The given free model's fit (None when it is to be fitted here) and the table to fit the laws to."""
     if isinstance(table_or_fit, FitResult):
         if fit is not None:
             raise InputError("the free fit was given twice (as the first argument and as fit=); give it once")
@@ -155,35 +152,17 @@ def _free_fit(table_or_fit: JunctionTable | FitResult, fit: FitResult | None, sp
         return fit, table
     if spec is not None and (spec.fixed_exponent is not None or spec.fixed_taxa):
         raise InputError("spec must describe the free model: leave fixed_exponent and fixed_taxa empty")
-    _log(progress, "fitting the free model")
-    return fit_model(table, spec or ModelSpec(), progress=progress, **sampler), table
+    return None, table
 
 
-def _derived_seed(seed: int, k: int) -> int:
-    """The ``k``-th hypothesis fit's seed, derived from the user's seed (independent streams)."""
-    return int(np.random.SeedSequence([int(seed), int(k)]).generate_state(1)[0] % (2**31 - 1))
-
-
-def _log(progress: bool, message: str) -> None:
-    if progress:
-        print(f"[compare] {message}", file=sys.stderr, flush=True)
-
-
-def _fit_scope(table: JunctionTable, free: FitResult, laws: Sequence[Law], taxon: str | None,
-               sampler: dict, seeds: Iterable[int], progress: bool, warnings: list[str]) -> dict:
-    """Fit every law of one scope; returns label -> InferenceData (the free model first)."""
-    idatas = {FREE: free.idata}
-    where = "overall" if taxon is None else f"taxon {taxon}"
-    for law, seed in zip(laws, seeds):
-        _log(progress, f"fitting {law.label} (a = {law.value:g}), {where}")
-        result = fit_model(table, hypothesis_spec(free.spec, law.value, taxon), progress=progress,
-                           **{**sampler, "seed": int(seed)})
-        if result.warnings:  # one line per fit: the problems, not the advice (the free fit's is in full)
-            problems = "; ".join(w.split(". ")[0] for w in result.warnings)
-            warnings.append(f"fit of {law.label} ({where}): {problems} -> its LOO terms are less trustworthy; "
-                            "run longer (--draws/--tune)")
-        idatas[law.label] = result.idata
-    return idatas
+def _law_fit_warning(result: FitResult, law: str, scope: str) -> str | None:
+    """One line for a law's fit that failed its checks: the problems, not the advice."""
+    if not result.warnings:
+        return None
+    where = "overall" if scope == OVERALL else f"taxon {scope}"
+    problems = "; ".join(w.split(". ")[0] for w in result.warnings)
+    return (f"fit of {law} ({where}): {problems} -> its LOO terms are less trustworthy; run longer "
+            "(--draws/--tune)")
 
 
 def _scope_rows(scope: str, loo_result: loo.LooComparison, bf: pd.DataFrame, draws: np.ndarray,
@@ -219,6 +198,9 @@ def compare_laws(
     spec: ModelSpec | None = None,
     progress: bool = False,
     fit: FitResult | None = None,
+    workers: int | None = None,
+    executor: Executor | None = None,
+    escalate: bool = True,
 ) -> LawComparison:
     """Compare point laws for the branching exponent with the free model, overall and per taxon.
 
@@ -251,7 +233,8 @@ def compare_laws(
     sampler : {"nutpie", "pymc"}
         NUTS implementation.
     target_accept : float, optional
-        NUTS target acceptance of every fit; default: the given free fit's, else 0.9.
+        NUTS target acceptance of the first attempt of every fit (default 0.9; each fit escalates on its own
+        when it fails its checks).
     spec : ModelSpec, optional
         Specification of the free model when it is fitted here (no fixed exponents); the laws' models
         differ from it only in the fixed exponent.
@@ -259,6 +242,14 @@ def compare_laws(
         Print which hypothesis is being fitted and show the sampler's progress.
     fit : FitResult, optional
         A saved fit of the free model of ``table_or_fit`` to re-use instead of refitting it.
+    workers : int, optional
+        Local worker processes running the fits (default: one per processor core, at most one per fit;
+        1 runs them in this process). The results do not depend on it: every fit's seed is derived from
+        ``seed`` and the fit's scope and law only (:mod:`allobranch.comparison.jobs`).
+    executor : concurrent.futures.Executor, optional
+        Run the fits on this executor instead of local processes.
+    escalate : bool
+        Let every fit refit itself when its first attempt fails its checks (as :func:`allobranch.fit`).
 
     Returns
     -------
@@ -288,33 +279,41 @@ def compare_laws(
     scopes = _check_scopes(scopes)
     given = fit if fit is not None else (table_or_fit if isinstance(table_or_fit, FitResult) else None)
     base = given.settings if given is not None else {}
-    sampler_kw = {"draws": int(draws or base.get("draws", DEFAULT_DRAWS)),
-                  "tune": int(tune or base.get("tune", DEFAULT_TUNE)),
-                  "chains": int(chains or base.get("chains", DEFAULT_CHAINS)), "sampler": sampler,
-                  "target_accept": float(target_accept or base.get("target_accept", DEFAULT_TARGET_ACCEPT))}
-    seeds = (_derived_seed(seed, k) for k in itertools.count(1))
-    free, table = _free_fit(table_or_fit, fit, spec, {**sampler_kw, "seed": seed}, progress)
+    defaults = SAMPLER_DEFAULTS
+    sampler_kw = {"draws": int(draws or base.get("draws", defaults["draws"])),
+                  "tune": int(tune or base.get("tune", defaults["tune"])),
+                  "chains": int(chains or base.get("chains", defaults["chains"])), "sampler": sampler,
+                  "target_accept": float(target_accept or defaults["target_accept"]), "escalate": bool(escalate)}
+    given_fit, table = _free_fit(table_or_fit, fit, spec)
     taxa = [str(t) for t in table.taxa]
     if "taxon" in scopes and "overall" in taxa:
         raise InputError("a taxon is named 'overall', which is the name of the all-taxa scope; rename it")
+    free_spec = given_fit.spec if given_fit is not None else (spec or ModelSpec())
+    plan = jobs.plan_jobs(laws, taxa, scopes, seed, include_free=given_fit is None)
+    log = jobs.stderr_log(progress)
+    log(f"{len(plan)} fits to run")
+    fits = jobs.run_jobs(table, free_spec, plan, {**sampler_kw, "progress": False}, workers=workers,
+                         executor=executor, log=log)
+    free = given_fit if given_fit is not None else fits[(jobs.OVERALL, FREE)]
 
     warnings = rope.overlapping_laws(laws, delta)
     warnings += [f"fit of the free model: {w}" for w in free.warnings]
     per_scope: dict[str, dict] = {}
-    n_fits = int(given is None)
-    if "overall" in scopes or len(taxa) == 1:
-        per_scope["overall"] = _fit_scope(table, free, laws, None, sampler_kw, seeds, progress, warnings)
-        n_fits += len(laws)
-    if "taxon" in scopes:
-        for taxon in taxa:
-            if len(taxa) == 1:
-                per_scope[taxon] = per_scope["overall"]
-                warnings.append(f"one taxon ({taxon}): its comparison is the overall one (same models)")
-            else:
-                per_scope[taxon] = _fit_scope(table, free, laws, taxon, sampler_kw, seeds, progress, warnings)
-                n_fits += len(laws)
+    scope_names = [scope for scope in [OVERALL, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)]
+    for scope in scope_names:
+        per_scope[scope] = {FREE: free.idata}
+        for law in laws:
+            result = fits[(scope, law.label)]
+            message = _law_fit_warning(result, law.label, scope)
+            if message:
+                warnings.append(message)
+            per_scope[scope][law.label] = result.idata
+    if "taxon" in scopes and len(taxa) == 1:
+        per_scope[taxa[0]] = per_scope[jobs.OVERALL]
+        warnings.append(f"one taxon ({taxa[0]}): its comparison is the overall one (same models)")
     if "overall" not in scopes:
-        per_scope.pop("overall", None)
+        per_scope.pop(jobs.OVERALL, None)
+    n_fits = len(plan)
 
     bf, bf_warnings = bayes_factor.bayes_factor_table(
         free.idata, free.spec.priors, laws, taxa if "taxon" in scopes else None,

@@ -19,11 +19,15 @@ BFMI_MIN = 0.3
 
 #: What to try, by kind of failure (shown with every warning).
 ADVICE = {
-    "r_hat": "run longer (--draws/--tune) or more chains; if it persists, simplify the hierarchy",
-    "ess": "run more draws (--draws); a low ESS with many draws points at a hard posterior geometry",
-    "divergences": "raise target_accept (e.g. 0.95), try parametrization='noncentered' or 'centered', "
-    "or use the Student-t deviation if a few junctions are outlying",
-    "bfmi": "the sampler explores the energy poorly: reparametrise (noncentered) or tighten scale priors",
+    "r_hat": "run longer (--draws/--tune; draws=/tune= in Python) or more chains (--chains); if it persists, "
+    "drop a level of the hierarchy (--no-specimen-level or --no-taxon-level; ModelSpec(specimen_level=False))",
+    "ess": "run more draws (--draws; draws= in Python); a low ESS with many draws points at a hard posterior "
+    "geometry",
+    "divergences": "raise the target acceptance (--target-accept 0.99; target_accept= in Python), try "
+    "--parametrization noncentered or centered (ModelSpec(parametrization=...)), or --deviation student_t "
+    "if a few junctions are outlying",
+    "bfmi": "the sampler explores the energy poorly: try --parametrization noncentered or centered "
+    "(ModelSpec(parametrization=...)), or tighter scale priors (ModelSpec(priors=Priors(...)) in Python)",
 }
 
 
