@@ -107,7 +107,8 @@ def test_fixed_exponent_recovers_the_deviation_scale() -> None:
     res = ab.fit(table, ab.ModelSpec(fixed_exponent=2.5), seed=2, draws=300, tune=300, chains=2, progress=False)
     var = res.variance_components().set_index("component")
     row = var.loc["sigma_dev"]
-    assert row["hdi_low"] <= 0.08 <= row["hdi_high"], row
+    assert abs(row["mean"] - 0.08) < 3 * row["sd"], row
+    assert row["sd"] < 0.02, row  # and it is informative: the prior's SD is about 0.06
     # Informative, not just the prior: a third of the width of the prior's central 90 % (the default
     # HalfNormal(0.1) prior, quantiles from scipy.stats.halfnorm).
     prior_width = float(np.diff(halfnorm.ppf([0.05, 0.95], scale=res.spec.priors.sigma_dev))[0])
@@ -118,7 +119,7 @@ def test_fixed_exponent_recovers_the_deviation_scale() -> None:
 
 
 def test_pymc_sampler_runs(table) -> None:
-    res = ab.fit(table, seed=5, sampler="pymc", draws=60, tune=60, chains=2, progress=False)
+    res = ab.fit(table, seed=5, sampler="pymc", draws=60, tune=60, chains=2, progress=False, escalate=False)
     assert res.settings["sampler"] == "pymc"
     assert res.notes == []
     exps = res.exponents()
@@ -131,9 +132,11 @@ def test_nutpie_failure_falls_back_to_pymc(table, monkeypatch) -> None:
     def broken(*args, **kwargs):
         raise RuntimeError("simulated nutpie failure")
 
-    monkeypatch.setattr(fit_module, "sample_nutpie", broken)
+    from allobranch.inference import sampling
+
+    monkeypatch.setattr(sampling, "_sample_fast", broken)
     with pytest.warns(RuntimeWarning, match="falling back to PyMC"):
-        res = ab.fit(table, seed=5, draws=30, tune=30, chains=2, progress=False)
+        res = ab.fit(table, seed=5, draws=30, tune=30, chains=2, progress=False, escalate=False)
     assert res.settings["sampler"] == "pymc"
     assert any("PyMC" in note for note in res.notes)
     assert "a_taxon" in res.idata.posterior

@@ -69,7 +69,7 @@ def _names(built) -> dict[str, set[str]]:
 
 
 # -- forms and options -----------------------------------------------------------------------------------------
-HIERARCHY_NC = {"mu", "tau_taxon", "z_taxon", "tau_specimen", "z_specimen", "sigma_dev"}
+HIERARCHY_NC = {"mu", "tau_taxon", "r_taxon", "tau_specimen", "r_specimen", "sigma_dev"}
 
 
 def test_fast_form_variables(data) -> None:
@@ -108,8 +108,8 @@ def test_latent_form_has_every_true_daughter(data) -> None:
     ("levels", "expected_free"),
     [
         ({"taxon_level": False, "specimen_level": False}, {"mu", "sigma_dev"}),
-        ({"taxon_level": True, "specimen_level": False}, {"mu", "tau_taxon", "z_taxon", "sigma_dev"}),
-        ({"taxon_level": False, "specimen_level": True}, {"mu", "tau_specimen", "z_specimen", "sigma_dev"}),
+        ({"taxon_level": True, "specimen_level": False}, {"mu", "tau_taxon", "r_taxon", "sigma_dev"}),
+        ({"taxon_level": False, "specimen_level": True}, {"mu", "tau_specimen", "r_specimen", "sigma_dev"}),
         ({}, HIERARCHY_NC),
     ],
     ids=["none", "taxon", "specimen", "auto"],
@@ -147,14 +147,14 @@ def test_fixed_taxa_fix_only_the_named_taxa(data) -> None:
     (a_taxon_values,) = model.replace_rvs_by_values([model["a_taxon"]])
     fn = model.compile_fn(a_taxon_values, inputs=model.value_vars, on_unused_input="ignore")
     point = model.initial_point()
-    point["z_taxon"] = np.array([1.0, -1.0, 0.5])
+    point["r_taxon"] = np.array([1.0, -1.0, 0.5])
     a_taxon = fn(point)
     assert a_taxon[1] == 2.0
     tau = np.exp(point["tau_taxon_log__"])
     np.testing.assert_allclose(a_taxon[[0, 2]], point["mu"] + tau * np.array([1.0, 0.5]))  # exact algebra
     # the fixed taxon's specimens are pinned to the law as well; the others vary
     (a_spec_values,) = model.replace_rvs_by_values([model["a_specimen"]])
-    point["z_specimen"] = np.linspace(-1.0, 1.0, len(point["z_specimen"]))
+    point["r_specimen"] = np.linspace(-1.0, 1.0, len(point["r_specimen"]))
     a_spec = model.compile_fn(a_spec_values, inputs=model.value_vars, on_unused_input="ignore")(point)
     in_t2 = data.specimen_taxon_idx == 1
     np.testing.assert_array_equal(a_spec[in_t2], 2.0)
@@ -205,15 +205,20 @@ def test_no_error_information_estimates_sigma_meas_from_its_prior() -> None:
     assert built.form == "full" and "sigma_meas" in _names(built)["free"]
 
 
-def test_auto_parametrization_centres_well_informed_groups() -> None:
-    # 1 % error: every junction counts (0.05 / 0.01)^2 = 25 times, so 15 junctions per specimen exceed
-    # the centring threshold at both levels.
-    d = model_data(_table(rel_error=0.01))
-    names = _names(build_model(d))
-    assert {"a_taxon_free", "a_specimen_free"} <= names["free"]
-    assert not {"z_taxon", "z_specimen"} & names["free"]
-    nc = _names(build_model(d, ModelSpec(parametrization="noncentered")))
-    assert {"z_taxon", "z_specimen"} <= nc["free"]
+def test_auto_parametrization_weights_follow_information() -> None:
+    # Partial centring (Papaspiliopoulos, Roberts & Skold 2007): a group's weight tau^2 / (tau^2 + s^2) grows
+    # as its own data pin it down, so 1 % error must give larger weights than 20 % error on the same design.
+    from allobranch.model.structure import group_layout
+
+    sharp = group_layout(model_data(_table(rel_error=0.01)), ModelSpec())
+    blurred = group_layout(model_data(_table(rel_error=0.20)), ModelSpec())
+    assert np.median(sharp.pilot.w_specimen) > np.median(blurred.pilot.w_specimen) + 0.2
+    assert np.all(sharp.pilot.sd_specimen < blurred.pilot.sd_specimen)
+    assert sharp.whiten and blurred.whiten  # auto samples the whitened hierarchy on the fast route
+    # explicit choices give the extremes at every free group, and the PyMC model has the raw variables
+    assert np.all(group_layout(model_data(_table()), ModelSpec(parametrization="centered")).w_specimen == 1.0)
+    nc = _names(build_model(model_data(_table()), ModelSpec(parametrization="noncentered")))
+    assert {"r_taxon", "r_specimen"} <= nc["free"]
 
 
 def test_model_form_choice(data) -> None:
@@ -236,16 +241,16 @@ def _value_point(model, natural: dict[str, np.ndarray]) -> dict[str, np.ndarray]
 
 def _hierarchy_point(data, rng: np.random.Generator) -> dict[str, np.ndarray]:
     return {
-        "mu": 2.6, "tau_taxon": 0.3, "z_taxon": rng.standard_normal(len(data.taxa)),
-        "tau_specimen": 0.12, "z_specimen": rng.standard_normal(len(data.specimens)), "sigma_dev": 0.05,
+        "mu": 2.6, "tau_taxon": 0.3, "r_taxon": rng.standard_normal(len(data.taxa)),
+        "tau_specimen": 0.12, "r_specimen": rng.standard_normal(len(data.specimens)), "sigma_dev": 0.05,
         "sigma_asym": 0.22, "nu": 7.0, "sigma_meas": 0.06,
     }
 
 
 def _specimen_exponents(data, p: dict) -> np.ndarray:
     """Exact algebra of the non-centred hierarchy."""
-    a_taxon = p["mu"] + p["tau_taxon"] * p["z_taxon"]
-    return a_taxon[data.specimen_taxon_idx] + p["tau_specimen"] * p["z_specimen"]
+    a_taxon = p["mu"] + p["tau_taxon"] * p["r_taxon"]
+    return a_taxon[data.specimen_taxon_idx] + p["tau_specimen"] * p["r_specimen"]
 
 
 def _prior_logp(p: dict, priors: Priors, extra: tuple[str, ...] = ()) -> float:
@@ -253,9 +258,9 @@ def _prior_logp(p: dict, priors: Priors, extra: tuple[str, ...] = ()) -> float:
     total = (
         stats.norm.logpdf(p["mu"], priors.mu_mean, priors.mu_sd)
         + stats.halfnorm.logpdf(p["tau_taxon"], scale=priors.tau_taxon)
-        + stats.norm.logpdf(p["z_taxon"]).sum()
+        + stats.norm.logpdf(p["r_taxon"]).sum()
         + stats.halfnorm.logpdf(p["tau_specimen"], scale=priors.tau_specimen)
-        + stats.norm.logpdf(p["z_specimen"]).sum()
+        + stats.norm.logpdf(p["r_specimen"]).sum()
         + stats.halfnorm.logpdf(p["sigma_dev"], scale=priors.sigma_dev)
     )
     if "sigma_asym" in extra:

@@ -518,7 +518,22 @@ def _logp_grad_white(x, ints, floats, grad):
     for s in range(ns):
         if a_s[s].real <= A_FLOOR:
             d_as[s] = 0.0
-    for i in range(n_h):
+    # specimen deviations touch only their own specimen: analytic (a_s = mean + sd_s z_s); every other
+    # hierarchy coordinate by complex step
+    z0 = n_h
+    if ints[_SPEC]:
+        z0 = n_h - ns
+        lt_s = x[z0 - 1]
+        T_s = math.exp(2.0 * lt_s)
+        ahat, prec = _pilot_views(ints, floats)
+        _, _, _, a_t = _white_hierarchy(xc, ints, floats)
+        for s in range(ns):
+            if pinned[s]:
+                grad[z0 + s] = -x[z0 + s]
+            else:
+                sds = 1.0 / math.sqrt(1.0 / T_s + prec[s])
+                grad[z0 + s] = (d_as[s] - (a_s[s].real - a_t[spec_taxon[s]].real) / T_s) * sds
+    for i in range(z0):
         xc[i] += 1j * kernel.H
         a_i, lp_i, _, _ = _white_hierarchy(xc, ints, floats)
         xc[i] -= 1j * kernel.H
