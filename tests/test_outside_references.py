@@ -229,3 +229,18 @@ def test_sampled_posterior_equals_grid_integration(seed):
     # the comparison has teeth: the posterior is far narrower than the prior and the MCSE is small
     assert grid_sd < 0.35 and mcse_mean < 0.02
 
+
+
+@pytest.mark.parametrize("n_draws", [400, 2500])
+def test_pareto_k_threshold_is_the_published_one(n_draws):
+    # Pareto-smoothed importance sampling is reliable for Pareto k below min(1 - 1/log10(S), 0.7) with S
+    # draws (Vehtari, Simpson, Gelman, Yao & Gabry 2024, JMLR 25(72); formula from memory): 0.656 for 800
+    # draws, 0.7 from about 2,200 on. LOO junctions above it are the ones the comparison reports.
+    from allobranch.comparison import loo as loom
+
+    rng = np.random.default_rng(0)
+    fits = {label: az.from_dict(posterior={"mu": rng.normal(size=(2, n_draws))},
+                                log_likelihood={"loglik": rng.normal(-1 + shift, 0.3, size=(2, n_draws, 6))})
+            for label, shift in (("free", 0.0), ("murray", -0.2))}
+    got = loom.compare_loo(fits)
+    assert got.k_threshold == pytest.approx(min(1 - 1 / math.log10(2 * n_draws), 0.7), abs=1e-12)
