@@ -140,16 +140,27 @@ def run_jobs(table: JunctionTable, free_spec: ModelSpec, jobs: Sequence[FitJob],
         cores = max(1, (os.cpu_count() or 1) // workers)
         sampler_kw = {**sampler_kw, "cores": cores}
         executor = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"))
+    from concurrent.futures import as_completed
+    from concurrent.futures.process import BrokenProcessPool
+
     try:
         futures = {executor.submit(run_job, table, free_spec, job, sampler_kw): job for job in jobs}
         done = 0
-        from concurrent.futures import as_completed
-
         for future in as_completed(futures):
             job = futures[future]
             results[job.key] = future.result()
             done += 1
             log(f"{done}/{n} done: {job.law} ({job.scope})")
+    except BrokenProcessPool:
+        if not own:
+            raise
+        # worker processes could not start (typically a script without an `if __name__ == "__main__":`
+        # guard, which spawned workers re-run): run the remaining jobs here; seeds make the results the same
+        log("worker processes could not start; running the fits in this process (add an "
+            "`if __name__ == \"__main__\":` guard to your script, or pass workers=1)")
+        for job in jobs:
+            if job.key not in results:
+                results[job.key] = run_job(table, free_spec, job, {**sampler_kw, "cores": None})
     finally:
         if own:
             executor.shutdown(wait=True, cancel_futures=True)
