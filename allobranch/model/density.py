@@ -394,6 +394,54 @@ def _conditioned_mu(x, ints, floats):
 
 
 @nb.njit(cache=True, nogil=True)
+def _junction_likelihood(ints, floats, a_s, sdev, nu):
+    """Summed junction log-likelihood at real specimen exponents ``a_s`` (floored at :data:`A_FLOOR`),
+    with its derivatives in the specimen exponents, the deviation scale and ``nu``."""
+    n, ns = ints[_N], ints[_NS]
+    student = ints[_STUDENT] != 0
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
+     fixed_vals) = _views(ints, floats)
+    a_eff = np.empty(ns)
+    for s in range(ns):
+        a_eff[s] = a_s[s] if a_s[s] > A_FLOOR else A_FLOOR
+    ll, dll, _, _ = kernel.fast_terms(y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu,
+                                      student)
+    total = 0.0
+    d_as = np.zeros(ns)
+    d_sdev = 0.0
+    d_nu = 0.0
+    for j in range(n):
+        total += ll[j]
+        d_as[spec_idx[j]] += dll[j, 0]
+        d_sdev += dll[j, 1]
+        d_nu += dll[j, 4]
+    for s in range(ns):
+        if a_s[s] <= A_FLOOR:
+            d_as[s] = 0.0
+    return total, d_as, d_sdev, d_nu
+
+
+@nb.njit(cache=True, nogil=True)
+def _deviation_terms(x, k, ints, floats, d_sdev, d_nu, grad):
+    """Prior, Jacobian and gradient of ``log sigma_dev`` at ``x[k]`` (and ``log nu`` at ``x[k + 1]`` for the
+    Student-t), given the likelihood's derivatives in ``sigma_dev`` and ``nu``; returns their log density."""
+    log_sdev = x[k]
+    sdev = math.exp(log_sdev)
+    lp, dhn = _half_normal_log(log_sdev, floats[_SD_SCALE])
+    grad[k] = dhn + sdev * d_sdev
+    if ints[_STUDENT]:
+        n = ints[_N]
+        nu = math.exp(x[k + 1])
+        alpha, beta = floats[_NU_A], floats[_NU_B]
+        const = n * (math.lgamma((nu + 1.0) / 2.0) - math.lgamma(nu / 2.0) - 0.5 * math.log(nu * math.pi))
+        d_const = n * (0.5 * _digamma((nu + 1.0) / 2.0) - 0.5 * _digamma(nu / 2.0) - 0.5 / nu)
+        lp += const + alpha * math.log(beta) - math.lgamma(alpha) + (alpha - 1.0) * math.log(nu) - beta * nu
+        lp += math.log(nu)  # Jacobian of the log transform
+        grad[k + 1] = nu * (d_nu + d_const + (alpha - 1.0) / nu - beta) + 1.0
+    return lp
+
+
+@nb.njit(cache=True, nogil=True)
 def _white_hierarchy(x, ints, floats):
     """Whitened hierarchy (complex arithmetic, for complex-step derivatives).
 
@@ -498,26 +546,12 @@ def _logp_grad_white(x, ints, floats, grad):
     n_h = ndim - (2 if student else 1)  # hierarchy coordinates come first
     xc = x[:n_h].astype(np.complex128)
     a_s, lp_h, _, _ = _white_hierarchy(xc, ints, floats)
-    log_sdev = x[n_h]
-    sdev = math.exp(log_sdev)
+    sdev = math.exp(x[n_h])
     nu = math.exp(x[n_h + 1]) if student else 30.0
-    a_eff = np.empty(ns)
+    a_real = np.empty(ns)
     for s in range(ns):
-        a_eff[s] = a_s[s].real if a_s[s].real > A_FLOOR else A_FLOOR
-    ll, dll, _, _ = kernel.fast_terms(y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu,
-                                      student)
-    total = 0.0
-    d_as = np.zeros(ns)
-    d_sdev = 0.0
-    d_nu = 0.0
-    for j in range(n):
-        total += ll[j]
-        d_as[spec_idx[j]] += dll[j, 0]
-        d_sdev += dll[j, 1]
-        d_nu += dll[j, 4]
-    for s in range(ns):
-        if a_s[s].real <= A_FLOOR:
-            d_as[s] = 0.0
+        a_real[s] = a_s[s].real
+    total, d_as, d_sdev, d_nu = _junction_likelihood(ints, floats, a_real, sdev, nu)
     # specimen deviations touch only their own specimen: analytic (a_s = mean + sd_s z_s); every other
     # hierarchy coordinate by complex step
     z0 = n_h
@@ -541,17 +575,7 @@ def _logp_grad_white(x, ints, floats, grad):
         for s in range(ns):
             gi += d_as[s] * a_i[s].imag / kernel.H
         grad[i] = gi
-    lp = total + lp_h.real
-    hn, dhn = _half_normal_log(log_sdev, floats[_SD_SCALE])
-    lp += hn
-    grad[n_h] = dhn + sdev * d_sdev
-    if student:
-        alpha, beta = floats[_NU_A], floats[_NU_B]
-        const = n * (math.lgamma((nu + 1.0) / 2.0) - math.lgamma(nu / 2.0) - 0.5 * math.log(nu * math.pi))
-        d_const = n * (0.5 * _digamma((nu + 1.0) / 2.0) - 0.5 * _digamma(nu / 2.0) - 0.5 / nu)
-        lp += const + alpha * math.log(beta) - math.lgamma(alpha) + (alpha - 1.0) * math.log(nu) - beta * nu
-        lp += math.log(nu)
-        grad[n_h + 1] = nu * (d_nu + d_const + (alpha - 1.0) / nu - beta) + 1.0
+    lp = total + lp_h.real + _deviation_terms(x, n_h, ints, floats, d_sdev, d_nu, grad)
     return lp
 
 
@@ -585,29 +609,9 @@ def _logp_grad_plain(x, ints, floats, grad):
     (mu, lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt,
      lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt, p) = _hierarchy(
         x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
-    log_sdev = x[p]
-    sdev = math.exp(log_sdev)
-    nu = 30.0
-    if student:
-        nu = math.exp(x[p + 1])
-
-    a_eff = np.empty(ns)
-    for s in range(ns):
-        a_eff[s] = a_s[s] if a_s[s] > A_FLOOR else A_FLOOR
-    ll, dll, _, _ = kernel.fast_terms(y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu,
-                                      student)
-    total = 0.0
-    d_as = np.zeros(ns)
-    d_sdev = 0.0
-    d_nu = 0.0
-    for j in range(n):
-        total += ll[j]
-        d_as[spec_idx[j]] += dll[j, 0]
-        d_sdev += dll[j, 1]
-        d_nu += dll[j, 4]
-    for s in range(ns):
-        if a_s[s] <= A_FLOOR:
-            d_as[s] = 0.0
+    sdev = math.exp(x[p])
+    nu = math.exp(x[p + 1]) if student else 30.0
+    total, d_as, d_sdev, d_nu = _junction_likelihood(ints, floats, a_s, sdev, nu)
 
     lp = total + lp_t + lp_s
     for i in range(grad.shape[0]):
@@ -648,17 +652,7 @@ def _logp_grad_plain(x, ints, floats, grad):
         q += 1 + ns
     if ints[_MU_FREE]:
         grad[0] = d_mu
-    # deviation scale
-    hn, dhn = _half_normal_log(log_sdev, floats[_SD_SCALE])
-    lp += hn
-    grad[q] = dhn + sdev * d_sdev
-    if student:
-        alpha, beta = floats[_NU_A], floats[_NU_B]
-        const = n * (math.lgamma((nu + 1.0) / 2.0) - math.lgamma(nu / 2.0) - 0.5 * math.log(nu * math.pi))
-        d_const = n * (0.5 * _digamma((nu + 1.0) / 2.0) - 0.5 * _digamma(nu / 2.0) - 0.5 / nu)
-        lp += const + alpha * math.log(beta) - math.lgamma(alpha) + (alpha - 1.0) * math.log(nu) - beta * nu
-        lp += math.log(nu)  # Jacobian of the log transform
-        grad[q + 1] = nu * (d_nu + d_const + (alpha - 1.0) / nu - beta) + 1.0
+    lp += _deviation_terms(x, q, ints, floats, d_sdev, d_nu, grad)
     return lp
 
 
