@@ -2,7 +2,7 @@
 
 The table: 20 taxa x 5 specimens x 100 junctions (bifurcations), 5 % relative error, fixed seed.
 
-1. Fast form (``allobranch.fit`` defaults: marginal likelihood, empirical asymmetry, nutpie through
+1. Fast form (``allobranch.fit`` defaults: marginal likelihood, empirical asymmetry,
    nutpie on the compiled density, whitened hierarchy). Wall time includes building, compiling, sampling and the per-junction
    log-likelihood; sampler settings start at tune = draws = 300 with 4 chains and are doubled until every
    hyper-parameter has R-hat <= 1.01 and bulk ESS >= 400 (thresholds of Vehtari et al. 2021, Bayesian
