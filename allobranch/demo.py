@@ -20,13 +20,20 @@ from allobranch.model.simulate import simulate_junctions
 #: Seed of the demo data.
 DEMO_SEED = 20261202
 #: True exponents of the invented species.
-DEMO_EXPONENTS = {"Saurovena alta": 3.0, "Saurovena borealis": 3.0, "Saurovena caldera": 2.0,
-                  "Saurovena dunensis": 2.5}
+DEMO_EXPONENTS = {
+    "Saurovena alta": 3.0,
+    "Saurovena borealis": 3.0,
+    "Saurovena caldera": 2.0,
+    "Saurovena dunensis": 2.5,
+}
 DEMO_SPECIMENS = (4, 3, 4, 2)
 DEMO_REL_ERROR = 0.06
 #: Files in the demo folder.
-DEMO_FILES = {"table": "simulated_saurovena_casts.csv", "recipe": "simulated_saurovena_casts.toml",
-              "truth": "simulated_truth.json"}
+DEMO_FILES = {
+    "table": "simulated_saurovena_casts.csv",
+    "recipe": "simulated_saurovena_casts.toml",
+    "truth": "simulated_truth.json",
+}
 
 RECIPE = """# Column mapping for the SIMULATED Saurovena demo table (allobranch recipe)
 [columns]
@@ -49,28 +56,47 @@ def make_demo(seed: int = DEMO_SEED) -> tuple[pd.DataFrame, dict]:
     n_spec = sum(DEMO_SPECIMENS)
     junctions = rng.integers(25, 61, size=n_spec).tolist()
     sim = simulate_junctions(
-        taxa=list(DEMO_EXPONENTS), specimens_per_taxon=list(DEMO_SPECIMENS), junctions_per_specimen=junctions,
-        taxon_exponents=DEMO_EXPONENTS, tau_specimen=0.08, sigma_dev=0.03, rel_error=DEMO_REL_ERROR,
-        trifurcation_share=0.12, parent_range=(0.01, 0.4), seed=seed,
+        taxa=list(DEMO_EXPONENTS),
+        specimens_per_taxon=list(DEMO_SPECIMENS),
+        junctions_per_specimen=junctions,
+        taxon_exponents=DEMO_EXPONENTS,
+        tau_specimen=0.08,
+        sigma_dev=0.03,
+        rel_error=DEMO_REL_ERROR,
+        trifurcation_share=0.12,
+        parent_range=(0.01, 0.4),
+        seed=seed,
     )
     f = sim.frame
-    table = pd.DataFrame({
-        "species": f["taxon"],
-        "animal": f["specimen"].str.replace(r"^.*-S", "A", regex=True).radd(
-            f["taxon"].str.split().str[1].str[:3].str.upper() + "-"),
-        "node": f["junction"],
-    })
-    for src, dst in (("parent", "D_parent_um"), ("d1", "D_daughter1_um"), ("d2", "D_daughter2_um"),
-                     ("d3", "D_daughter3_um")):
+    table = pd.DataFrame(
+        {
+            "species": f["taxon"],
+            "animal": f["specimen"]
+            .str.replace(r"^.*-S", "A", regex=True)
+            .radd(f["taxon"].str.split().str[1].str[:3].str.upper() + "-"),
+            "node": f["junction"],
+        }
+    )
+    for src, dst in (
+        ("parent", "D_parent_um"),
+        ("d1", "D_daughter1_um"),
+        ("d2", "D_daughter2_um"),
+        ("d3", "D_daughter3_um"),
+    ):
         table[dst] = (f[src] * 2000.0).round(2)  # radius in mm -> diameter in micrometres
     truth = {
         "note": "SIMULATED demo data; these are the values the simulator used.",
-        "seed": seed, "exponent_by_species": DEMO_EXPONENTS,
+        "seed": seed,
+        "exponent_by_species": DEMO_EXPONENTS,
         "exponent_by_animal": {
             a: sim.truth["a_specimen"][s] for a, s in zip(table["animal"].unique(), f["specimen"].unique())
         },
-        "tau_specimen": 0.08, "sigma_dev": 0.03, "relative_error": DEMO_REL_ERROR, "trifurcation_share": 0.12,
-        "measure": "diameter", "unit": "um",
+        "tau_specimen": 0.08,
+        "sigma_dev": 0.03,
+        "relative_error": DEMO_REL_ERROR,
+        "trifurcation_share": 0.12,
+        "measure": "diameter",
+        "unit": "um",
     }
     return table, truth
 

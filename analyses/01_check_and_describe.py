@@ -103,7 +103,9 @@ def attach_original_columns(geo: pd.DataFrame, path: Path) -> pd.DataFrame:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})")
+    parser.add_argument(
+        "--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})"
+    )
     args = parser.parse_args(argv)
     out: Path = args.out
     out.mkdir(parents=True, exist_ok=True)
@@ -117,10 +119,14 @@ def main(argv: list[str] | None = None) -> int:
     n_d = table.data["n_daughters"].value_counts().sort_index()
     rule("1. Validation report")
     print(f"file:       {DATA.relative_to(REPO)}  (recipe {RECIPE.name})")
-    print(f"rows read:  {report.n_rows_read}; junctions used: {table.n_junctions}; "
-          f"species: {len(table.taxa)}; animals: {len(table.specimens)}")
+    print(
+        f"rows read:  {report.n_rows_read}; junctions used: {table.n_junctions}; "
+        f"species: {len(table.taxa)}; animals: {len(table.specimens)}"
+    )
     print("daughters:  " + ", ".join(f"{k} daughters: {v} junctions" for k, v in n_d.items()))
-    print(f"sizes:      {table.mapping.measure} in {table.unit}; relative measurement error {table.rel_error:g}")
+    print(
+        f"sizes:      {table.mapping.measure} in {table.unit}; relative measurement error {table.rel_error:g}"
+    )
     geo = geometry_with_flags(table)
     where = geo.set_index("source_row")[["specimen", "junction"]]
     print(f"\nflagged rows (kept in the analysis): {len(report.flags)}")
@@ -133,10 +139,16 @@ def main(argv: list[str] | None = None) -> int:
     for p in report.excluded:
         print(f"  {p.format()}")
 
-    per_animal_flags = (geo.groupby(["taxon", "specimen"], sort=False)["flagged"].agg(["sum", "size"])
-                        .rename(columns={"sum": "flagged", "size": "junctions"}).reset_index())
-    print("\nflagged junctions per animal (all kept: under 6 % measurement error a daughter can look as large as\n"
-          "its parent, so these are legal data, not mistakes to delete):")
+    per_animal_flags = (
+        geo.groupby(["taxon", "specimen"], sort=False)["flagged"]
+        .agg(["sum", "size"])
+        .rename(columns={"sum": "flagged", "size": "junctions"})
+        .reset_index()
+    )
+    print(
+        "\nflagged junctions per animal (all kept: under 6 % measurement error a daughter can look as large as\n"
+        "its parent, so these are legal data, not mistakes to delete):"
+    )
     show(per_animal_flags)
 
     # -- 2. naive per-junction exponents ------------------------------------------------------------
@@ -146,8 +158,10 @@ def main(argv: list[str] | None = None) -> int:
     print(f"caution: {by_taxon.attrs['note']}.")
     reasons = geo["no_root_reason"].dropna().value_counts()
     if len(reasons):
-        print("junctions without a per-junction exponent: "
-              + ", ".join(f"{why}: {n}" for why, n in reasons.items()))
+        print(
+            "junctions without a per-junction exponent: "
+            + ", ".join(f"{why}: {n}" for why, n in reasons.items())
+        )
     cols = ["n_junctions", "n_no_root", "median", "q25", "q75", "mean"]
     print("\nby species:")
     show(by_taxon[["taxon", *cols]])
@@ -158,8 +172,11 @@ def main(argv: list[str] | None = None) -> int:
     rule("3. Files")
     junctions = attach_original_columns(geo, DATA)
     written = []
-    for name, frame in (("junction_geometry.csv", junctions), ("naive_by_species.csv", by_taxon),
-                        ("naive_by_animal.csv", by_animal)):
+    for name, frame in (
+        ("junction_geometry.csv", junctions),
+        ("naive_by_species.csv", by_taxon),
+        ("naive_by_animal.csv", by_animal),
+    ):
         frame.to_csv(out / name, index=False)
         written.append(out / name)
 
@@ -170,7 +187,9 @@ def main(argv: list[str] | None = None) -> int:
     for path in written:
         print(f"  wrote {path}")
 
-    print(f"\nDone in {time.perf_counter() - started:.1f} s. Reminder: the data are SIMULATED (invented species).")
+    print(
+        f"\nDone in {time.perf_counter() - started:.1f} s. Reminder: the data are SIMULATED (invented species)."
+    )
     return 0
 
 

@@ -91,14 +91,20 @@ def truth_table(exponents: pd.DataFrame, truth: dict) -> pd.DataFrame:
         est = exponents[exponents["level"] == level].set_index("group")
         for group, true in truth[key].items():
             e = est.loc[group]
-            rows.append({
-                "level": "species" if level == "taxon" else "animal", "group": group, "species": e["taxon"],
-                "true": float(true),
-                "true_animal_mean": float(animal_mean[group]) if level == "taxon" else float(true),
-                "mean": e["mean"], "error": e["mean"] - float(true),
-                "hdi_low": e["hdi_low"], "hdi_high": e["hdi_high"],
-                "true_in_hdi": bool(e["hdi_low"] <= true <= e["hdi_high"]),
-            })
+            rows.append(
+                {
+                    "level": "species" if level == "taxon" else "animal",
+                    "group": group,
+                    "species": e["taxon"],
+                    "true": float(true),
+                    "true_animal_mean": float(animal_mean[group]) if level == "taxon" else float(true),
+                    "mean": e["mean"],
+                    "error": e["mean"] - float(true),
+                    "hdi_low": e["hdi_low"],
+                    "hdi_high": e["hdi_high"],
+                    "true_in_hdi": bool(e["hdi_low"] <= true <= e["hdi_high"]),
+                }
+            )
     out = pd.DataFrame(rows)
     out.attrs["hdi_prob"] = exponents.attrs.get("hdi_prob", HDI_PROB)
     return out
@@ -106,7 +112,9 @@ def truth_table(exponents: pd.DataFrame, truth: dict) -> pd.DataFrame:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})")
+    parser.add_argument(
+        "--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})"
+    )
     parser.add_argument("--seed", type=int, default=SEED)
     parser.add_argument("--draws", type=int, default=DRAWS, help="posterior draws per chain")
     parser.add_argument("--tune", type=int, default=TUNE, help="tuning steps per chain")
@@ -118,23 +126,38 @@ def main(argv: list[str] | None = None) -> int:
 
     print(SIMULATED_BANNER)
     table = ab.read_junctions(DATA, recipe=RECIPE)
-    print(f"\n{table.n_junctions} junctions, {len(table.taxa)} species, {len(table.specimens)} animals; "
-          f"{len(table.report.flags)} flagged junction(s) kept (see step 1).")
-    print(f"fitting: {args.chains} chains x {args.draws} draws after {args.tune} tuning steps, seed {args.seed} ...",
-          flush=True)
-    result = ab.fit(table, seed=args.seed, draws=args.draws, tune=args.tune, chains=args.chains,
-                    target_accept=TARGET_ACCEPT, progress=False)
+    print(
+        f"\n{table.n_junctions} junctions, {len(table.taxa)} species, {len(table.specimens)} animals; "
+        f"{len(table.report.flags)} flagged junction(s) kept (see step 1)."
+    )
+    print(
+        f"fitting: {args.chains} chains x {args.draws} draws after {args.tune} tuning steps, seed {args.seed} ...",
+        flush=True,
+    )
+    result = ab.fit(
+        table,
+        seed=args.seed,
+        draws=args.draws,
+        tune=args.tune,
+        chains=args.chains,
+        target_accept=TARGET_ACCEPT,
+        progress=False,
+    )
     print(f"sampling took {result.settings.get('seconds', float('nan')):.0f} s")
 
     # -- diagnostics and warnings first ---------------------------------------------------------------
     rule("1. Diagnostics -- read these before the estimates")
     checks = result.sampler_checks()
-    print(f"sampler: {result.settings.get('sampler')}; divergences {checks['divergences']}; "
-          f"min E-BFMI {checks['bfmi_min']:.2f}; {checks['chains']} chains x {checks['draws']} draws")
+    print(
+        f"sampler: {result.settings.get('sampler')}; divergences {checks['divergences']}; "
+        f"min E-BFMI {checks['bfmi_min']:.2f}; {checks['chains']} chains x {checks['draws']} draws"
+    )
     diag = result.diagnostics()
     failing = diag[~diag["ok"].astype(bool)]
-    print(f"R-hat / ESS: {len(diag) - len(failing)} of {len(diag)} checked parameters pass "
-          "(R-hat <= 1.01, bulk and tail ESS >= 400)")
+    print(
+        f"R-hat / ESS: {len(diag) - len(failing)} of {len(diag)} checked parameters pass "
+        "(R-hat <= 1.01, bulk and tail ESS >= 400)"
+    )
     if len(failing):
         show(failing, "{:.3f}")
     if result.warnings:
@@ -159,28 +182,58 @@ def main(argv: list[str] | None = None) -> int:
     for comp, meaning in dict(zip(variance["component"], variance["meaning"].str.split(";").str[0])).items():
         print(f"  {comp:13s} {meaning}")
     rule("4. Naive per-junction exponents beside the model (naive ignores measurement error)")
-    show(naive[["taxon", "mean", "hdi_low", "hdi_high", "naive_median", "naive_q25", "naive_q75",
-                "n_junctions", "n_no_root"]])
+    show(
+        naive[
+            [
+                "taxon",
+                "mean",
+                "hdi_low",
+                "hdi_high",
+                "naive_median",
+                "naive_q25",
+                "naive_q75",
+                "n_junctions",
+                "n_no_root",
+            ]
+        ]
+    )
 
     # -- truth ----------------------------------------------------------------------------------------
     truth = json.loads(TRUTH.read_text(encoding="utf-8"))
     check = truth_table(exps, truth)
     rule(f"5. Against the simulation truth (SIMULATED data; truth from {TRUTH.name})")
     species = check[check["level"] == "species"]
-    show(species[["group", "true", "true_animal_mean", "mean", "error", "hdi_low", "hdi_high", "true_in_hdi"]])
-    print("(true = the species centre used by the simulator; true_animal_mean = mean of its simulated animals)")
+    show(
+        species[["group", "true", "true_animal_mean", "mean", "error", "hdi_low", "hdi_high", "true_in_hdi"]]
+    )
+    print(
+        "(true = the species centre used by the simulator; true_animal_mean = mean of its simulated animals)"
+    )
     animals = check[check["level"] == "animal"]
-    print(f"\nspecies: {int(species['true_in_hdi'].sum())} of {len(species)} true exponents inside their "
-          f"{HDI_PROB:.0%} HDI; animals: {int(animals['true_in_hdi'].sum())} of {len(animals)} "
-          f"(about {HDI_PROB:.0%} expected if the intervals are calibrated).")
+    print(
+        f"\nspecies: {int(species['true_in_hdi'].sum())} of {len(species)} true exponents inside their "
+        f"{HDI_PROB:.0%} HDI; animals: {int(animals['true_in_hdi'].sum())} of {len(animals)} "
+        f"(about {HDI_PROB:.0%} expected if the intervals are calibrated)."
+    )
     missed = check[~check["true_in_hdi"]]
     if len(missed):
-        print("outside their HDI: " + ", ".join(
-            f"{r.group} (true {r.true:.2f}, HDI [{r.hdi_low:.2f}, {r.hdi_high:.2f}])" for r in missed.itertuples()))
-    print(f"true tau_specimen {truth['tau_specimen']:g}, sigma_dev {truth['sigma_dev']:g} -- estimated: "
-          + ", ".join(f"{c} {m:.3f} [{lo:.3f}, {hi:.3f}]" for c, m, lo, hi in
-                      variance.loc[variance["component"].isin(["tau_specimen", "sigma_dev"]),
-                                   ["component", "mean", "hdi_low", "hdi_high"]].itertuples(index=False)))
+        print(
+            "outside their HDI: "
+            + ", ".join(
+                f"{r.group} (true {r.true:.2f}, HDI [{r.hdi_low:.2f}, {r.hdi_high:.2f}])"
+                for r in missed.itertuples()
+            )
+        )
+    print(
+        f"true tau_specimen {truth['tau_specimen']:g}, sigma_dev {truth['sigma_dev']:g} -- estimated: "
+        + ", ".join(
+            f"{c} {m:.3f} [{lo:.3f}, {hi:.3f}]"
+            for c, m, lo, hi in variance.loc[
+                variance["component"].isin(["tau_specimen", "sigma_dev"]),
+                ["component", "mean", "hdi_low", "hdi_high"],
+            ].itertuples(index=False)
+        )
+    )
 
     # -- files ----------------------------------------------------------------------------------------
     rule("6. Files")
@@ -204,7 +257,9 @@ def main(argv: list[str] | None = None) -> int:
     written.append(result.save(out / "fit.nc"))
     for path in written:
         print(f"  wrote {path}")
-    print(f"\nDone in {time.perf_counter() - started:.0f} s. Reminder: the data are SIMULATED (invented species).")
+    print(
+        f"\nDone in {time.perf_counter() - started:.0f} s. Reminder: the data are SIMULATED (invented species)."
+    )
     return 0
 
 

@@ -87,19 +87,33 @@ def free_model_fit(table: ab.JunctionTable, path: Path) -> tuple[ab.FitResult, s
         why = "it was made from other data" if made_from != table.digest() else "it is not the free model"
         print(f"the saved fit {path} cannot be used ({why}); refitting")
     else:
-        print(f"no saved fit at {path} (run analyses/02_fit_and_report.py to make one); fitting now ...", flush=True)
-    fitted = ab.fit(table, seed=SEED, draws=DRAWS, tune=TUNE, chains=CHAINS, target_accept=TARGET_ACCEPT,
-                    progress=False)
+        print(
+            f"no saved fit at {path} (run analyses/02_fit_and_report.py to make one); fitting now ...",
+            flush=True,
+        )
+    fitted = ab.fit(
+        table, seed=SEED, draws=DRAWS, tune=TUNE, chains=CHAINS, target_accept=TARGET_ACCEPT, progress=False
+    )
     return fitted, f"fitted the free model here ({fitted.settings.get('seconds', float('nan')):.0f} s)"
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})")
-    parser.add_argument("--fit", type=Path, default=DEFAULT_FIT, help=f"saved free-model fit (default {DEFAULT_FIT})")
-    parser.add_argument("--seed", type=int, default=SEED, help="seed of the comparison (each law's fit derives its own)")
-    parser.add_argument("--draws", type=int, default=None, help="draws per chain of each law's fit (default: the free fit's)")
-    parser.add_argument("--tune", type=int, default=None, help="tuning steps of each law's fit (default: the free fit's)")
+    parser.add_argument(
+        "--out", type=Path, default=DEFAULT_OUT, help=f"output folder (default {DEFAULT_OUT})"
+    )
+    parser.add_argument(
+        "--fit", type=Path, default=DEFAULT_FIT, help=f"saved free-model fit (default {DEFAULT_FIT})"
+    )
+    parser.add_argument(
+        "--seed", type=int, default=SEED, help="seed of the comparison (each law's fit derives its own)"
+    )
+    parser.add_argument(
+        "--draws", type=int, default=None, help="draws per chain of each law's fit (default: the free fit's)"
+    )
+    parser.add_argument(
+        "--tune", type=int, default=None, help="tuning steps of each law's fit (default: the free fit's)"
+    )
     args = parser.parse_args(argv)
     out: Path = args.out
     out.mkdir(parents=True, exist_ok=True)
@@ -116,26 +130,48 @@ def main(argv: list[str] | None = None) -> int:
 
     s = free.settings
     draws, tune = args.draws or s.get("draws"), args.tune or s.get("tune")
-    print(f"\ncomparing {', '.join(LAWS)} with the free model, overall and per species: 15 fits of "
-          f"{s.get('chains')} chains x {draws} draws (tune {tune}), seed {args.seed}. This takes a while ...",
-          flush=True)
-    laws = ab.compare_laws(table, LAWS, fit=free, delta=DELTA, scopes=("overall", "taxon"), seed=args.seed,
-                           draws=draws, tune=tune)
+    print(
+        f"\ncomparing {', '.join(LAWS)} with the free model, overall and per species: 15 fits of "
+        f"{s.get('chains')} chains x {draws} draws (tune {tune}), seed {args.seed}. This takes a while ...",
+        flush=True,
+    )
+    laws = ab.compare_laws(
+        table,
+        LAWS,
+        fit=free,
+        delta=DELTA,
+        scopes=("overall", "taxon"),
+        seed=args.seed,
+        draws=draws,
+        tune=tune,
+    )
     print(f"comparison took {laws.settings['seconds']:.0f} s ({laws.settings['n_fits']} fits)")
 
     # -- evidence ---------------------------------------------------------------------------------------
-    cols = ["law", "value", "elpd_diff", "dse", "weight", "n_high_k", "log10_bf", "log10_bf_narrow",
-            "log10_bf_wide", "p_rope"]
+    cols = [
+        "law",
+        "value",
+        "elpd_diff",
+        "dse",
+        "weight",
+        "n_high_k",
+        "log10_bf",
+        "log10_bf_narrow",
+        "log10_bf_wide",
+        "p_rope",
+    ]
     rule("1. Evidence, all species together (overall: every species shares the law's exponent)")
     show(laws.overall[cols])
     rule("2. Evidence per species (that species' exponent fixed at the law, the others free)")
     for taxon in laws.settings["taxa"]:
         print(f"\n{taxon}:")
         show(laws.evidence.loc[laws.evidence["scope"] == taxon, cols])
-    print("\nelpd_diff: ELPD loss against the best hypothesis of the scope (0 = best), dse its SE; weight: stacking "
-          "weight;\nlog10_bf: log10 Bayes factor of the law against the free model (> 0 favours the law), also under "
-          f"a narrower\nand a wider prior; p_rope: posterior probability that the exponent is within +/- {DELTA:g} "
-          "of the law.")
+    print(
+        "\nelpd_diff: ELPD loss against the best hypothesis of the scope (0 = best), dse its SE; weight: stacking "
+        "weight;\nlog10_bf: log10 Bayes factor of the law against the free model (> 0 favours the law), also under "
+        f"a narrower\nand a wider prior; p_rope: posterior probability that the exponent is within +/- {DELTA:g} "
+        "of the law."
+    )
 
     # -- verdicts ---------------------------------------------------------------------------------------
     rule("3. Verdicts")
@@ -163,7 +199,9 @@ def main(argv: list[str] | None = None) -> int:
     for path in written:
         print(f"  wrote {path}")
 
-    print(f"\nDone in {time.perf_counter() - started:.0f} s. Reminder: the data are SIMULATED (invented species).")
+    print(
+        f"\nDone in {time.perf_counter() - started:.0f} s. Reminder: the data are SIMULATED (invented species)."
+    )
     return 0
 
 

@@ -45,8 +45,16 @@ from allobranch.model.data import model_data
 
 RESULTS = Path(__file__).resolve().parent / "results"
 #: Simulation design of the benchmark table.
-DESIGN = {"taxa": 20, "specimens_per_taxon": 5, "junctions_per_specimen": 100, "rel_error": 0.05,
-          "mu": 2.5, "tau_taxon": 0.3, "tau_specimen": 0.1, "sigma_dev": 0.03}
+DESIGN = {
+    "taxa": 20,
+    "specimens_per_taxon": 5,
+    "junctions_per_specimen": 100,
+    "rel_error": 0.05,
+    "mu": 2.5,
+    "tau_taxon": 0.3,
+    "tau_specimen": 0.1,
+    "sigma_dev": 0.03,
+}
 QUICK_DESIGN = {**DESIGN, "taxa": 5, "specimens_per_taxon": 2}
 DATA_SEED = 20240
 SAMPLER_SEED = 7
@@ -85,17 +93,26 @@ def run_fast(table: ab.JunctionTable) -> dict:
         full = result.diagnostics()
         mu_ess = float(hyper.set_index("parameter").loc["mu", "ess_bulk"])
         row = {
-            "form": "fast (marginal, nutpie on the compiled density)", "tune": n, "draws": n, "chains": CHAINS,
-            "wall_s": wall, "sampling_s": float(result.settings["seconds"]),
+            "form": "fast (marginal, nutpie on the compiled density)",
+            "tune": n,
+            "draws": n,
+            "chains": CHAINS,
+            "wall_s": wall,
+            "sampling_s": float(result.settings["seconds"]),
             "min_ess_bulk_hyper": float(hyper["ess_bulk"].min()),
             "max_rhat_hyper": float(hyper["r_hat"].max()),
-            "min_ess_bulk_all": float(full["ess_bulk"].min()), "max_rhat_all": float(full["r_hat"].max()),
-            "ess_mu": mu_ess, "ess_per_s_mu": mu_ess / wall,
+            "min_ess_bulk_all": float(full["ess_bulk"].min()),
+            "max_rhat_all": float(full["r_hat"].max()),
+            "ess_mu": mu_ess,
+            "ess_per_s_mu": mu_ess / wall,
             "divergences": int(result.sampler_checks()["divergences"]),
             "finished": True,
         }
-        print(f"[fast] wall {wall:.1f} s; min bulk ESS (hyper) {row['min_ess_bulk_hyper']:.0f}; max R-hat "
-              f"(hyper) {row['max_rhat_hyper']:.4f}; ESS/s (mu) {row['ess_per_s_mu']:.2f}", flush=True)
+        print(
+            f"[fast] wall {wall:.1f} s; min bulk ESS (hyper) {row['min_ess_bulk_hyper']:.0f}; max R-hat "
+            f"(hyper) {row['max_rhat_hyper']:.4f}; ESS/s (mu) {row['ess_per_s_mu']:.2f}",
+            flush=True,
+        )
         attempts.append(row)
         if row["max_rhat_hyper"] <= RHAT_MAX and row["min_ess_bulk_hyper"] >= ESS_MIN:
             break
@@ -114,8 +131,9 @@ def latent_worker(out: Path, tune: int, draws: int, budget_s: float, quick: bool
     compiled = nutpie.compile_pymc_model(built.model)
     compile_s = time.perf_counter() - t0
     print(f"[latent] compiled in {compile_s:.1f} s; sampling ...", flush=True)
-    sampler = nutpie.sample(compiled, draws=draws, tune=tune, chains=CHAINS, seed=SAMPLER_SEED,
-                            progress_bar=False, blocking=False)
+    sampler = nutpie.sample(
+        compiled, draws=draws, tune=tune, chains=CHAINS, seed=SAMPLER_SEED, progress_bar=False, blocking=False
+    )
     try:
         idata = sampler.wait(timeout=max(budget_s - (time.perf_counter() - t0), 1.0))
         finished = True
@@ -123,22 +141,34 @@ def latent_worker(out: Path, tune: int, draws: int, budget_s: float, quick: bool
         idata = sampler.abort()
         finished = False
     wall = time.perf_counter() - t0
-    report = {"compile_s": compile_s, "wall_s": wall, "finished": finished, "tune": tune, "draws": draws,
-              "chains": CHAINS, "n_parameters": int(sum(np.size(v) for v in built.model.initial_point().values()))}
+    report = {
+        "compile_s": compile_s,
+        "wall_s": wall,
+        "finished": finished,
+        "tune": tune,
+        "draws": draws,
+        "chains": CHAINS,
+        "n_parameters": int(sum(np.size(v) for v in built.model.initial_point().values())),
+    }
     groups = idata.groups()
-    done_warmup = int(idata.warmup_sample_stats.sizes.get("draw", 0)) if "warmup_sample_stats" in groups else 0
+    done_warmup = (
+        int(idata.warmup_sample_stats.sizes.get("draw", 0)) if "warmup_sample_stats" in groups else 0
+    )
     done_draws = int(idata.posterior.sizes.get("draw", 0)) if "posterior" in groups else 0
     report.update({"warmup_done": done_warmup, "draws_done": done_draws})
     if finished and done_draws > 3:
         names = [n for n in HYPER_PARAMETERS if n in idata.posterior]
         ess = az.ess(idata, var_names=names, method="bulk")
         rhat = az.rhat(idata, var_names=names)
-        report.update({
-            "ess_mu": float(ess["mu"]), "min_ess_bulk_hyper": float(min(float(ess[n]) for n in names)),
-            "max_rhat_hyper": float(max(float(rhat[n]) for n in names)),
-            "divergences": int(idata.sample_stats["diverging"].sum()),
-            "mean_tree_steps": float(idata.sample_stats["n_steps"].mean()),
-        })
+        report.update(
+            {
+                "ess_mu": float(ess["mu"]),
+                "min_ess_bulk_hyper": float(min(float(ess[n]) for n in names)),
+                "max_rhat_hyper": float(max(float(rhat[n]) for n in names)),
+                "divergences": int(idata.sample_stats["diverging"].sum()),
+                "mean_tree_steps": float(idata.sample_stats["n_steps"].mean()),
+            }
+        )
     report["peak_memory_mb"] = peak_memory_mb()
     out.write_text(json.dumps(report), encoding="utf-8")
 
@@ -148,15 +178,32 @@ def run_latent(tune: int, draws: int, minutes: float, quick: bool) -> dict:
     out = RESULTS / ".latent_worker.json"
     out.unlink(missing_ok=True)
     budget = minutes * 60.0
-    cmd = [sys.executable, str(Path(__file__).resolve()), "--latent-worker", str(out), "--tune", str(tune),
-           "--draws", str(draws), "--budget", str(budget)] + (["--quick"] if quick else [])
-    print(f"[latent] textbook form, tune = draws = {draws}, chains = {CHAINS}, cap {minutes:g} min ...", flush=True)
+    cmd = [
+        sys.executable,
+        str(Path(__file__).resolve()),
+        "--latent-worker",
+        str(out),
+        "--tune",
+        str(tune),
+        "--draws",
+        str(draws),
+        "--budget",
+        str(budget),
+    ] + (["--quick"] if quick else [])
+    print(
+        f"[latent] textbook form, tune = draws = {draws}, chains = {CHAINS}, cap {minutes:g} min ...",
+        flush=True,
+    )
     start = time.perf_counter()
     try:
         subprocess.run(cmd, check=True, timeout=budget + 300)
         report = json.loads(out.read_text(encoding="utf-8"))
     except subprocess.TimeoutExpired:
-        report = {"finished": False, "wall_s": time.perf_counter() - start, "note": "killed at the hard limit"}
+        report = {
+            "finished": False,
+            "wall_s": time.perf_counter() - start,
+            "note": "killed at the hard limit",
+        }
     finally:
         out.unlink(missing_ok=True)
     report["wall_outer_s"] = time.perf_counter() - start
@@ -168,12 +215,20 @@ def run_latent(tune: int, draws: int, minutes: float, quick: bool) -> dict:
 def environment() -> dict:
     cpu = "?"
     try:
-        cpu = next(line.split(":", 1)[1].strip() for line in Path("/proc/cpuinfo").read_text().splitlines()
-                   if line.startswith("model name"))
+        cpu = next(
+            line.split(":", 1)[1].strip()
+            for line in Path("/proc/cpuinfo").read_text().splitlines()
+            if line.startswith("model name")
+        )
     except (OSError, StopIteration):
         pass
-    return {"python": platform.python_version(), "cpu": cpu, "cores": os.cpu_count(),
-            "load_average_1min": os.getloadavg()[0], "allobranch": ab.__version__}
+    return {
+        "python": platform.python_version(),
+        "cpu": cpu,
+        "cores": os.cpu_count(),
+        "load_average_1min": os.getloadavg()[0],
+        "allobranch": ab.__version__,
+    }
 
 
 def _latent_lines(latent: dict, fast_ess_s: float) -> list[str]:
@@ -189,7 +244,8 @@ def _latent_lines(latent: dict, fast_ess_s: float) -> list[str]:
             f"ESS(mu) {latent['ess_mu']:.0f}, ESS/s (mu) {ess_s:.3f}; min bulk ESS (hyper) "
             f"{latent['min_ess_bulk_hyper']:.0f}, max R-hat (hyper) {latent['max_rhat_hyper']:.4f}, "
             f"{latent['divergences']} divergences: diagnostics target {'met' if converged else 'NOT met'}"
-            + ("" if converged else " (its ESS estimates are then unreliable, and usually too high)") + ".",
+            + ("" if converged else " (its ESS estimates are then unreliable, and usually too high)")
+            + ".",
             "",
             f"**Ratio of ESS/s for mu, fast / latent: {fast_ess_s / ess_s:.1f}x** (target >= 5x).",
         ]
@@ -209,8 +265,15 @@ def _latent_lines(latent: dict, fast_ess_s: float) -> list[str]:
     ]
 
 
-def write_report(fast: dict, latents: list[tuple[str, dict]], env_start: dict, env_end: dict, n_junctions: int,
-                 fast_mem: float, total_s: float) -> str:
+def write_report(
+    fast: dict,
+    latents: list[tuple[str, dict]],
+    env_start: dict,
+    env_end: dict,
+    n_junctions: int,
+    fast_mem: float,
+    total_s: float,
+) -> str:
     """Markdown report of the benchmark."""
     f = fast["final"]
     lines = [
@@ -247,7 +310,10 @@ def write_report(fast: dict, latents: list[tuple[str, dict]], env_start: dict, e
     for title, latent in latents:
         lines += [f"## {title}", ""]
         lines += _latent_lines(latent, f["ess_per_s_mu"])
-        lines += [f"Peak memory of the latent subprocess: {latent.get('peak_memory_mb', float('nan')):.0f} MB.", ""]
+        lines += [
+            f"Peak memory of the latent subprocess: {latent.get('peak_memory_mb', float('nan')):.0f} MB.",
+            "",
+        ]
     lines += [f"Total benchmark time: {total_s / 60:.1f} min.", ""]
     return "\n".join(lines)
 
@@ -257,8 +323,12 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="1,000 junctions instead of 10,000")
     parser.add_argument("--latent-minutes", type=float, default=15.0, help="cap of the latent run (minutes)")
     parser.add_argument("--skip-latent", action="store_true", help="only the fast form")
-    parser.add_argument("--latent-long", type=int, default=800,
-                        help="also run the latent form with this tune = draws (0: skip; default 800)")
+    parser.add_argument(
+        "--latent-long",
+        type=int,
+        default=800,
+        help="also run the latent form with this tune = draws (0: skip; default 800)",
+    )
     parser.add_argument("--latent-worker", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--tune", type=int, default=300, help=argparse.SUPPRESS)
     parser.add_argument("--draws", type=int, default=300, help=argparse.SUPPRESS)
@@ -287,17 +357,25 @@ def main(argv: list[str] | None = None) -> int:
             runs.append((args.latent_long, args.latent_long, "longer run, to see whether it converges"))
         for tune, draws, why in runs:
             latent = run_latent(tune, draws, args.latent_minutes, args.quick)
-            title = (f"Textbook latent form, tune = draws = {draws} ({why}; nutpie.compile_pymc_model + "
-                     "nutpie.sample, numba)")
+            title = (
+                f"Textbook latent form, tune = draws = {draws} ({why}; nutpie.compile_pymc_model + "
+                "nutpie.sample, numba)"
+            )
             latents.append((title, latent))
             if latent.get("finished"):
                 ess_s = latent["ess_mu"] / latent["wall_s"]
-                print(f"[latent] wall {latent['wall_s']:.1f} s (compile {latent['compile_s']:.1f} s); ESS/s (mu) "
-                      f"{ess_s:.3f}; max R-hat (hyper) {latent['max_rhat_hyper']:.3f}; ratio fast/latent "
-                      f"{f['ess_per_s_mu'] / ess_s:.1f}x", flush=True)
+                print(
+                    f"[latent] wall {latent['wall_s']:.1f} s (compile {latent['compile_s']:.1f} s); ESS/s (mu) "
+                    f"{ess_s:.3f}; max R-hat (hyper) {latent['max_rhat_hyper']:.3f}; ratio fast/latent "
+                    f"{f['ess_per_s_mu'] / ess_s:.1f}x",
+                    flush=True,
+                )
             else:
-                print(f"[latent] did not finish in {latent.get('wall_s', float('nan')) / 60:.1f} min "
-                      f"(warmup {latent.get('warmup_done')}, draws {latent.get('draws_done')})", flush=True)
+                print(
+                    f"[latent] did not finish in {latent.get('wall_s', float('nan')) / 60:.1f} min "
+                    f"(warmup {latent.get('warmup_done')}, draws {latent.get('draws_done')})",
+                    flush=True,
+                )
             print(f"[latent] peak memory {latent.get('peak_memory_mb', float('nan')):.0f} MB", flush=True)
     env_end = environment()
     total = time.perf_counter() - start

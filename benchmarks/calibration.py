@@ -121,10 +121,26 @@ def simulate_exact(index: int, base_seed: int) -> tuple[SimulatedData, dict[str,
                 u = level + EXACT_SIGMA_ASYM * (z - z.mean())
                 u0 = logsumexp(a * u) / a + hyper["sigma_dev"] * rng.standard_normal()
                 obs = np.exp(np.concatenate([[u0], u]) + REL_ERROR * rng.standard_normal(3))
-                rows.append({"taxon": taxon, "specimen": spec, "junction": f"J{j + 1:03d}",
-                             "parent": obs[0], "d1": obs[1], "d2": obs[2]})
-    mapping = ab.ColumnMapping(parent="parent", daughters=("d1", "d2"), taxon="taxon", specimen="specimen",
-                               junction="junction", measure="radius", unit="mm", rel_error=REL_ERROR)
+                rows.append(
+                    {
+                        "taxon": taxon,
+                        "specimen": spec,
+                        "junction": f"J{j + 1:03d}",
+                        "parent": obs[0],
+                        "d1": obs[1],
+                        "d2": obs[2],
+                    }
+                )
+    mapping = ab.ColumnMapping(
+        parent="parent",
+        daughters=("d1", "d2"),
+        taxon="taxon",
+        specimen="specimen",
+        junction="junction",
+        measure="radius",
+        unit="mm",
+        rel_error=REL_ERROR,
+    )
     truth = {**hyper, "rel_error": REL_ERROR, "abs_error": 0.0, "a_taxon": a_taxon, "a_specimen": a_spec}
     frame = pd.DataFrame(rows)
     return SimulatedData(frame=frame, truth=truth, true_radii=frame.iloc[:0], mapping=mapping), hyper
@@ -142,7 +158,7 @@ class ReusableFit:
     compiled: object
 
     @classmethod
-    def create(cls, table: ab.JunctionTable, spec: ab.ModelSpec) -> "ReusableFit":
+    def create(cls, table: ab.JunctionTable, spec: ab.ModelSpec) -> ReusableFit:
         from allobranch.inference.backends import compile_nutpie
 
         built = build_model(model_data(table), spec)
@@ -162,32 +178,46 @@ class ReusableFit:
                 raise ValueError(f"table shape differs from the compiled template in {name!r}")
         with self.built.model:
             pm.set_data(arrays)
-        return nutpie.sample(self.compiled, seed=seed, progress_bar=False, cores=min(SAMPLER["chains"], 2),
-                             **SAMPLER)
+        return nutpie.sample(
+            self.compiled, seed=seed, progress_bar=False, cores=min(SAMPLER["chains"], 2), **SAMPLER
+        )
 
 
 def ranks_and_coverage(idata: az.InferenceData, truth: dict, hyper: dict, dataset: int) -> list[dict]:
     """Rank of each true value among thinned draws, and whether the 90 % HDI covers it."""
     post = idata.posterior
     rows = []
-    targets = [("mu", "all", post["mu"].values, truth["mu"]),
-               ("sigma_dev", "all", post["sigma_dev"].values, hyper["sigma_dev"])]
+    targets = [
+        ("mu", "all", post["mu"].values, truth["mu"]),
+        ("sigma_dev", "all", post["sigma_dev"].values, hyper["sigma_dev"]),
+    ]
     for i, taxon in enumerate(post["taxon"].values):
         targets.append(("a_taxon", str(taxon), post["a_taxon"].values[:, :, i], truth["a_taxon"][str(taxon)]))
     for name, group, draws, value in targets:
         thinned = draws[:, ::THIN].reshape(-1)
         lo, hi = az.hdi(draws.reshape(-1), hdi_prob=HDI_PROB)  # ArviZ HDI
-        rows.append({
-            "dataset": dataset, "quantity": name, "group": group, "truth": value, "rank": int(np.sum(thinned < value)),
-            "n_draws": thinned.size, "mean": float(draws.mean()), "hdi_low": float(lo), "hdi_high": float(hi),
-            "covered": bool(lo <= value <= hi), "r_hat": float(az.rhat(draws)),
-            "ess_bulk": float(az.ess(draws, method="bulk")),
-        })
+        rows.append(
+            {
+                "dataset": dataset,
+                "quantity": name,
+                "group": group,
+                "truth": value,
+                "rank": int(np.sum(thinned < value)),
+                "n_draws": thinned.size,
+                "mean": float(draws.mean()),
+                "hdi_low": float(lo),
+                "hdi_high": float(hi),
+                "covered": bool(lo <= value <= hi),
+                "r_hat": float(az.rhat(draws)),
+                "ess_bulk": float(az.ess(draws, method="bulk")),
+            }
+        )
     return rows
 
 
-def run(n_datasets: int, base_seed: int = 7000, verify: bool = True, log=print,
-        generator: str = "simulate") -> pd.DataFrame:
+def run(
+    n_datasets: int, base_seed: int = 7000, verify: bool = True, log=print, generator: str = "simulate"
+) -> pd.DataFrame:
     """Run the calibration loop; returns one row per dataset and quantity.
 
     Parameters
@@ -218,7 +248,9 @@ def run(n_datasets: int, base_seed: int = 7000, verify: bool = True, log=print,
             if verify and i == 0:
                 direct = ab.fit(table, spec, seed=base_seed + i, progress=False, **SAMPLER)
                 if not np.array_equal(direct.idata.posterior["mu"].values, idata.posterior["mu"].values):
-                    raise RuntimeError("swapping data into the compiled model did not reproduce allobranch.fit")
+                    raise RuntimeError(
+                        "swapping data into the compiled model did not reproduce allobranch.fit"
+                    )
                 log("[calibration] data swap verified: identical draws to allobranch.fit on dataset 0")
         new = ranks_and_coverage(idata, sim.truth, hyper, i)
         div = int(idata.sample_stats["diverging"].sum())
@@ -226,9 +258,11 @@ def run(n_datasets: int, base_seed: int = 7000, verify: bool = True, log=print,
             r.update({"divergences": div, **{f"true_{k}": v for k, v in hyper.items()}})
         rows.extend(new)
         cov = np.mean([r["covered"] for r in new if r["quantity"] != "sigma_dev"])
-        log(f"[calibration] dataset {i + 1}/{n_datasets}: mu true {sim.truth['mu']:.2f} rank "
+        log(
+            f"[calibration] dataset {i + 1}/{n_datasets}: mu true {sim.truth['mu']:.2f} rank "
             f"{new[0]['rank']}/{new[0]['n_draws']}, exponents covered {cov:.0%}, divergences {div} "
-            f"[{(time.perf_counter() - start) / 60:.1f} min]")
+            f"[{(time.perf_counter() - start) / 60:.1f} min]"
+        )
     return pd.DataFrame(rows)
 
 
@@ -245,9 +279,19 @@ def coverage_table(frame: pd.DataFrame) -> pd.DataFrame:
         edges = np.linspace(0, g["n_draws"].iloc[0] + 1, 11)
         counts, _ = np.histogram(g["rank"], bins=edges)
         chi = stats.chisquare(counts)
-        out.append({"quantity": name, "covered": k, "n": n, "coverage": k / n, "ci_low": ci.low, "ci_high": ci.high,
-                    "binom_p": test.pvalue, "rank_chi2_p": chi.pvalue, "mean_rank_fraction":
-                    float((g["rank"] / g["n_draws"]).mean())})
+        out.append(
+            {
+                "quantity": name,
+                "covered": k,
+                "n": n,
+                "coverage": k / n,
+                "ci_low": ci.low,
+                "ci_high": ci.high,
+                "binom_p": test.pvalue,
+                "rank_chi2_p": chi.pvalue,
+                "mean_rank_fraction": float((g["rank"] / g["n_draws"]).mean()),
+            }
+        )
     return pd.DataFrame(out)
 
 
@@ -270,8 +314,14 @@ def rank_histograms(frame: pd.DataFrame, path: Path) -> None:
         ax.axhspan(lo, hi, color="0.85", label="99 % range if uniform")
         ax.axhline(len(g) * p, color="0.4", lw=0.8)
         ax.bar(edges[:-1], counts, width=np.diff(edges), align="edge", color="#0072B2", edgecolor="white")
-        ax.set_title({"mu": "population exponent mu", "a_taxon": "taxon exponents",
-                      "sigma_dev": "biological deviation"}[q], fontsize=9)
+        ax.set_title(
+            {
+                "mu": "population exponent mu",
+                "a_taxon": "taxon exponents",
+                "sigma_dev": "biological deviation",
+            }[q],
+            fontsize=9,
+        )
         ax.set_xlabel(f"rank of truth among {L} draws", fontsize=8)
         ax.tick_params(labelsize=7)
     axes[0].set_ylabel("datasets", fontsize=8)
@@ -282,13 +332,19 @@ def rank_histograms(frame: pd.DataFrame, path: Path) -> None:
 
 #: Output names and descriptions per generator.
 OUTPUTS = {
-    "simulate": ("calibration.csv", "calibration_ranks.png",
-                 "Tables from `allobranch.simulate_junctions` (Dirichlet split of the daughters: the practical "
-                 "pipeline, model assumptions met only approximately)"),
-    "exact": ("calibration_exact.csv", "calibration_ranks_exact.png",
-              f"Tables drawn exactly from the model's assumptions (Gaussian daughter asymmetry, sigma_asym = "
-              f"{EXACT_SIGMA_ASYM}; isolates the fast form's own approximations: delta method and plug-in "
-              "asymmetry scale)"),
+    "simulate": (
+        "calibration.csv",
+        "calibration_ranks.png",
+        "Tables from `allobranch.simulate_junctions` (Dirichlet split of the daughters: the practical "
+        "pipeline, model assumptions met only approximately)",
+    ),
+    "exact": (
+        "calibration_exact.csv",
+        "calibration_ranks_exact.png",
+        f"Tables drawn exactly from the model's assumptions (Gaussian daughter asymmetry, sigma_asym = "
+        f"{EXACT_SIGMA_ASYM}; isolates the fast form's own approximations: delta method and plug-in "
+        "asymmetry scale)",
+    ),
 }
 
 
@@ -305,8 +361,10 @@ def _section(frame: pd.DataFrame, generator: str) -> list[str]:
         "|---|---|---|---|---|---|---|",
     ]
     for r in cov.itertuples():
-        lines.append(f"| {r.quantity} | {r.covered}/{r.n} | {r.coverage:.1%} | {r.ci_low:.1%}-{r.ci_high:.1%} | "
-                     f"{r.binom_p:.3f} | {r.rank_chi2_p:.3f} | {r.mean_rank_fraction:.3f} |")
+        lines.append(
+            f"| {r.quantity} | {r.covered}/{r.n} | {r.coverage:.1%} | {r.ci_low:.1%}-{r.ci_high:.1%} | "
+            f"{r.binom_p:.3f} | {r.rank_chi2_p:.3f} | {r.mean_rank_fraction:.3f} |"
+        )
     per_dataset = frame.drop_duplicates("dataset")
     lines += [
         "",
@@ -350,8 +408,12 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="Simulation-based calibration of the fast form.")
     parser.add_argument("--datasets", type=int, default=100)
     parser.add_argument("--seed", type=int, default=7000, help="base seed (dataset i uses seed + i)")
-    parser.add_argument("--generator", choices=(*GENERATORS, "both"), default="both",
-                        help="table generator (default: both, one after the other)")
+    parser.add_argument(
+        "--generator",
+        choices=(*GENERATORS, "both"),
+        default="both",
+        help="table generator (default: both, one after the other)",
+    )
     parser.add_argument("--no-write", action="store_true", help="print only")
     args = parser.parse_args(argv)
     generators = list(GENERATORS) if args.generator == "both" else [args.generator]
@@ -369,7 +431,9 @@ def main(argv: list[str] | None = None) -> int:
         rank_histograms(frame, RESULTS / png)
     if args.no_write:
         return 0
-    frames = {g: pd.read_csv(RESULTS / OUTPUTS[g][0]) for g in GENERATORS if (RESULTS / OUTPUTS[g][0]).is_file()}
+    frames = {
+        g: pd.read_csv(RESULTS / OUTPUTS[g][0]) for g in GENERATORS if (RESULTS / OUTPUTS[g][0]).is_file()
+    }
     text = write_markdown(frames)
     (RESULTS / "calibration.md").write_text(text, encoding="utf-8")
     print(text)

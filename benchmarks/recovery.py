@@ -43,8 +43,15 @@ RESULTS = Path(__file__).resolve().parent / "results"
 #: True taxon exponents of every recovery table.
 TAXON_EXPONENTS = {"T1": 2.0, "T2": 2.5, "T3": 3.0, "T4": 2.7}
 #: Simulation settings shared by every recovery table unless a setting overrides them.
-BASE = {"taxa": list(TAXON_EXPONENTS), "taxon_exponents": TAXON_EXPONENTS, "specimens_per_taxon": 3,
-        "junctions_per_specimen": 30, "tau_specimen": 0.1, "sigma_dev": 0.03, "rel_error": 0.05}
+BASE = {
+    "taxa": list(TAXON_EXPONENTS),
+    "taxon_exponents": TAXON_EXPONENTS,
+    "specimens_per_taxon": 3,
+    "junctions_per_specimen": 30,
+    "tau_specimen": 0.1,
+    "sigma_dev": 0.03,
+    "rel_error": 0.05,
+}
 #: name -> (description, overrides of BASE).
 SETTINGS: dict[str, tuple[str, dict]] = {
     "rel_01": ("1 % relative error", {"rel_error": 0.01}),
@@ -54,11 +61,17 @@ SETTINGS: dict[str, tuple[str, dict]] = {
     "few": ("few junctions: 10 per specimen", {"junctions_per_specimen": 10}),
     "many": ("many junctions: 60 per specimen", {"junctions_per_specimen": 60}),
     "trifurcations": ("30 % trifurcations", {"trifurcation_share": 0.3}),
-    "unbalanced": ("unbalanced: 1/2/4/3 specimens per taxon, 5-60 junctions per specimen",
-                   {"specimens_per_taxon": [1, 2, 4, 3],
-                    "junctions_per_specimen": [60, 8, 40, 5, 12, 30, 20, 10, 6, 45]}),
-    "absolute": ("absolute error only: SE 0.01 mm, parents 0.3-2 mm", {"rel_error": 0.0, "abs_error": 0.01,
-                                                                       "parent_range": (0.3, 2.0)}),
+    "unbalanced": (
+        "unbalanced: 1/2/4/3 specimens per taxon, 5-60 junctions per specimen",
+        {
+            "specimens_per_taxon": [1, 2, 4, 3],
+            "junctions_per_specimen": [60, 8, 40, 5, 12, 30, 20, 10, 6, 45],
+        },
+    ),
+    "absolute": (
+        "absolute error only: SE 0.01 mm, parents 0.3-2 mm",
+        {"rel_error": 0.0, "abs_error": 0.01, "parent_range": (0.3, 2.0)},
+    ),
 }
 REPLICATES = 3
 SAMPLER = {"draws": 400, "tune": 400, "chains": 2}
@@ -67,11 +80,19 @@ HDI_PROB = 0.9
 LATENT_CASES: dict[str, tuple[str, dict]] = {
     "small_5pct": ("2 taxa x 2 specimens x 12 junctions, 5 % error", {"rel_error": 0.05}),
     "small_15pct": ("2 taxa x 2 specimens x 12 junctions, 15 % error", {"rel_error": 0.15}),
-    "small_trif": ("2 taxa x 2 specimens x 12 junctions, 10 % error, 30 % trifurcations",
-                   {"rel_error": 0.10, "trifurcation_share": 0.3}),
+    "small_trif": (
+        "2 taxa x 2 specimens x 12 junctions, 10 % error, 30 % trifurcations",
+        {"rel_error": 0.10, "trifurcation_share": 0.3},
+    ),
 }
-LATENT_BASE = {"taxa": ["A", "B"], "taxon_exponents": {"A": 2.2, "B": 3.0}, "specimens_per_taxon": 2,
-               "junctions_per_specimen": 12, "tau_specimen": 0.1, "sigma_dev": 0.03}
+LATENT_BASE = {
+    "taxa": ["A", "B"],
+    "taxon_exponents": {"A": 2.2, "B": 3.0},
+    "specimens_per_taxon": 2,
+    "junctions_per_specimen": 12,
+    "tau_specimen": 0.1,
+    "sigma_dev": 0.03,
+}
 LATENT_SAMPLER = {"draws": 1000, "tune": 1000, "chains": 2}
 
 
@@ -96,15 +117,26 @@ def score_table(name: str, replicate: int, sim: SimulatedData, seed: int) -> pd.
     rows = []
     for taxon, truth in sim.truth["a_taxon"].items():
         e = exps.loc[taxon]
-        rows.append({
-            "setting": name, "replicate": replicate, "taxon": taxon, "truth": truth,
-            "mean": e["mean"], "sd": e["sd"], "hdi_low": e["hdi_low"], "hdi_high": e["hdi_high"],
-            "covered": bool(e["hdi_low"] <= truth <= e["hdi_high"]),
-            "naive_median": naive.loc[taxon, "median"], "naive_share_no_root": naive.loc[taxon, "share_no_root"],
-            "n_junctions": int(naive.loc[taxon, "n_junctions"]),
-            "max_rhat": float(diag["r_hat"].max()), "min_ess_bulk": float(diag["ess_bulk"].min()),
-            "divergences": int(checks["divergences"]), "seconds": seconds,
-        })
+        rows.append(
+            {
+                "setting": name,
+                "replicate": replicate,
+                "taxon": taxon,
+                "truth": truth,
+                "mean": e["mean"],
+                "sd": e["sd"],
+                "hdi_low": e["hdi_low"],
+                "hdi_high": e["hdi_high"],
+                "covered": bool(e["hdi_low"] <= truth <= e["hdi_high"]),
+                "naive_median": naive.loc[taxon, "median"],
+                "naive_share_no_root": naive.loc[taxon, "share_no_root"],
+                "n_junctions": int(naive.loc[taxon, "n_junctions"]),
+                "max_rhat": float(diag["r_hat"].max()),
+                "min_ess_bulk": float(diag["ess_bulk"].min()),
+                "divergences": int(checks["divergences"]),
+                "seconds": seconds,
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -114,15 +146,25 @@ def summarise(per_taxon: pd.DataFrame) -> pd.DataFrame:
     for name, g in per_taxon.groupby("setting", sort=False):
         err = g["mean"] - g["truth"]
         naive_err = g["naive_median"] - g["truth"]
-        out.append({
-            "setting": name, "description": SETTINGS[name][0], "fits": g["replicate"].nunique(),
-            "intervals": len(g), "model_bias": err.mean(), "model_rmse": float(np.sqrt((err**2).mean())),
-            "coverage_90": g["covered"].mean(), "covered": int(g["covered"].sum()),
-            "mean_sd": g["sd"].mean(), "naive_bias": naive_err.mean(),
-            "naive_rmse": float(np.sqrt((naive_err**2).mean())), "naive_no_root": g["naive_share_no_root"].mean(),
-            "max_rhat": g["max_rhat"].max(), "divergences": int(g.drop_duplicates("replicate")["divergences"].sum()),
-            "seconds_per_fit": g.drop_duplicates("replicate")["seconds"].mean(),
-        })
+        out.append(
+            {
+                "setting": name,
+                "description": SETTINGS[name][0],
+                "fits": g["replicate"].nunique(),
+                "intervals": len(g),
+                "model_bias": err.mean(),
+                "model_rmse": float(np.sqrt((err**2).mean())),
+                "coverage_90": g["covered"].mean(),
+                "covered": int(g["covered"].sum()),
+                "mean_sd": g["sd"].mean(),
+                "naive_bias": naive_err.mean(),
+                "naive_rmse": float(np.sqrt((naive_err**2).mean())),
+                "naive_no_root": g["naive_share_no_root"].mean(),
+                "max_rhat": g["max_rhat"].max(),
+                "divergences": int(g.drop_duplicates("replicate")["divergences"].sum()),
+                "seconds_per_fit": g.drop_duplicates("replicate")["seconds"].mean(),
+            }
+        )
     return pd.DataFrame(out)
 
 
@@ -147,14 +189,24 @@ def fast_vs_latent(quick: bool) -> pd.DataFrame:
                 continue
             fa, la = tabs["fast"].loc[key], tabs["latent"].loc[key]
             truth = sim.truth["a_taxon"].get(key[1], np.nan) if key[0] == "taxon" else np.nan
-            rows.append({
-                "case": name, "description": description, "level": key[0], "group": key[1], "truth": truth,
-                "fast_mean": fa["mean"], "fast_sd": fa["sd"], "latent_mean": la["mean"], "latent_sd": la["sd"],
-                "diff_in_latent_sd": (fa["mean"] - la["mean"]) / la["sd"], "sd_ratio": fa["sd"] / la["sd"],
-                "fast_max_rhat": float(fits["fast"].diagnostics()["r_hat"].max()),
-                "latent_max_rhat": float(fits["latent"].diagnostics()["r_hat"].max()),
-                "latent_divergences": int(fits["latent"].sampler_checks()["divergences"]),
-            })
+            rows.append(
+                {
+                    "case": name,
+                    "description": description,
+                    "level": key[0],
+                    "group": key[1],
+                    "truth": truth,
+                    "fast_mean": fa["mean"],
+                    "fast_sd": fa["sd"],
+                    "latent_mean": la["mean"],
+                    "latent_sd": la["sd"],
+                    "diff_in_latent_sd": (fa["mean"] - la["mean"]) / la["sd"],
+                    "sd_ratio": fa["sd"] / la["sd"],
+                    "fast_max_rhat": float(fits["fast"].diagnostics()["r_hat"].max()),
+                    "latent_max_rhat": float(fits["latent"].diagnostics()["r_hat"].max()),
+                    "latent_divergences": int(fits["latent"].sampler_checks()["divergences"]),
+                }
+            )
     return pd.DataFrame(rows)
 
 
@@ -192,7 +244,11 @@ def write_markdown(summary: pd.DataFrame, latent: pd.DataFrame, minutes: float |
             f"{r.max_rhat:.3f} | {r.divergences} | {r.seconds_per_fit:.0f} |"
         )
     total_cov = summary["covered"].sum() / summary["intervals"].sum()
-    lines += ["", f"Overall coverage: {summary['covered'].sum()}/{summary['intervals'].sum()} = {total_cov:.1%}.", ""]
+    lines += [
+        "",
+        f"Overall coverage: {summary['covered'].sum()}/{summary['intervals'].sum()} = {total_cov:.1%}.",
+        "",
+    ]
     if len(latent):
         lines += [
             "## Fast (marginal, delta method) vs exact latent form",
@@ -211,9 +267,13 @@ def write_markdown(summary: pd.DataFrame, latent: pd.DataFrame, minutes: float |
                 f"| {r.description} | {r.level} | {r.group} | {truth} | {r.fast_mean:.3f} | {r.fast_sd:.3f} | "
                 f"{r.latent_mean:.3f} | {r.latent_sd:.3f} | {r.diff_in_latent_sd:+.2f} | {r.sd_ratio:.2f} |"
             )
-        lines += ["", f"Largest |diff / SD|: {latent['diff_in_latent_sd'].abs().max():.2f}; SD ratios "
-                  f"{latent['sd_ratio'].min():.2f}-{latent['sd_ratio'].max():.2f}; latent max R-hat "
-                  f"{latent['latent_max_rhat'].max():.3f}, divergences {latent.drop_duplicates('case')['latent_divergences'].sum()}.", ""]
+        lines += [
+            "",
+            f"Largest |diff / SD|: {latent['diff_in_latent_sd'].abs().max():.2f}; SD ratios "
+            f"{latent['sd_ratio'].min():.2f}-{latent['sd_ratio'].max():.2f}; latent max R-hat "
+            f"{latent['latent_max_rhat'].max():.3f}, divergences {latent.drop_duplicates('case')['latent_divergences'].sum()}.",
+            "",
+        ]
     run_time = f" Total run time {minutes:.1f} min." if minutes is not None else ""
     lines += [f"Load average when written: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores.{run_time}", ""]
     return "\n".join(lines)
@@ -223,8 +283,11 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="Recovery on simulated data; fast vs latent form.")
     parser.add_argument("--quick", action="store_true", help="one replicate of two settings (pipeline check)")
     parser.add_argument("--replicates", type=int, default=REPLICATES)
-    parser.add_argument("--report-only", action="store_true",
-                        help="rewrite recovery.md from the saved CSV files without fitting")
+    parser.add_argument(
+        "--report-only",
+        action="store_true",
+        help="rewrite recovery.md from the saved CSV files without fitting",
+    )
     args = parser.parse_args(argv)
     if args.report_only:
         per_taxon = pd.read_csv(RESULTS / "recovery.csv")
@@ -237,22 +300,29 @@ def main(argv: list[str] | None = None) -> int:
     settings = list(SETTINGS.items())[:2] if args.quick else list(SETTINGS.items())
     reps = 1 if args.quick else args.replicates
     frames = []
-    for s, (name, (description, overrides)) in enumerate(settings):
+    for s, (name, (_description, overrides)) in enumerate(settings):
         for r in range(reps):
             seed = 1000 * (s + 1) + r
             sim = simulate(overrides, seed)
             frames.append(score_table(name, r, sim, seed))
             last = frames[-1]
-            print(f"[recovery] {name} rep {r + 1}/{reps}: bias {np.mean(last['mean'] - last['truth']):+.3f}, "
-                  f"covered {int(last['covered'].sum())}/{len(last)}, naive bias "
-                  f"{np.mean(last['naive_median'] - last['truth']):+.3f}, {last['seconds'].iloc[0]:.0f} s "
-                  f"[{(time.perf_counter() - start) / 60:.1f} min]", flush=True)
+            print(
+                f"[recovery] {name} rep {r + 1}/{reps}: bias {np.mean(last['mean'] - last['truth']):+.3f}, "
+                f"covered {int(last['covered'].sum())}/{len(last)}, naive bias "
+                f"{np.mean(last['naive_median'] - last['truth']):+.3f}, {last['seconds'].iloc[0]:.0f} s "
+                f"[{(time.perf_counter() - start) / 60:.1f} min]",
+                flush=True,
+            )
     per_taxon = pd.concat(frames, ignore_index=True)
     summary = summarise(per_taxon)
     print(summary.to_string(index=False), flush=True)
     latent = fast_vs_latent(args.quick)
     if len(latent):
-        print(latent[["case", "level", "group", "fast_mean", "fast_sd", "latent_mean", "latent_sd"]].to_string(index=False))
+        print(
+            latent[["case", "level", "group", "fast_mean", "fast_sd", "latent_mean", "latent_sd"]].to_string(
+                index=False
+            )
+        )
     minutes = (time.perf_counter() - start) / 60
     if args.quick:
         print(f"[recovery] quick run done in {minutes:.1f} min; results not written", flush=True)

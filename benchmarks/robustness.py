@@ -34,8 +34,17 @@ import pandas as pd
 import allobranch as ab
 
 RESULTS = Path(__file__).resolve().parent / "results"
-BASE = dict(taxa=3, specimens_per_taxon=4, junctions_per_specimen=60, mu=2.5, tau_taxon=0.3, tau_specimen=0.1,
-            rel_error=0.05, split="dirichlet", split_concentration=4.0)
+BASE = dict(
+    taxa=3,
+    specimens_per_taxon=4,
+    junctions_per_specimen=60,
+    mu=2.5,
+    tau_taxon=0.3,
+    tau_specimen=0.1,
+    rel_error=0.05,
+    split="dirichlet",
+    split_concentration=4.0,
+)
 #: name -> (what changes, simulator arguments changed from BASE)
 DESIGNS: dict[str, tuple[str, dict]] = {
     "base": ("the base table", {}),
@@ -43,26 +52,42 @@ DESIGNS: dict[str, tuple[str, dict]] = {
     "spread_0.02": ("specimen spread 0.02", {"tau_specimen": 0.02}),
     "spread_0.3": ("specimen spread 0.3", {"tau_specimen": 0.3}),
     "one_taxon": ("1 taxon", {"taxa": 1}),
-    "twenty_taxa": ("20 taxa x 5 specimens x 100 junctions (10,000)",
-                    {"taxa": 20, "specimens_per_taxon": 5, "junctions_per_specimen": 100}),
+    "twenty_taxa": (
+        "20 taxa x 5 specimens x 100 junctions (10,000)",
+        {"taxa": 20, "specimens_per_taxon": 5, "junctions_per_specimen": 100},
+    ),
     "junctions_10": ("10 junctions per specimen", {"junctions_per_specimen": 10}),
     "junctions_1000": ("1000 junctions per specimen (12,000)", {"junctions_per_specimen": 1000}),
     "error_1pct": ("1 % error", {"rel_error": 0.01}),
     "error_20pct": ("20 % error", {"rel_error": 0.20}),
     "trifurcations": ("30 % trifurcations", {"trifurcation_share": 0.3}),
-    "unbalanced": ("unbalanced: 1, 3 and 6 specimens of 10-200 junctions",
-                   {"specimens_per_taxon": [1, 3, 6],
-                    "junctions_per_specimen": [200, 15, 60, 120, 10, 40, 80, 25, 150, 30]}),
+    "unbalanced": (
+        "unbalanced: 1, 3 and 6 specimens of 10-200 junctions",
+        {
+            "specimens_per_taxon": [1, 3, 6],
+            "junctions_per_specimen": [200, 15, 60, 120, 10, 40, 80, 25, 150, 30],
+        },
+    ),
     "split_uniform": ("uniform split fraction", {"split": "uniform"}),
     "split_lognormal": ("log-normal daughters (SD 0.3)", {"split": "lognormal", "split_concentration": 0.3}),
     "split_side": ("one-sided side branches", {"split": "side_branch"}),
-    "one_specimen": ("1 taxon x 1 specimen x 100 junctions",
-                     {"taxa": 1, "specimens_per_taxon": 1, "junctions_per_specimen": 100}),
-    "funnel": ("1 taxon x 12 specimens x 40 junctions, spread 0.01",
-               {"taxa": 1, "specimens_per_taxon": 12, "junctions_per_specimen": 40, "tau_specimen": 0.01}),
-    "reported_720": ("3 x 4 x 60, 4 % error, spread 0.04, uniform split, laws 3 / 2 / 1.5",
-                     {"rel_error": 0.04, "tau_specimen": 0.04, "split": "uniform",
-                      "taxon_exponents": {"T1": 3.0, "T2": 2.0, "T3": 1.5}}),
+    "one_specimen": (
+        "1 taxon x 1 specimen x 100 junctions",
+        {"taxa": 1, "specimens_per_taxon": 1, "junctions_per_specimen": 100},
+    ),
+    "funnel": (
+        "1 taxon x 12 specimens x 40 junctions, spread 0.01",
+        {"taxa": 1, "specimens_per_taxon": 12, "junctions_per_specimen": 40, "tau_specimen": 0.01},
+    ),
+    "reported_720": (
+        "3 x 4 x 60, 4 % error, spread 0.04, uniform split, laws 3 / 2 / 1.5",
+        {
+            "rel_error": 0.04,
+            "tau_specimen": 0.04,
+            "split": "uniform",
+            "taxon_exponents": {"T1": 3.0, "T2": 2.0, "T3": 1.5},
+        },
+    ),
 }
 
 
@@ -81,23 +106,46 @@ def run_one(name: str, seed: int) -> list[dict]:
     kept = next(a for a in result.settings["attempts"] if a["kept"])
     diag = result.diagnostics()
     post = result.idata.posterior
-    base = {"design": name, "seed": seed, "junctions": table.n_junctions, "attempts": len(result.settings["attempts"]),
-            "divergences": kept["divergences"], "max_r_hat": float(diag["r_hat"].max()),
-            "min_ess_bulk": float(diag["ess_bulk"].min()), "seconds": round(wall, 1),
-            "first_divergences": result.settings["attempts"][0]["divergences"],
-            "first_max_r_hat": result.settings["attempts"][0]["max_r_hat"]}
+    base = {
+        "design": name,
+        "seed": seed,
+        "junctions": table.n_junctions,
+        "attempts": len(result.settings["attempts"]),
+        "divergences": kept["divergences"],
+        "max_r_hat": float(diag["r_hat"].max()),
+        "min_ess_bulk": float(diag["ess_bulk"].min()),
+        "seconds": round(wall, 1),
+        "first_divergences": result.settings["attempts"][0]["divergences"],
+        "first_max_r_hat": result.settings["attempts"][0]["max_r_hat"],
+    }
     if len(sim.truth["a_taxon"]) == 1:  # one taxon: the population exponent is that taxon's
         truths = {("population", "all"): next(iter(sim.truth["a_taxon"].values()))}
     else:
-        truths = {("population", "all"): sim.truth["mu"],
-                  **{("taxon", t): v for t, v in sim.truth["a_taxon"].items()}}
+        truths = {
+            ("population", "all"): sim.truth["mu"],
+            **{("taxon", t): v for t, v in sim.truth["a_taxon"].items()},
+        }
     rows = []
     for (level, group), truth in truths.items():
-        draws = post["mu"].values.ravel() if level == "population" else post["a_taxon"].sel(taxon=group).values.ravel()
+        draws = (
+            post["mu"].values.ravel()
+            if level == "population"
+            else post["a_taxon"].sel(taxon=group).values.ravel()
+        )
         lo, hi = az.hdi(draws, hdi_prob=0.9)
         sd = float(draws.std(ddof=1))
-        rows.append({**base, "level": level, "group": group, "truth": truth, "mean": float(draws.mean()), "sd": sd,
-                     "z": (float(draws.mean()) - truth) / sd, "covered_90": bool(lo <= truth <= hi)})
+        rows.append(
+            {
+                **base,
+                "level": level,
+                "group": group,
+                "truth": truth,
+                "mean": float(draws.mean()),
+                "sd": sd,
+                "z": (float(draws.mean()) - truth) / sd,
+                "covered_90": bool(lo <= truth <= hi),
+            }
+        )
     return rows
 
 
@@ -106,10 +154,16 @@ def summarise(frame: pd.DataFrame) -> pd.DataFrame:
     fits = frame.drop_duplicates(["design", "seed"])
     per_exponent = frame.groupby(["design", "level", "group"])["z"].mean().abs().groupby("design").max()
     out = fits.groupby("design", sort=False).agg(
-        junctions=("junctions", "first"), seeds=("seed", "nunique"), max_attempts=("attempts", "max"),
-        first_divergences=("first_divergences", "max"), divergences=("divergences", "max"),
-        max_r_hat=("max_r_hat", "max"), min_ess_bulk=("min_ess_bulk", "min"), median_seconds=("seconds", "median"),
-        max_seconds=("seconds", "max"))
+        junctions=("junctions", "first"),
+        seeds=("seed", "nunique"),
+        max_attempts=("attempts", "max"),
+        first_divergences=("first_divergences", "max"),
+        divergences=("divergences", "max"),
+        max_r_hat=("max_r_hat", "max"),
+        min_ess_bulk=("min_ess_bulk", "min"),
+        median_seconds=("seconds", "median"),
+        max_seconds=("seconds", "max"),
+    )
     out["worst_mean_abs_z"] = per_exponent.reindex(out.index)
     out["coverage_90"] = frame.groupby("design")["covered_90"].mean().reindex(out.index)
     out["clean"] = (out["divergences"] == 0) & (out["max_r_hat"] <= 1.01)
@@ -125,7 +179,9 @@ def figure(summary: pd.DataFrame, frame: pd.DataFrame, path: Path) -> None:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    fig, axes = plt.subplots(1, 3, figsize=(12, 0.32 * len(summary) + 1.5), sharey=True, constrained_layout=True)
+    fig, axes = plt.subplots(
+        1, 3, figsize=(12, 0.32 * len(summary) + 1.5), sharey=True, constrained_layout=True
+    )
     order = list(summary["design"])
     ypos = {d: i for i, d in enumerate(order)}
     jitter = np.random.default_rng(0).uniform(-0.2, 0.2, len(frame))
@@ -136,7 +192,9 @@ def figure(summary: pd.DataFrame, frame: pd.DataFrame, path: Path) -> None:
     axes[0].set_xlabel("(posterior mean - truth) / posterior sd")
     axes[0].set_yticks(range(len(order)), order)
     axes[0].invert_yaxis()
-    axes[1].barh(range(len(order)), summary["max_r_hat"] - 1, color=np.where(summary["max_r_hat"] > 1.01, "C3", "C2"))
+    axes[1].barh(
+        range(len(order)), summary["max_r_hat"] - 1, color=np.where(summary["max_r_hat"] > 1.01, "C3", "C2")
+    )
     axes[1].axvline(0.01, color="grey", ls="--", lw=0.8)
     axes[1].set_xlabel("worst R-hat - 1 (kept attempt)")
     axes[2].barh(range(len(order)), summary["median_seconds"], color="C0")
@@ -162,10 +220,13 @@ def main(argv: list[str] | None = None) -> int:
             got = run_one(name, seed)
             rows += got
             r = got[0]
-            print(f"{name:16s} seed {seed}: {r['junctions']:6d} junctions, attempts {r['attempts']}, "
-                  f"divergences {r['divergences']} (first {r['first_divergences']}), R-hat {r['max_r_hat']:.3f}, "
-                  f"ESS {r['min_ess_bulk']:.0f}, {r['seconds']:.1f} s, "
-                  f"|z| max {max(abs(x['z']) for x in got):.2f}", flush=True)
+            print(
+                f"{name:16s} seed {seed}: {r['junctions']:6d} junctions, attempts {r['attempts']}, "
+                f"divergences {r['divergences']} (first {r['first_divergences']}), R-hat {r['max_r_hat']:.3f}, "
+                f"ESS {r['min_ess_bulk']:.0f}, {r['seconds']:.1f} s, "
+                f"|z| max {max(abs(x['z']) for x in got):.2f}",
+                flush=True,
+            )
     frame = pd.DataFrame(rows)
     summary = summarise(frame)
     args.out.mkdir(parents=True, exist_ok=True)
@@ -174,8 +235,10 @@ def main(argv: list[str] | None = None) -> int:
     figure(summary, frame, args.out / "robustness.png")
     with pd.option_context("display.width", 200, "display.max_columns", 30):
         print(summary.drop(columns=["what"]).round(3).to_string(index=False))
-    print(f"clean designs: {int(summary['clean'].sum())}/{len(summary)}; within 2 sd: "
-          f"{int(summary['within_2sd'].sum())}/{len(summary)}")
+    print(
+        f"clean designs: {int(summary['clean'].sum())}/{len(summary)}; within 2 sd: "
+        f"{int(summary['within_2sd'].sum())}/{len(summary)}"
+    )
     return 0
 
 

@@ -55,8 +55,15 @@ def three_laws(seed: int, **sampler) -> tuple[ab.comparison.LawComparison, bool,
     # A junction says less about a larger exponent (for a symmetric split the daughter/parent ratio
     # 2^(-1/a) changes by ratio * ln 2 / a^2 per unit of a: exact algebra), so the cube-law taxon gets
     # more junctions: 20, 30 and 60 per specimen.
-    sim = ab.simulate_junctions(taxa=list(truth), specimens_per_taxon=3,
-                                junctions_per_specimen=[20] * 3 + [30] * 3 + [60] * 3, taxon_exponents=truth, tau_specimen=0.05, rel_error=0.05, seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=list(truth),
+        specimens_per_taxon=3,
+        junctions_per_specimen=[20] * 3 + [30] * 3 + [60] * 3,
+        taxon_exponents=truth,
+        tau_specimen=0.05,
+        rel_error=0.05,
+        seed=seed,
+    )
     result = _compare(sim, seed, **sampler)
     got = dict(zip(result.by_taxon["taxon"], result.by_taxon["verdict"]))
     expected = {taxon: taxon.removeprefix("T_") for taxon in truth}
@@ -65,8 +72,15 @@ def three_laws(seed: int, **sampler) -> tuple[ab.comparison.LawComparison, bool,
 
 def between_laws(seed: int, **sampler) -> tuple[ab.comparison.LawComparison, bool, str]:
     """One taxon with exponent 2.5: no classic law may be declared."""
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=3, junctions_per_specimen=30,
-                                taxon_exponents={"T1": 2.5}, tau_specimen=0.05, rel_error=0.05, seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=3,
+        junctions_per_specimen=30,
+        taxon_exponents={"T1": 2.5},
+        tau_specimen=0.05,
+        rel_error=0.05,
+        seed=seed,
+    )
     result = _compare(sim, seed, **sampler)
     ok = not (set(result.verdicts["verdict"]) & CLASSIC_LABELS)
     return result, ok, "no classic law declared in any scope"
@@ -74,15 +88,25 @@ def between_laws(seed: int, **sampler) -> tuple[ab.comparison.LawComparison, boo
 
 def few_noisy(seed: int, **sampler) -> tuple[ab.comparison.LawComparison, bool, str]:
     """Twelve junctions at 15 % error: undecided."""
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=12,
-                                taxon_exponents={"T1": 3.0}, rel_error=0.15, seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=1,
+        junctions_per_specimen=12,
+        taxon_exponents={"T1": 3.0},
+        rel_error=0.15,
+        seed=seed,
+    )
     result = _compare(sim, seed, **sampler)
     ok = set(result.verdicts["verdict"]) == {"undecided"}
     return result, ok, "every scope undecided"
 
 
 #: The scenarios, by name.
-SCENARIOS: dict[str, Callable] = {"few_noisy": few_noisy, "between_laws": between_laws, "three_laws": three_laws}
+SCENARIOS: dict[str, Callable] = {
+    "few_noisy": few_noisy,
+    "between_laws": between_laws,
+    "three_laws": three_laws,
+}
 
 
 def run_scenario(name: str, *, seed: int = 0, draws: int = 500, tune: int = 500, chains: int = 2) -> Outcome:
@@ -104,8 +128,15 @@ def run_scenario(name: str, *, seed: int = 0, draws: int = 500, tune: int = 500,
     started = time.perf_counter()
     result, ok, expectation = SCENARIOS[name](seed, draws=draws, tune=tune, chains=chains)
     verdicts = dict(zip(result.verdicts["scope"], result.verdicts["verdict"]))
-    return Outcome(name, ok, expectation, verdicts, time.perf_counter() - started, result.settings["n_fits"],
-                   result.warnings)
+    return Outcome(
+        name,
+        ok,
+        expectation,
+        verdicts,
+        time.perf_counter() - started,
+        result.settings["n_fits"],
+        result.warnings,
+    )
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -122,14 +153,19 @@ def main(argv: list[str] | None = None) -> int:
     for name in args.only or list(SCENARIOS):
         out = run_scenario(name, seed=args.seed, draws=args.draws, tune=args.tune, chains=args.chains)
         outcomes.append(out)
-        print(f"{name}: {'PASS' if out.passed else 'FAIL'} (expected: {out.expectation}); {out.n_fits} fits, "
-              f"{out.seconds:.0f} s", flush=True)
+        print(
+            f"{name}: {'PASS' if out.passed else 'FAIL'} (expected: {out.expectation}); {out.n_fits} fits, "
+            f"{out.seconds:.0f} s",
+            flush=True,
+        )
         for scope, verdict in out.verdicts.items():
             print(f"    {scope:<14} {verdict}")
         for w in out.warnings:
             print(f"    warning: {w[:160]}")
-    print(f"total runtime {time.perf_counter() - total:.0f} s (draws {args.draws}, tune {args.tune}, "
-          f"chains {args.chains}, seed {args.seed})")
+    print(
+        f"total runtime {time.perf_counter() - total:.0f} s (draws {args.draws}, tune {args.tune}, "
+        f"chains {args.chains}, seed {args.seed})"
+    )
     return 0 if all(o.passed for o in outcomes) else 1
 
 

@@ -1,6 +1,6 @@
 """Regenerate the SIMULATED demo data in this folder (seeded: the same files every time).
 
-    python data_demo/make_demo.py
+python data_demo/make_demo.py
 """
 
 from pathlib import Path

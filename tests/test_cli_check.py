@@ -15,8 +15,22 @@ import pytest
 from allobranch.cli import main
 
 DATA = Path(__file__).parent / "data"
-FLAGS = ["--taxon", "species", "--specimen", "animal", "--junction", "node", "--parent", "r_parent",
-         "--daughters", "r_d1,r_d2,r_d3", "--unit", "um", "--rel-error", "0.05"]
+FLAGS = [
+    "--taxon",
+    "species",
+    "--specimen",
+    "animal",
+    "--junction",
+    "node",
+    "--parent",
+    "r_parent",
+    "--daughters",
+    "r_d1,r_d2,r_d3",
+    "--unit",
+    "um",
+    "--rel-error",
+    "0.05",
+]
 
 
 @pytest.fixture
@@ -43,8 +57,20 @@ def test_check_writes_junctions_in_user_unit(tmp_path, capsys):
     src = tmp_path / "diam.csv"
     df.to_csv(src, index=False)
     out_dir = tmp_path / "out"
-    args = ["check", str(src), "--parent", "p", "--daughters", "a,b", "--measure", "diameter", "--unit", "um",
-            "--out", str(out_dir)]
+    args = [
+        "check",
+        str(src),
+        "--parent",
+        "p",
+        "--daughters",
+        "a,b",
+        "--measure",
+        "diameter",
+        "--unit",
+        "um",
+        "--out",
+        str(out_dir),
+    ]
     assert main(args) == 0
     written = pd.read_csv(out_dir / "junctions.csv")
     # exact algebra: radii in the user's unit are half the diameters
@@ -61,7 +87,9 @@ def test_check_writes_junctions_in_user_unit(tmp_path, capsys):
 
 def test_save_recipe_then_recipe_gives_same_output(table, tmp_path, capsys):
     recipe = tmp_path / "saved.toml"
-    assert main(["check", str(table), *FLAGS, "--out", str(tmp_path / "a"), "--save-recipe", str(recipe)]) == 0
+    assert (
+        main(["check", str(table), *FLAGS, "--out", str(tmp_path / "a"), "--save-recipe", str(recipe)]) == 0
+    )
     assert main(["check", str(table), "--recipe", str(recipe), "--out", str(tmp_path / "b")]) == 0
     assert (tmp_path / "a" / "junctions.csv").read_bytes() == (tmp_path / "b" / "junctions.csv").read_bytes()
     assert main(["check", str(table), *FLAGS, "--save-recipe", str(recipe)]) == 2
@@ -71,7 +99,10 @@ def test_save_recipe_then_recipe_gives_same_output(table, tmp_path, capsys):
 def test_flags_override_recipe(table, tmp_path, capsys):
     recipe = table.parent / "recipe_basic.toml"
     assert main(["check", str(table), "--recipe", str(recipe), "--out", str(tmp_path / "um")]) == 0
-    assert main(["check", str(table), "--recipe", str(recipe), "--unit", "mm", "--out", str(tmp_path / "mm")]) == 0
+    assert (
+        main(["check", str(table), "--recipe", str(recipe), "--unit", "mm", "--out", str(tmp_path / "mm")])
+        == 0
+    )
     assert "repeat readings" in capsys.readouterr().out
     um = pd.read_csv(tmp_path / "um" / "junctions.csv")
     mm = pd.read_csv(tmp_path / "mm" / "junctions.csv")
@@ -117,7 +148,9 @@ def test_subprocess_no_traceback(tmp_path, content, expected):
     src.write_bytes(content)
     proc = subprocess.run(
         [sys.executable, "-m", "allobranch.cli", "check", str(src), "--parent", "p", "--daughters", "d1,d2"],
-        capture_output=True, text=True, timeout=120,
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
     assert proc.returncode == 2
     assert expected in proc.stderr
@@ -125,8 +158,12 @@ def test_subprocess_no_traceback(tmp_path, content, expected):
 
 
 def test_subprocess_success(table):
-    proc = subprocess.run([sys.executable, "-m", "allobranch.cli", "check", str(table), *FLAGS],
-                          capture_output=True, text=True, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-m", "allobranch.cli", "check", str(table), *FLAGS],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert proc.returncode == 0, proc.stderr
     assert "junctions used: 6" in proc.stdout
 

@@ -14,8 +14,20 @@ import allobranch as ab
 from allobranch.cli import main
 from allobranch.cli.compare import COMPARE_FILES
 
-FLAGS = ["--parent", "parent", "--daughters", "d1,d2", "--taxon", "taxon", "--specimen", "specimen",
-         "--junction", "junction", "--rel-error", "0.05"]
+FLAGS = [
+    "--parent",
+    "parent",
+    "--daughters",
+    "d1,d2",
+    "--taxon",
+    "taxon",
+    "--specimen",
+    "specimen",
+    "--junction",
+    "junction",
+    "--rel-error",
+    "0.05",
+]
 SHORT = ["--draws", "200", "--tune", "200", "--chains", "2", "--quiet"]
 
 
@@ -34,8 +46,20 @@ def saved(tmp_path_factory) -> tuple[Path, Path, ab.FitResult]:
 def test_compare_reuses_saved_fit_and_writes_files(saved, tmp_path, capsys):
     csv, fit_file, free = saved
     out = tmp_path / "laws"
-    args = ["compare", str(csv), *FLAGS, "--out", str(out), "--law", "murray", "--law", "turbulent=7/3",
-            "--fit", str(fit_file), *SHORT]
+    args = [
+        "compare",
+        str(csv),
+        *FLAGS,
+        "--out",
+        str(out),
+        "--law",
+        "murray",
+        "--law",
+        "turbulent=7/3",
+        "--fit",
+        str(fit_file),
+        *SHORT,
+    ]
     assert main(args) == 0
     printed = capsys.readouterr().out
     assert "Verdicts" in printed and "re-used" in printed and " s;" in printed
@@ -54,7 +78,9 @@ def test_compare_reuses_saved_fit_and_writes_files(saved, tmp_path, capsys):
     import arviz as az
 
     ref = az.loo(free.idata, var_name="loglik").elpd_loo
-    assert laws.loc[(laws["scope"] == "overall") & (laws["law"] == "free"), "elpd"].item() == pytest.approx(ref)
+    assert laws.loc[(laws["scope"] == "overall") & (laws["law"] == "free"), "elpd"].item() == pytest.approx(
+        ref
+    )
     report = (out / "laws.md").read_text(encoding="utf-8")
     assert "## Verdicts" in report and "## Caveats" in report
     # An existing result is never overwritten without --force, and nothing is touched.
@@ -71,16 +97,22 @@ def test_compare_refuses_a_fit_of_other_data(saved, tmp_path, capsys):
     frame.loc[0, "parent"] = frame.loc[0, "parent"] * 1.01
     other = tmp_path / "other.csv"
     frame.to_csv(other, index=False)
-    assert main(["compare", str(other), *FLAGS, "--out", str(tmp_path / "o"), "--fit", str(fit_file), *SHORT]) == 2
+    assert (
+        main(["compare", str(other), *FLAGS, "--out", str(tmp_path / "o"), "--fit", str(fit_file), *SHORT])
+        == 2
+    )
     assert "other data" in capsys.readouterr().err
     assert not (tmp_path / "o" / "laws.csv").exists()
 
 
-@pytest.mark.parametrize("extra, message", [
-    (["--law", "murray=abc"], "not a number"),
-    (["--law", "kleiber"], "unknown law"),
-    (["--delta", "0"], "delta"),
-])
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--law", "murray=abc"], "not a number"),
+        (["--law", "kleiber"], "unknown law"),
+        (["--delta", "0"], "delta"),
+    ],
+)
 def test_compare_bad_options_exit_2(saved, tmp_path, capsys, extra, message):
     csv, _, _ = saved
     assert main(["compare", str(csv), *FLAGS, "--out", str(tmp_path / "x"), *extra, *SHORT]) == 2
@@ -90,25 +122,55 @@ def test_compare_bad_options_exit_2(saved, tmp_path, capsys, extra, message):
 
 def test_compare_error_in_a_subprocess_has_no_traceback(saved, tmp_path):
     csv, _, _ = saved
-    proc = subprocess.run([sys.executable, "-m", "allobranch.cli", "compare", str(csv), *FLAGS,
-                           "--out", str(tmp_path / "x"), "--law", "rall=1/0", *SHORT],
-                          capture_output=True, text=True, timeout=3600)
+    proc = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "allobranch.cli",
+            "compare",
+            str(csv),
+            *FLAGS,
+            "--out",
+            str(tmp_path / "x"),
+            "--law",
+            "rall=1/0",
+            *SHORT,
+        ],
+        capture_output=True,
+        text=True,
+        timeout=3600,
+    )
     assert proc.returncode == 2
     assert "not a number" in proc.stderr and "Traceback" not in proc.stderr
 
 
 def test_compare_missing_fit_file_is_a_user_error(saved, tmp_path, capsys):
     csv, _, _ = saved
-    assert main(["compare", str(csv), *FLAGS, "--out", str(tmp_path / "y"), "--fit",
-                 str(tmp_path / "nope.nc"), *SHORT]) == 2
+    assert (
+        main(
+            [
+                "compare",
+                str(csv),
+                *FLAGS,
+                "--out",
+                str(tmp_path / "y"),
+                "--fit",
+                str(tmp_path / "nope.nc"),
+                *SHORT,
+            ]
+        )
+        == 2
+    )
     assert "no saved fit" in capsys.readouterr().err
 
 
 def test_sampler_seed_reaches_the_comparison(saved):
     # Same seed, same numbers (Bayes factors and ROPE come from the re-used free fit; LOO from refits).
     _, _, free = saved
-    runs = [ab.compare_laws(free, ["murray"], scopes=("overall",), draws=100, tune=100, chains=1, seed=4)
-            for _ in range(2)]
+    runs = [
+        ab.compare_laws(free, ["murray"], scopes=("overall",), draws=100, tune=100, chains=1, seed=4)
+        for _ in range(2)
+    ]
     cols = ["elpd", "elpd_diff", "log10_bf", "p_rope"]
     first = runs[0].overall[cols].to_numpy(float)
     # assert_allclose treats NaN == NaN as equal: make sure there are numbers to compare

@@ -46,17 +46,47 @@ class _Images(HTMLParser):
 
 @pytest.fixture(scope="module")
 def fit_dir(tmp_path_factory) -> Path:
-    sim = ab.simulate_junctions(taxa=2, specimens_per_taxon=2, junctions_per_specimen=15, rel_error=0.05,
-                                seed=11)
+    sim = ab.simulate_junctions(
+        taxa=2, specimens_per_taxon=2, junctions_per_specimen=15, rel_error=0.05, seed=11
+    )
     folder = tmp_path_factory.mktemp("pipeline")
     csv = folder / "junctions.csv"
     sim.frame.to_csv(csv, index=False)
     out = folder / "results"
-    mapping = ["--taxon", "taxon", "--specimen", "specimen", "--junction", "junction", "--parent", "parent",
-               "--daughters", "d1,d2", "--rel-error", "0.05"]
+    mapping = [
+        "--taxon",
+        "taxon",
+        "--specimen",
+        "specimen",
+        "--junction",
+        "junction",
+        "--parent",
+        "parent",
+        "--daughters",
+        "d1,d2",
+        "--rel-error",
+        "0.05",
+    ]
     assert main(["fit", str(csv), *mapping, "--out", str(out), "--seed", "3", *SHORT]) == 0
-    assert main(["compare", str(csv), *mapping, "--out", str(out), "--fit", str(out / "fit.nc"),
-                 "--scope", "overall", "--seed", "3", *SHORT]) == 0
+    assert (
+        main(
+            [
+                "compare",
+                str(csv),
+                *mapping,
+                "--out",
+                str(out),
+                "--fit",
+                str(out / "fit.nc"),
+                "--scope",
+                "overall",
+                "--seed",
+                "3",
+                *SHORT,
+            ]
+        )
+        == 0
+    )
     return out
 
 
@@ -119,11 +149,30 @@ def test_report_command_embeds_everything(fit_dir):
 def test_demo_command_runs_the_whole_path(tmp_path):
     out = tmp_path / "demo"
     assert main(["demo", "--out", str(out), "--draws", "80", "--tune", "80", "--chains", "2", "--quiet"]) == 0
-    for name in ("exponents.csv", "variance.csv", "diagnostics.csv", "summary.md", "fit.nc", "laws.csv",
-                 "laws_by_taxon.csv", "laws_verdicts.csv", "laws.md", "report.html"):
+    for name in (
+        "exponents.csv",
+        "variance.csv",
+        "diagnostics.csv",
+        "summary.md",
+        "fit.nc",
+        "laws.csv",
+        "laws_by_taxon.csv",
+        "laws_verdicts.csv",
+        "laws.md",
+        "report.html",
+    ):
         assert (out / name).is_file(), name
     exps = pd.read_csv(out / "exponents.csv")
-    assert list(exps.columns[:8]) == ["level", "group", "mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk"]
+    assert list(exps.columns[:8]) == [
+        "level",
+        "group",
+        "mean",
+        "sd",
+        "hdi_low",
+        "hdi_high",
+        "r_hat",
+        "ess_bulk",
+    ]
     assert set(exps.loc[exps["level"] == "taxon", "group"]) == set(ab.demo.DEMO_EXPONENTS)
     # The demo's truth (allobranch/demo.py, data_demo/simulated_truth.json): two cube-law species, one
     # square-law species, one at 2.5. Even with these short chains no species may be given a wrong law ...

@@ -39,7 +39,9 @@ def test_parse_law_fraction_and_names():
     assert parse_law("x=2.25").value == 2.25
 
 
-@pytest.mark.parametrize("text", ["kleiber", "a b=3", "free=3", "none=2", "x=abc", "x=1/0", "x=0", "x=25", "1x=2"])
+@pytest.mark.parametrize(
+    "text", ["kleiber", "a b=3", "free=3", "none=2", "x=abc", "x=1/0", "x=0", "x=25", "1x=2"]
+)
 def test_parse_law_rejects_bad_input(text):
     with pytest.raises(InputError):
         parse_law(text)
@@ -112,7 +114,9 @@ def _exact_log10_bf(y, value, m, s, sigma):
     """BF(theta = value vs free) = p(y | value) / p(y): the marginal is N(m 1, sigma^2 I + s^2 1 1^T)."""
     n = len(y)
     null = stats.norm.logpdf(y, value, sigma).sum()
-    marginal = stats.multivariate_normal.logpdf(y, np.full(n, m), sigma**2 * np.eye(n) + s**2 * np.ones((n, n)))
+    marginal = stats.multivariate_normal.logpdf(
+        y, np.full(n, m), sigma**2 * np.eye(n) + s**2 * np.ones((n, n))
+    )
     return (null - marginal) / np.log(10)
 
 
@@ -154,7 +158,9 @@ def test_bayes_factor_table_overall_with_prior_sensitivity_matches_exact():
     for row in table.itertuples():
         assert row.scope == "overall"
         for col, factor in (("log10_bf", 1.0), ("log10_bf_narrow", 0.5), ("log10_bf_wide", 2.0)):
-            assert getattr(row, col) == pytest.approx(_exact_log10_bf(y, row.value, m, s * factor, sigma), abs=0.03)
+            assert getattr(row, col) == pytest.approx(
+                _exact_log10_bf(y, row.value, m, s * factor, sigma), abs=0.03
+            )
 
 
 def _npdf(x: float, m: float, s: float) -> float:
@@ -166,10 +172,15 @@ def test_prior_density_of_taxon_exponent_matches_quadrature():
     # (the inner integral over mu spans +/- 12 tau around v, where N(v; mu, tau) lives).
     priors = Priors(mu_mean=2.5, mu_sd=1.0, tau_taxon=0.5)
     for v in (1.5, 4.2):
+
         def inner(tau, v=v):
-            return integrate.quad(lambda mu: _npdf(v, mu, tau) * _npdf(mu, 2.5, 1.0), v - 12 * tau, v + 12 * tau,
-                                  epsabs=1e-13)[0]
-        exact = integrate.quad(lambda tau: inner(tau) * 2 * _npdf(tau, 0.0, 0.5), 0, 6, epsabs=1e-12, limit=200)[0]
+            return integrate.quad(
+                lambda mu: _npdf(v, mu, tau) * _npdf(mu, 2.5, 1.0), v - 12 * tau, v + 12 * tau, epsabs=1e-13
+            )[0]
+
+        exact = integrate.quad(
+            lambda tau: inner(tau) * 2 * _npdf(tau, 0.0, 0.5), 0, 6, epsabs=1e-12, limit=200
+        )[0]
         assert np.exp(bfm.log_prior_taxon(v, priors, seed=5)) == pytest.approx(exact, rel=2e-3)
 
 
@@ -182,9 +193,11 @@ def test_bayes_factor_is_one_when_the_data_say_nothing():
     mu = rng.normal(priors.mu_mean, priors.mu_sd, n)
     tau = np.abs(rng.normal(0, priors.tau_taxon, n))
     a = mu[:, None] + tau[:, None] * rng.standard_normal((n, 2))
-    idata = az.from_dict(posterior={"mu": mu.reshape(2, -1), "tau_taxon": tau.reshape(2, -1),
-                                    "a_taxon": a.reshape(2, -1, 2)},
-                         coords={"taxon": ["A", "B"]}, dims={"a_taxon": ["taxon"]})
+    idata = az.from_dict(
+        posterior={"mu": mu.reshape(2, -1), "tau_taxon": tau.reshape(2, -1), "a_taxon": a.reshape(2, -1, 2)},
+        coords={"taxon": ["A", "B"]},
+        dims={"a_taxon": ["taxon"]},
+    )
     table, _ = bfm.bayes_factor_table(idata, priors, CLASSIC_LAWS, ["A", "B"], seed=7)
     assert set(table["scope"]) == {"overall", "A", "B"}
     assert (table["bf_method"] == "kde").all()
@@ -201,8 +214,12 @@ def _fake_fits(seed=8, high_k_junction=None):
         ll = rng.normal(-1 + shift, 0.3, size=(2, 400, len(junctions)))
         if high_k_junction is not None and label == "rall":
             ll[..., high_k_junction] = -np.abs(rng.standard_cauchy(size=(2, 400))) * 5
-        fits[label] = az.from_dict(posterior={"mu": rng.normal(size=(2, 400))}, log_likelihood={"loglik": ll},
-                                   dims={"loglik": ["junction"]}, coords={"junction": junctions})
+        fits[label] = az.from_dict(
+            posterior={"mu": rng.normal(size=(2, 400))},
+            log_likelihood={"loglik": ll},
+            dims={"loglik": ["junction"]},
+            coords={"junction": junctions},
+        )
     return fits
 
 
@@ -238,12 +255,32 @@ def test_high_k_warning_names_at_most_ten_junctions():
 # ------------------------------------------------------------------------------------------- verdict
 def _evidence(*laws):
     """A scope's evidence table: the free model plus one row per (label, p_rope, log10 BF triple, diff, dse)."""
-    rows = [{"scope": "S", "law": "free", "p_rope": np.nan, "log10_bf": np.nan, "log10_bf_narrow": np.nan,
-             "log10_bf_wide": np.nan, "elpd_diff": 0.0, "dse": 0.0}]
+    rows = [
+        {
+            "scope": "S",
+            "law": "free",
+            "p_rope": np.nan,
+            "log10_bf": np.nan,
+            "log10_bf_narrow": np.nan,
+            "log10_bf_wide": np.nan,
+            "elpd_diff": 0.0,
+            "dse": 0.0,
+        }
+    ]
     for label, p, bfs, diff, dse in laws:
         b = np.log10(bfs) if np.ndim(bfs) else np.log10([bfs] * 3)
-        rows.append({"scope": "S", "law": label, "p_rope": p, "log10_bf": b[0], "log10_bf_narrow": b[1],
-                     "log10_bf_wide": b[2], "elpd_diff": diff, "dse": dse})
+        rows.append(
+            {
+                "scope": "S",
+                "law": label,
+                "p_rope": p,
+                "log10_bf": b[0],
+                "log10_bf_narrow": b[1],
+                "log10_bf_wide": b[2],
+                "elpd_diff": diff,
+                "dse": dse,
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -258,12 +295,15 @@ def test_verdict_declares_a_law_at_the_boundaries():
     assert _verdict(("murray", 0.95, 20.0, 6.0, 3.0), weak) == "murray"  # loss 6 is not > 2 x 3 SE
 
 
-@pytest.mark.parametrize("law", [
-    ("murray", 0.8999, 20.0, 0.0, 0.0),                # ROPE just short
-    ("murray", 0.95, 2.99, 0.0, 0.0),                  # Bayes factor just short
-    ("murray", 0.95, [20.0, 2.5, 40.0], 0.0, 0.0),     # fails under the narrower prior only
-    ("murray", 0.95, 20.0, 4.1, 2.0),                  # LOO clearly prefers another hypothesis
-])
+@pytest.mark.parametrize(
+    "law",
+    [
+        ("murray", 0.8999, 20.0, 0.0, 0.0),  # ROPE just short
+        ("murray", 0.95, 2.99, 0.0, 0.0),  # Bayes factor just short
+        ("murray", 0.95, [20.0, 2.5, 40.0], 0.0, 0.0),  # fails under the narrower prior only
+        ("murray", 0.95, 20.0, 4.1, 2.0),  # LOO clearly prefers another hypothesis
+    ],
+)
 def test_verdict_undecided_when_one_condition_fails(law):
     assert _verdict(law, ("rall", 0.0, 1e-6, 3.0, 1.0)) == "undecided"
 
@@ -281,12 +321,18 @@ def test_verdict_refuses_two_qualifying_laws_and_empty_scopes():
 
 
 def test_verdict_table_one_row_per_scope_in_order():
-    ev = pd.concat([_evidence(("murray", 0.95, 10.0, 0, 0)).assign(scope="overall"),
-                    _evidence(("murray", 0.0, 1e-4, 9, 1)).assign(scope="T1")])
+    ev = pd.concat(
+        [
+            _evidence(("murray", 0.95, 10.0, 0, 0)).assign(scope="overall"),
+            _evidence(("murray", 0.0, 1e-4, 9, 1)).assign(scope="T1"),
+        ]
+    )
     out = vm.verdict_table(ev)
     assert list(out["scope"]) == ["overall", "T1"] and list(out["verdict"]) == ["murray", "none"]
     # each reason quotes the evidence behind its verdict
-    assert out["reason"].iloc[0] == "murray: P(ROPE) 0.95, BF 10 (lowest over priors), not clearly worse by LOO"
+    assert (
+        out["reason"].iloc[0] == "murray: P(ROPE) 0.95, BF 10 (lowest over priors), not clearly worse by LOO"
+    )
     assert out["reason"].iloc[1] == "every law has P(ROPE) <= 0.05 and BF <= 1/10"
 
 
@@ -294,8 +340,14 @@ def test_verdict_table_one_row_per_scope_in_order():
 @pytest.fixture(scope="module")
 def small_noisy():
     """Twelve junctions with 15 % error (one taxon) compared with short chains."""
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=12, rel_error=0.15,
-                                taxon_exponents={"T1": 3.0}, seed=5)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=1,
+        junctions_per_specimen=12,
+        rel_error=0.15,
+        taxon_exponents={"T1": 3.0},
+        seed=5,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
     return table, ab.compare_laws(table, draws=300, tune=300, chains=2, seed=1)
 
@@ -331,8 +383,17 @@ def test_compare_laws_tables_are_consistent(small_noisy):
     murray = overall[overall["law"] == "murray"].iloc[0]
     assert murray["p_rope"] == pytest.approx(np.mean(np.abs(mu - 3.0) <= 0.25))
     long = result.laws_table()
-    assert list(long.columns) == ["scope", "law", "value", "elpd", "elpd_diff", "dse", "weight", "log10_bf",
-                                  "p_rope"]
+    assert list(long.columns) == [
+        "scope",
+        "law",
+        "value",
+        "elpd",
+        "elpd_diff",
+        "dse",
+        "weight",
+        "log10_bf",
+        "p_rope",
+    ]
     assert set(long["scope"]) == {"overall", "T1"}
     by = result.by_taxon
     assert {"p_rope_murray", "log10_bf_rall", "elpd_diff_da_vinci", "verdict"} <= set(by.columns)
@@ -356,8 +417,10 @@ def test_compare_laws_rejects_bad_requests_before_fitting(small_noisy):
         ab.compare_laws(free, scopes=("species",))
     with pytest.raises(InputError, match="fixed exponent"):
         ab.compare_laws(table, fit=dataclasses.replace(free, spec=free.spec.with_(fixed_exponent=3.0)))
-    other = ab.read_junctions(ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=5,
-                                                    seed=9).frame, table.mapping)
+    other = ab.read_junctions(
+        ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=5, seed=9).frame,
+        table.mapping,
+    )
     with pytest.raises(InputError, match="other data"):
         ab.compare_laws(other, fit=free)
     with pytest.raises(InputError, match="twice"):

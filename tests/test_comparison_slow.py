@@ -31,8 +31,12 @@ def test_three_taxa_get_their_own_laws(validate):
     assert out.passed, out.verdicts
     # spelled out here too (the scenario's own check lives in the benchmark script): each taxon its law;
     # overall, taxa at 3/2, 2 and 3 share no law and the population exponent stays too uncertain to reject one
-    assert out.verdicts == {"overall": "undecided", "T_rall": "rall", "T_da_vinci": "da_vinci",
-                            "T_murray": "murray"}
+    assert out.verdicts == {
+        "overall": "undecided",
+        "T_rall": "rall",
+        "T_da_vinci": "da_vinci",
+        "T_murray": "murray",
+    }
 
 
 @pytest.mark.slow

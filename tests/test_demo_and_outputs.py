@@ -27,8 +27,9 @@ def test_committed_demo_equals_seeded_generator(tmp_path):
 
 
 def test_demo_reads_cleanly_and_matches_truth():
-    table = ab.read_junctions(REPO / "data_demo" / DEMO_FILES["table"],
-                              recipe=REPO / "data_demo" / DEMO_FILES["recipe"])
+    table = ab.read_junctions(
+        REPO / "data_demo" / DEMO_FILES["table"], recipe=REPO / "data_demo" / DEMO_FILES["recipe"]
+    )
     raw = pd.read_csv(REPO / "data_demo" / DEMO_FILES["table"])
     assert set(table.taxa) == set(DEMO_EXPONENTS)
     # every row of the file is a junction (nothing dropped); 25-60 junctions per animal (allobranch/demo.py)
@@ -85,15 +86,27 @@ def test_write_files_is_all_or_nothing(tmp_path):
     assert not (tmp_path / "one.txt").exists()  # nothing half-written is left behind
     assert [p.name for p in tmp_path.iterdir()] == []
     # when every writer succeeds, every file lands with its content and no temporary folder stays
-    written = write_files(tmp_path, {"one.txt": lambda p: p.write_text("1"), "two.txt": lambda p: p.write_text("2")})
+    written = write_files(
+        tmp_path, {"one.txt": lambda p: p.write_text("1"), "two.txt": lambda p: p.write_text("2")}
+    )
     assert written == [tmp_path / "one.txt", tmp_path / "two.txt"]
     assert sorted(p.name for p in tmp_path.iterdir()) == ["one.txt", "two.txt"]
     assert (tmp_path / "two.txt").read_text() == "2"
 
 
 def test_table_exports(tmp_path):
-    df = pd.DataFrame({"level": ["taxon"], "group": ["T1"], "mean": [2.98765], "sd": [0.1], "hdi_low": [2.8],
-                       "hdi_high": [3.1], "r_hat": [1.0012], "ess_bulk": [812.4]})
+    df = pd.DataFrame(
+        {
+            "level": ["taxon"],
+            "group": ["T1"],
+            "mean": [2.98765],
+            "sd": [0.1],
+            "hdi_low": [2.8],
+            "hdi_high": [3.1],
+            "r_hat": [1.0012],
+            "ess_bulk": [812.4],
+        }
+    )
     md = to_markdown(df)
     lines = md.splitlines()
     assert len(lines) == 3  # header, separator, one row

@@ -25,23 +25,41 @@ from allobranch.model.structure import GroupLayout, data_arrays, group_layout
 
 @pytest.fixture(scope="module")
 def data():
-    sim = ab.simulate_junctions(taxa=3, specimens_per_taxon=3, junctions_per_specimen=12, trifurcation_share=0.3,
-                                seed=4)
+    sim = ab.simulate_junctions(
+        taxa=3, specimens_per_taxon=3, junctions_per_specimen=12, trifurcation_share=0.3, seed=4
+    )
     return model_data(ab.read_junctions(sim.frame, sim.mapping))
 
 
 def _pack(data, spec, layout, arrays, whiten=None):
-    return D.pack(arrays, specimen_taxon_idx=data.specimen_taxon_idx, n_taxa=len(data.taxa),
-                  taxon_level=layout.taxon_level, specimen_level=layout.specimen_level,
-                  student=spec.deviation == "student_t", priors=spec.priors, fixed_exponent=spec.fixed_exponent,
-                  fixed_taxa_mask=layout.fixed_taxa, fixed_taxa_values=layout.fixed_values,
-                  w_taxon=layout.w_taxon, w_specimen=layout.w_specimen, whiten=whiten)
+    return D.pack(
+        arrays,
+        specimen_taxon_idx=data.specimen_taxon_idx,
+        n_taxa=len(data.taxa),
+        taxon_level=layout.taxon_level,
+        specimen_level=layout.specimen_level,
+        student=spec.deviation == "student_t",
+        priors=spec.priors,
+        fixed_exponent=spec.fixed_exponent,
+        fixed_taxa_mask=layout.fixed_taxa,
+        fixed_taxa_values=layout.fixed_values,
+        w_taxon=layout.w_taxon,
+        w_specimen=layout.w_specimen,
+        whiten=whiten,
+    )
 
 
-@pytest.mark.parametrize("spec_kwargs", [
-    {}, {"deviation": "student_t"}, {"fixed_taxa": {"T2": 2.0}}, {"fixed_exponent": 3.0},
-    {"specimen_level": False}, {"taxon_level": False},
-])
+@pytest.mark.parametrize(
+    "spec_kwargs",
+    [
+        {},
+        {"deviation": "student_t"},
+        {"fixed_taxa": {"T2": 2.0}},
+        {"fixed_exponent": 3.0},
+        {"specimen_level": False},
+        {"taxon_level": False},
+    ],
+)
 def test_compiled_density_equals_pymc_model(data, spec_kwargs) -> None:
     # Same spec, same partial-centring weights: the compiled density and PyMC's log density (PyTensor) may
     # differ only by a constant, and the gradients must agree.
@@ -49,11 +67,21 @@ def test_compiled_density_equals_pymc_model(data, spec_kwargs) -> None:
     arrays = data_arrays(data, "fast", estimate_sigma_asym(data, data.rel_error))
     base = group_layout(data, spec, arrays)
     rng = np.random.default_rng(0)
-    layout = GroupLayout(base.taxon_level, base.specimen_level, base.fixed_taxa, base.fixed_values, base.pinned,
-                         np.where(base.fixed_taxa, 0.0, rng.uniform(size=base.w_taxon.size)) if base.taxon_level
-                         else base.w_taxon,
-                         np.where(base.pinned, 0.0, rng.uniform(size=base.w_specimen.size)) if base.specimen_level
-                         else base.w_specimen, "auto", base.pilot)
+    layout = GroupLayout(
+        base.taxon_level,
+        base.specimen_level,
+        base.fixed_taxa,
+        base.fixed_values,
+        base.pinned,
+        np.where(base.fixed_taxa, 0.0, rng.uniform(size=base.w_taxon.size))
+        if base.taxon_level
+        else base.w_taxon,
+        np.where(base.pinned, 0.0, rng.uniform(size=base.w_specimen.size))
+        if base.specimen_level
+        else base.w_specimen,
+        "auto",
+        base.pilot,
+    )
     dens = _pack(data, spec, layout, arrays)
     built = build_model(data, spec, layout)
     model = built.model
@@ -75,7 +103,7 @@ def test_compiled_density_equals_pymc_model(data, spec_kwargs) -> None:
         pos = 0
         for name in order:
             size = int(np.prod(np.shape(point[name]))) if np.shape(point[name]) else 1
-            flat[name] = g_pymc[pos:pos + size]
+            flat[name] = g_pymc[pos : pos + size]
             pos += size
         mine = np.concatenate([grad[sl] for sl in dens.layout.slices])
         theirs = np.concatenate([flat[name] for name in dens.layout.names])
@@ -83,8 +111,9 @@ def test_compiled_density_equals_pymc_model(data, spec_kwargs) -> None:
     assert np.ptp(diffs) < 1e-6, diffs
 
 
-@pytest.mark.parametrize("spec_kwargs", [{}, {"deviation": "student_t"}, {"fixed_taxa": {"T1": 3.0}},
-                                         {"taxon_level": False}])
+@pytest.mark.parametrize(
+    "spec_kwargs", [{}, {"deviation": "student_t"}, {"fixed_taxa": {"T1": 3.0}}, {"taxon_level": False}]
+)
 def test_whitened_gradient_matches_finite_differences(data, spec_kwargs) -> None:
     spec = ab.ModelSpec(**spec_kwargs)
     arrays = data_arrays(data, "fast", estimate_sigma_asym(data, data.rel_error))
@@ -101,8 +130,15 @@ def test_whitened_gradient_matches_finite_differences(data, spec_kwargs) -> None
 def test_funnel_prone_design_fits_cleanly_by_default() -> None:
     # Many specimens with nearly equal exponents (spread 0.01, far below what 40 junctions can resolve): the
     # classic funnel. Defaults must end with no divergence and R-hat <= 1.01 (Vehtari et al. 2021).
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=12, junctions_per_specimen=40, tau_specimen=0.01,
-                                mu=2.6, rel_error=0.05, seed=11)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=12,
+        junctions_per_specimen=40,
+        tau_specimen=0.01,
+        mu=2.6,
+        rel_error=0.05,
+        seed=11,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
     res = ab.fit(table, seed=1, draws=500, tune=500, chains=4, progress=False, escalate=False)
     assert res.sampler_checks()["divergences"] == 0
@@ -122,8 +158,10 @@ def test_whitened_and_weighted_forms_agree() -> None:
     plain = ab.fit(table, ab.ModelSpec(parametrization="noncentered"), **kw).exponents().set_index("group")
     for group in ("all", "T1", "T2"):
         diff = abs(white.loc[group, "mean"] - plain.loc[group, "mean"])
-        mcse = np.hypot(white.loc[group, "sd"] / np.sqrt(white.loc[group, "ess_bulk"]),
-                        plain.loc[group, "sd"] / np.sqrt(plain.loc[group, "ess_bulk"]))
+        mcse = np.hypot(
+            white.loc[group, "sd"] / np.sqrt(white.loc[group, "ess_bulk"]),
+            plain.loc[group, "sd"] / np.sqrt(plain.loc[group, "ess_bulk"]),
+        )
         assert diff < 4 * mcse + 0.01, (group, diff, mcse)
 
 
@@ -133,8 +171,14 @@ def test_every_advised_option_exists() -> None:
     base = ["fit", "t.csv", "--parent", "p", "--daughters", "a,b", "--out", "o"]
     flags = sorted({m for text in ADVICE.values() for m in re.findall(r"--[a-z][a-z-]+", text)})
     assert {"--draws", "--target-accept", "--parametrization", "--no-specimen-level"} <= set(flags)
-    values = {"--draws": "2000", "--tune": "2000", "--chains": "6", "--target-accept": "0.99",
-              "--parametrization": "noncentered", "--deviation": "student_t"}
+    values = {
+        "--draws": "2000",
+        "--tune": "2000",
+        "--chains": "6",
+        "--target-accept": "0.99",
+        "--parametrization": "noncentered",
+        "--deviation": "student_t",
+    }
     for flag in flags:
         args = base + [flag] + ([values[flag]] if flag in values else [])
         parser.parse_args(args)
@@ -145,8 +189,9 @@ def test_every_advised_option_exists() -> None:
 
 def test_comparison_does_not_depend_on_workers() -> None:
     # Every fit's seed comes from its key, so 1 or 2 worker processes give identical evidence tables.
-    sim = ab.simulate_junctions(taxa=["A"], specimens_per_taxon=2, junctions_per_specimen=20,
-                                taxon_exponents={"A": 2.0}, seed=5)
+    sim = ab.simulate_junctions(
+        taxa=["A"], specimens_per_taxon=2, junctions_per_specimen=20, taxon_exponents={"A": 2.0}, seed=5
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
     kw = dict(laws=["da_vinci", "murray"], seed=7, draws=200, tune=200, chains=2, escalate=False)
     one = ab.compare_laws(table, workers=1, **kw)

@@ -19,7 +19,6 @@ from scipy.stats import halfnorm
 
 import allobranch as ab
 from allobranch.cli import main
-from allobranch.inference import fit as fit_module
 from allobranch.model.simulate import SimulatedData
 from allobranch.reporting.fit_outputs import FIT_FILES
 
@@ -48,8 +47,9 @@ def test_same_seed_gives_identical_tables(table, result) -> None:
     again = ab.fit(table, seed=11, **SHORT)
     pd.testing.assert_frame_equal(result.exponents(), again.exponents())
     pd.testing.assert_frame_equal(result.variance_components(), again.variance_components())
-    np.testing.assert_array_equal(result.idata.log_likelihood["loglik"].values,
-                                  again.idata.log_likelihood["loglik"].values)
+    np.testing.assert_array_equal(
+        result.idata.log_likelihood["loglik"].values, again.idata.log_likelihood["loglik"].values
+    )
 
 
 def test_different_seed_gives_different_draws(table, result) -> None:
@@ -100,11 +100,20 @@ def test_too_short_a_fit_is_flagged(table) -> None:
 def test_fixed_exponent_recovers_the_deviation_scale() -> None:
     # Truth: every specimen follows a = 2.5 exactly, junctions deviate by sigma_dev = 0.08 on the log
     # scale, readings carry a known 5 % error. The 90 % HDI (ArviZ) of sigma_dev must cover 0.08.
-    sim = ab.simulate_junctions(taxa=["A", "B"], specimens_per_taxon=2, junctions_per_specimen=30,
-                                taxon_exponents={"A": 2.5, "B": 2.5}, tau_specimen=0.0, sigma_dev=0.08,
-                                rel_error=0.05, seed=21)
+    sim = ab.simulate_junctions(
+        taxa=["A", "B"],
+        specimens_per_taxon=2,
+        junctions_per_specimen=30,
+        taxon_exponents={"A": 2.5, "B": 2.5},
+        tau_specimen=0.0,
+        sigma_dev=0.08,
+        rel_error=0.05,
+        seed=21,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
-    res = ab.fit(table, ab.ModelSpec(fixed_exponent=2.5), seed=2, draws=300, tune=300, chains=2, progress=False)
+    res = ab.fit(
+        table, ab.ModelSpec(fixed_exponent=2.5), seed=2, draws=300, tune=300, chains=2, progress=False
+    )
     var = res.variance_components().set_index("component")
     row = var.loc["sigma_dev"]
     assert abs(row["mean"] - 0.08) < 3 * row["sd"], row
@@ -160,9 +169,34 @@ def test_cli_fit_end_to_end(tmp_path: Path, capsys) -> None:
     csv = tmp_path / "junctions.csv"
     sim.frame.to_csv(csv, index=False)
     out = tmp_path / "results"
-    args = [str(csv), "--parent", "parent", "--daughters", "d1,d2", "--taxon", "taxon", "--specimen", "specimen",
-            "--junction", "junction", "--unit", "mm", "--rel-error", "0.05", "--out", str(out),
-            "--draws", "200", "--tune", "200", "--chains", "2", "--seed", "3", "--quiet"]
+    args = [
+        str(csv),
+        "--parent",
+        "parent",
+        "--daughters",
+        "d1,d2",
+        "--taxon",
+        "taxon",
+        "--specimen",
+        "specimen",
+        "--junction",
+        "junction",
+        "--unit",
+        "mm",
+        "--rel-error",
+        "0.05",
+        "--out",
+        str(out),
+        "--draws",
+        "200",
+        "--tune",
+        "200",
+        "--chains",
+        "2",
+        "--seed",
+        "3",
+        "--quiet",
+    ]
     first = _cli("fit", *args)
     assert first.returncode == 0, first.stderr
     for name in FIT_FILES:
@@ -171,8 +205,10 @@ def test_cli_fit_end_to_end(tmp_path: Path, capsys) -> None:
     for column in ("level", "group", "mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk"):
         assert column in exps.columns
     assert set(exps["level"]) == {"population", "taxon", "specimen"}
-    assert ab.FitResult.load(out / "fit.nc").exponents()["mean"].round(10).tolist() == \
-        exps["mean"].round(10).tolist()
+    assert (
+        ab.FitResult.load(out / "fit.nc").exponents()["mean"].round(10).tolist()
+        == exps["mean"].round(10).tolist()
+    )
 
     before = {name: ((out / name).read_bytes(), (out / name).stat().st_mtime_ns) for name in FIT_FILES}
     # The second run goes through the same entry point in-process (it stops before sampling).
@@ -183,8 +219,19 @@ def test_cli_fit_end_to_end(tmp_path: Path, capsys) -> None:
 
 
 def test_cli_fit_bad_input_exits_2(tmp_path: Path, capsys) -> None:
-    code = main(["fit", str(tmp_path / "missing.csv"), "--parent", "p", "--daughters", "a,b",
-                 "--out", str(tmp_path / "o"), "--quiet"])
+    code = main(
+        [
+            "fit",
+            str(tmp_path / "missing.csv"),
+            "--parent",
+            "p",
+            "--daughters",
+            "a,b",
+            "--out",
+            str(tmp_path / "o"),
+            "--quiet",
+        ]
+    )
     assert code == 2
     err = capsys.readouterr().err
     assert "missing.csv" in err and "Traceback" not in err

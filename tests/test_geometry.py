@@ -90,13 +90,15 @@ def test_no_root_reasons():
     # exact algebra: a daughter >= parent leaves sum (r_i/r0)^a > 1 for every a > 0; two daughters of ratio
     # 0.995 need a > 100 (2 * 0.995^100 = 1.21 > 1); a lone daughter cannot define a junction.
     parent = np.array([1.0, 1.0, 1.0, 1.0, -1.0])
-    daughters = np.array(
-        [[1.0, 0.5], [1.2, 0.5], [0.995, 0.995], [0.5, np.nan], [0.5, 0.5]]
-    )
+    daughters = np.array([[1.0, 0.5], [1.2, 0.5], [0.995, 0.995], [0.5, np.nan], [0.5, 0.5]])
     exponent, reason = solve_exponent(parent, daughters)
     assert np.isnan(exponent).all()
     assert list(reason) == [
-        "daughter_ge_parent", "daughter_ge_parent", "exponent_above_100", "fewer_than_two_daughters", "invalid_sizes",
+        "daughter_ge_parent",
+        "daughter_ge_parent",
+        "exponent_above_100",
+        "fewer_than_two_daughters",
+        "invalid_sizes",
     ]
 
 

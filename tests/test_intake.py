@@ -18,19 +18,28 @@ from allobranch.intake.units import ALLOWED_UNITS, canonical_unit, to_internal_r
 from allobranch.intake.validate import parse_numbers
 
 DATA = Path(__file__).parent / "data"
-BASIC = dict(taxon="species", specimen="animal", junction="node", parent="r_parent",
-             daughters=["r_d1", "r_d2", "r_d3"], unit="um", rel_error=0.05)
+BASIC = dict(
+    taxon="species",
+    specimen="animal",
+    junction="node",
+    parent="r_parent",
+    daughters=["r_d1", "r_d2", "r_d3"],
+    unit="um",
+    rel_error=0.05,
+)
 
 
 def _frame() -> pd.DataFrame:
-    return pd.DataFrame({
-        "taxon": ["A", "A", "B"],
-        "spec": ["s1", "s1", "s2"],
-        "p": [10.0, 12.0, 20.0],
-        "d1": [8.0, 9.5, 16.0],
-        "d2": [7.0, 9.0, 15.0],
-        "d3": [np.nan, np.nan, 5.0],
-    })
+    return pd.DataFrame(
+        {
+            "taxon": ["A", "A", "B"],
+            "spec": ["s1", "s1", "s2"],
+            "p": [10.0, 12.0, 20.0],
+            "d1": [8.0, 9.5, 16.0],
+            "d2": [7.0, 9.0, 15.0],
+            "d3": [np.nan, np.nan, 5.0],
+        }
+    )
 
 
 MAP = dict(taxon="taxon", specimen="spec", parent="p", daughters=["d1", "d2", "d3"], unit="mm")
@@ -54,13 +63,21 @@ def _write(tmp_path: Path, text: str, name: str = "t.csv") -> Path:
 @pytest.mark.parametrize(
     "unit, factor",
     [
-        ("nm", 1e-6), ("um", 1e-3), ("µm", 1e-3), ("micron", 1e-3), ("mm", 1.0),  # exact algebra: SI prefixes
-        ("cm", 10.0), ("m", 1000.0), ("in", 25.4),  # exact algebra: 1 in = 25.4 mm by definition
+        ("nm", 1e-6),
+        ("um", 1e-3),
+        ("µm", 1e-3),
+        ("micron", 1e-3),
+        ("mm", 1.0),  # exact algebra: SI prefixes
+        ("cm", 10.0),
+        ("m", 1000.0),
+        ("in", 25.4),  # exact algebra: 1 in = 25.4 mm by definition
         ("px", 1.0),  # pixels are not converted
     ],
 )
 def test_unit_conversion_to_mm(unit, factor):
-    np.testing.assert_allclose(to_internal_radius(np.array([2.0]), unit, "radius"), [2.0 * factor], rtol=1e-15)
+    np.testing.assert_allclose(
+        to_internal_radius(np.array([2.0]), unit, "radius"), [2.0 * factor], rtol=1e-15
+    )
     # exact algebra: a radius is half the diameter
     np.testing.assert_allclose(to_internal_radius(np.array([2.0]), unit, "diameter"), [factor], rtol=1e-15)
 
@@ -83,7 +100,9 @@ def test_diameter_um_read_as_radius_mm():
 
 
 def test_pixels_stay_pixels():
-    table = read_junctions(pd.DataFrame({"p": [8.0], "a": [6.0], "b": [5.0]}), parent="p", daughters="a,b", unit="PX")
+    table = read_junctions(
+        pd.DataFrame({"p": [8.0], "a": [6.0], "b": [5.0]}), parent="p", daughters="a,b", unit="PX"
+    )
     assert table.internal_unit == "px" and table.mapping.unit == "px"
     np.testing.assert_allclose(table.parent, [8.0])
 
@@ -232,11 +251,22 @@ def test_bad_size_cell_names_row_column(tmp_path, cell, column, code):
 def test_all_fatal_problems_collected(tmp_path):
     text = "taxon,spec,j,p,d1,d2\nA,s1,1,1,x,0.5\nA,s1,1,-1,0.5,0.5\nB,s1,2,1,0.5,\n"
     with pytest.raises(InputError) as exc:
-        read_junctions(_write(tmp_path, text), taxon="taxon", specimen="spec", junction="j", parent="p",
-                       daughters="d1,d2")
+        read_junctions(
+            _write(tmp_path, text),
+            taxon="taxon",
+            specimen="spec",
+            junction="j",
+            parent="p",
+            daughters="d1,d2",
+        )
     codes = {(p.row, p.code) for p in exc.value.problems}
-    assert codes == {(2, "not_numeric"), (3, "nonpositive_size"), (3, "duplicate_junction"),
-                     (4, "missing_size"), (4, "specimen_in_two_taxa")}
+    assert codes == {
+        (2, "not_numeric"),
+        (3, "nonpositive_size"),
+        (3, "duplicate_junction"),
+        (4, "missing_size"),
+        (4, "specimen_in_two_taxa"),
+    }
 
 
 def test_se_problems(tmp_path):
@@ -244,7 +274,11 @@ def test_se_problems(tmp_path):
     with pytest.raises(InputError) as exc:
         read_junctions(_write(tmp_path, text), parent="p", daughters="d1,d2", se="se")
     assert {(p.row, p.column, p.code) for p in exc.value.problems} == {
-        (2, "se", "bad_se"), (3, "se", "not_numeric"), (4, "se", "missing_word"), (5, "se", "nonfinite_se")}
+        (2, "se", "bad_se"),
+        (3, "se", "not_numeric"),
+        (4, "se", "missing_word"),
+        (5, "se", "nonfinite_se"),
+    }
 
 
 def test_duplicate_junction_in_specimen(tmp_path):
@@ -260,13 +294,19 @@ def test_specimen_under_two_taxa(tmp_path):
     with pytest.raises(InputError) as exc:
         read_junctions(_write(tmp_path, text), taxon="t", specimen="spec", parent="p", daughters="d1,d2")
     (problem,) = exc.value.problems
-    assert problem.row == 3 and problem.column == "spec" and "'A'" in problem.message and "'B'" in problem.message
+    assert (
+        problem.row == 3
+        and problem.column == "spec"
+        and "'A'" in problem.message
+        and "'B'" in problem.message
+    )
 
 
 def test_missing_label_is_fatal(tmp_path):
     with pytest.raises(InputError) as exc:
-        read_junctions(_write(tmp_path, "t,p,d1,d2\nA,1,0.6,0.5\n,1,0.6,0.5\n"), taxon="t", parent="p",
-                       daughters="d1,d2")
+        read_junctions(
+            _write(tmp_path, "t,p,d1,d2\nA,1,0.6,0.5\n,1,0.6,0.5\n"), taxon="t", parent="p", daughters="d1,d2"
+        )
     assert [(p.row, p.column, p.code) for p in exc.value.problems] == [(3, "t", "missing_label")]
 
 
@@ -328,8 +368,15 @@ def test_extreme_ratios_flagged_but_kept():
 
 
 def test_fewer_daughters_and_compaction():
-    df = pd.DataFrame({"p": [1.0, 1.0, 1.0], "a": [0.6, 0.6, 0.6], "b": [0.5, 0.5, 0.5],
-                       "c": [np.nan, np.nan, 0.3], "d": [np.nan, 0.4, 0.2]})
+    df = pd.DataFrame(
+        {
+            "p": [1.0, 1.0, 1.0],
+            "a": [0.6, 0.6, 0.6],
+            "b": [0.5, 0.5, 0.5],
+            "c": [np.nan, np.nan, 0.3],
+            "d": [np.nan, 0.4, 0.2],
+        }
+    )
     table = read_junctions(df, parent="p", daughters=["a", "b", "c", "d"])
     assert list(table.data["n_daughters"]) == [2, 3, 4]
     np.testing.assert_array_equal(table.daughters[1], [0.6, 0.5, 0.4, np.nan])
@@ -380,7 +427,9 @@ def test_recipe_equals_flags():
 
 def test_recipe_round_trip(tmp_path):
     mapping = load_recipe(DATA / "recipe_basic.toml")
-    assert mapping.unit == "um" and mapping.rel_error == 0.05 and mapping.daughters == ("r_d1", "r_d2", "r_d3")
+    assert (
+        mapping.unit == "um" and mapping.rel_error == 0.05 and mapping.daughters == ("r_d1", "r_d2", "r_d3")
+    )
     assert Path(mapping.repeats).is_absolute()
     out = write_recipe(mapping, tmp_path / "copy.toml")
     assert load_recipe(out) == mapping
@@ -389,8 +438,12 @@ def test_recipe_round_trip(tmp_path):
 
 
 def test_recipe_se_list_and_sheet(tmp_path):
-    path = _write(tmp_path, '[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nse = ["s0", "s1", "s2"]\n'
-                  'unit = "µm"\n[input]\nsheet = "data"\n', "r.toml")
+    path = _write(
+        tmp_path,
+        '[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nse = ["s0", "s1", "s2"]\n'
+        'unit = "µm"\n[input]\nsheet = "data"\n',
+        "r.toml",
+    )
     mapping = load_recipe(path)
     assert mapping.se == ("s0", "s1", "s2") and mapping.unit == "um" and mapping.sheet == "data"
     assert load_recipe(write_recipe(mapping, tmp_path / "again.toml")) == mapping
@@ -403,10 +456,18 @@ def test_recipe_se_list_and_sheet(tmp_path):
         ('[columns]\nparent = "p"\ndaughters = "a"\n', "[columns] daughters"),
         ('[columns]\nparent = 3\ndaughters = ["a", "b"]\n', "[columns] parent"),
         ('[columns]\ndaughters = ["a", "b"]\n', "[columns] parent"),
-        ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = "5%"\n',
-         "[measurement] rel_error"),
-        ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = 5\n', "[measurement] rel_error"),
-        ('[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nunit = "furlong"\n', "[measurement] unit"),
+        (
+            '[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = "5%"\n',
+            "[measurement] rel_error",
+        ),
+        (
+            '[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nrel_error = 5\n',
+            "[measurement] rel_error",
+        ),
+        (
+            '[columns]\nparent = "p"\ndaughters = ["a", "b"]\n[measurement]\nunit = "furlong"\n',
+            "[measurement] unit",
+        ),
         ('[colums]\nparent = "p"\n', "[colums]"),
         ('[columns]\nparent = "p"\ndaughters = ["a", "b"\n', "not a valid TOML"),
     ],
@@ -443,18 +504,26 @@ def test_repeats_converted_and_mapped():
 def test_repeats_segment_follows_compaction(tmp_path):
     main = _write(tmp_path, "s,j,p,a,b,c,d\nx,1,1,0.6,0.5,,0.2\n")
     _write(tmp_path, "specimen,junction,segment,value\nx,1,d,0.21\n", "rep.csv")
-    table = read_junctions(main, specimen="s", junction="j", parent="p", daughters="a,b,c,d", repeats="rep.csv")
+    table = read_junctions(
+        main, specimen="s", junction="j", parent="p", daughters="a,b,c,d", repeats="rep.csv"
+    )
     assert list(table.repeats["segment"]) == ["d3"]
 
 
 def test_repeats_problems(tmp_path):
     main = _write(tmp_path, "s,j,p,a,b,c\nx,1,1,0.6,0.5,\n")
-    _write(tmp_path, "specimen,junction,segment,value\nx,2,a,0.6\nx,1,zz,0.6\nx,1,a,-1\nx,1,c,0.3\n", "rep.csv")
+    _write(
+        tmp_path, "specimen,junction,segment,value\nx,2,a,0.6\nx,1,zz,0.6\nx,1,a,-1\nx,1,c,0.3\n", "rep.csv"
+    )
     with pytest.raises(InputError) as exc:
         read_junctions(main, specimen="s", junction="j", parent="p", daughters="a,b,c", repeats="rep.csv")
     got = {(p.file.endswith("rep.csv"), p.row, p.column, p.code) for p in exc.value.problems}
-    assert got == {(True, 2, "junction", "unknown_junction"), (True, 3, "segment", "unknown_segment"),
-                   (True, 4, "value", "bad_repeat"), (True, 5, "segment", "unknown_segment")}
+    assert got == {
+        (True, 2, "junction", "unknown_junction"),
+        (True, 3, "segment", "unknown_segment"),
+        (True, 4, "value", "bad_repeat"),
+        (True, 5, "segment", "unknown_segment"),
+    }
 
 
 def test_repeats_missing_file_and_columns(tmp_path):
@@ -471,7 +540,8 @@ def test_repeats_from_excel_sheet(tmp_path):
     with pd.ExcelWriter(path) as writer:
         _frame().to_excel(writer, sheet_name="junctions", index=False)
         pd.DataFrame({"specimen": ["s2"], "junction": [4], "segment": ["d3"], "value": [5.1]}).to_excel(
-            writer, sheet_name="repeats", index=False)
+            writer, sheet_name="repeats", index=False
+        )
     table = read_junctions(path, sheet="junctions", repeats="repeats", **MAP)
     assert list(table.repeats["junction"]) == ["4"] and list(table.repeats["segment"]) == ["d3"]
     np.testing.assert_allclose(table.repeats["value"], [5.1])

@@ -48,15 +48,26 @@ def test_missing_word_in_size_column_refused(tmp_path, word, column):
         read_junctions(path, **SIZES)
     assert _problems(exc) == [(3, column, "missing_word")]
     (problem,) = exc.value.problems
-    assert problem.file == str(path) and repr(word) in problem.message and "missing-value word" in problem.message
+    assert (
+        problem.file == str(path)
+        and repr(word) in problem.message
+        and "missing-value word" in problem.message
+    )
     assert "empty" in problem.hint  # says what to do: a number, or an empty cell where a daughter is absent
     assert f"t.csv, row 3, column '{column}'" in str(exc.value)
 
 
 @pytest.mark.parametrize(
     "cell, kind",
-    [("inf", "nonfinite"), ("-inf", "nonfinite"), ("Infinity", "nonfinite"), ("+nan", "nonfinite"),
-     ("1e400", "overflow"), ("-1e400", "overflow"), ("1E+999", "overflow")],
+    [
+        ("inf", "nonfinite"),
+        ("-inf", "nonfinite"),
+        ("Infinity", "nonfinite"),
+        ("+nan", "nonfinite"),
+        ("1e400", "overflow"),
+        ("-1e400", "overflow"),
+        ("1E+999", "overflow"),
+    ],
 )
 @pytest.mark.parametrize("column", ["p", "d3"])
 def test_nonfinite_size_refused(tmp_path, cell, kind, column):
@@ -72,9 +83,18 @@ def test_nonfinite_size_refused(tmp_path, cell, kind, column):
     assert ("too large" in problem.message) == (kind == "overflow")
 
 
-@pytest.mark.parametrize("cell, code", [("NA", "missing_word"), (" n/a ", "missing_word"), ("#N/A", "missing_word"),
-                                        ("null", "missing_word"), ("inf", "nonfinite_se"), ("-inf", "nonfinite_se"),
-                                        ("1e400", "nonfinite_se")])
+@pytest.mark.parametrize(
+    "cell, code",
+    [
+        ("NA", "missing_word"),
+        (" n/a ", "missing_word"),
+        ("#N/A", "missing_word"),
+        ("null", "missing_word"),
+        ("inf", "nonfinite_se"),
+        ("-inf", "nonfinite_se"),
+        ("1e400", "nonfinite_se"),
+    ],
+)
 @pytest.mark.parametrize("per_reading", [False, True])
 def test_missing_word_or_nonfinite_se_refused(tmp_path, cell, code, per_reading):
     se_cols = ["sp", "s1", "s2"] if per_reading else ["se"]
@@ -106,8 +126,12 @@ def test_every_refused_cell_listed_with_file_rows(tmp_path):
     text = '\np,d1,d2,d3,note\n1,0.6,0.5,,"two\nlines"\nNA,0.6,0.5,inf,x\n1,#N/A,0.5,1e400,y\n'
     with pytest.raises(InputError) as exc:
         read_junctions(_write(tmp_path, text), **SIZES)
-    assert sorted(_problems(exc)) == [(5, "d3", "nonfinite_size"), (5, "p", "missing_word"),
-                                      (6, "d1", "missing_word"), (6, "d3", "nonfinite_size")]
+    assert sorted(_problems(exc)) == [
+        (5, "d3", "nonfinite_size"),
+        (5, "p", "missing_word"),
+        (6, "d1", "missing_word"),
+        (6, "d3", "nonfinite_size"),
+    ]
 
 
 def test_missing_words_refused_in_dataframe_and_excel(tmp_path):
@@ -148,8 +172,15 @@ def test_parse_numbers_refuses_words_and_nonfinite():
     np.testing.assert_array_equal(bad, [False] * 5 + [True] * 7)
     assert values[0] == 1.5 and np.isnan(values[1:]).all()
     kinds = [describe_unusable(c)[1] for c in cells[bad]]
-    assert kinds == ["missing_word", "missing_word", "nonfinite", "overflow", "not_numeric", "overflow",
-                     "not_numeric"]
+    assert kinds == [
+        "missing_word",
+        "missing_word",
+        "nonfinite",
+        "overflow",
+        "not_numeric",
+        "overflow",
+        "not_numeric",
+    ]
     assert {"na", "n/a", "nan", "#n/a", "null"} <= MISSING_WORDS
 
 
@@ -174,45 +205,66 @@ def test_line_ends(tmp_path, newline):
     path = tmp_path / "t.csv"
     path.write_bytes(text.encode())
     table = read_junctions(path, taxon="t", parent="p", daughters="d1,d2")
-    assert _basic(table) == {"taxon": ["A", "B"], "source_row": [2, 4], "parent": [1.0, 2.0], "d1": [0.6, 1.2],
-                             "d2": [0.5, 1.0]}
+    assert _basic(table) == {
+        "taxon": ["A", "B"],
+        "source_row": [2, 4],
+        "parent": [1.0, 2.0],
+        "d1": [0.6, 1.2],
+        "d2": [0.5, 1.0],
+    }
     assert [(p.row, p.code) for p in table.report.excluded] == [(3, "blank_row")]
 
 
 def test_quoted_fields(tmp_path):
     # RFC 4180 section 2 rules 5-7: quoted fields may hold the delimiter, line breaks and doubled quotes
-    text = ('"t","p",d1,"d2"\r\n'
-            '"Mus musculus, lab strain",1,"0.6",0.5\r\n'
-            '"the ""wild"" type",1,0.7,"0.5"\r\n'
-            '"a note\r\nover two lines",2,1.2,1.0\r\n'
-            'C,1,0.6,0.5\r\n')
+    text = (
+        '"t","p",d1,"d2"\r\n'
+        '"Mus musculus, lab strain",1,"0.6",0.5\r\n'
+        '"the ""wild"" type",1,0.7,"0.5"\r\n'
+        '"a note\r\nover two lines",2,1.2,1.0\r\n'
+        "C,1,0.6,0.5\r\n"
+    )
     table = read_junctions(_write(tmp_path, text), taxon="t", parent="p", daughters="d1,d2")
-    assert list(table.data["taxon"]) == ["Mus musculus, lab strain", 'the "wild" type', "a note\r\nover two lines",
-                                         "C"]
+    assert list(table.data["taxon"]) == [
+        "Mus musculus, lab strain",
+        'the "wild" type',
+        "a note\r\nover two lines",
+        "C",
+    ]
     assert list(table.data["source_row"]) == [2, 3, 4, 6]  # the two-line record starts on line 4
     np.testing.assert_array_equal(table.parent, [1.0, 1.0, 2.0, 1.0])
 
 
 def test_quoted_semicolon_and_tab_fields(tmp_path):
-    semi = read_junctions(_write(tmp_path, 't;p;d1;d2\n"A; B";1;0,6;"0,5"\n'), taxon="t", parent="p",
-                          daughters="d1,d2")
-    tab = read_junctions(_write(tmp_path, 't\tp\td1\td2\n"A\tB"\t1\t0.6\t0.5\n', "t.tsv"), taxon="t", parent="p",
-                         daughters="d1,d2")
+    semi = read_junctions(
+        _write(tmp_path, 't;p;d1;d2\n"A; B";1;0,6;"0,5"\n'), taxon="t", parent="p", daughters="d1,d2"
+    )
+    tab = read_junctions(
+        _write(tmp_path, 't\tp\td1\td2\n"A\tB"\t1\t0.6\t0.5\n', "t.tsv"),
+        taxon="t",
+        parent="p",
+        daughters="d1,d2",
+    )
     assert list(semi.data["taxon"]) == ["A; B"] and list(tab.data["taxon"]) == ["A\tB"]
     np.testing.assert_array_equal(semi.daughters, [[0.6, 0.5]])
 
 
 def test_unclosed_quote_names_row(tmp_path):
     with pytest.raises(InputError) as exc:
-        read_junctions(_write(tmp_path, 'p,d1,d2\n1,0.6,0.5\n1,"0.6,0.5\n1,0.6,0.5\n'), parent="p",
-                       daughters="d1,d2")
+        read_junctions(
+            _write(tmp_path, 'p,d1,d2\n1,0.6,0.5\n1,"0.6,0.5\n1,0.6,0.5\n'), parent="p", daughters="d1,d2"
+        )
     (problem,) = exc.value.problems
-    assert problem.code == "parse_error" and "quotes" in problem.hint and problem.row == 3  # where the quote opens
+    assert (
+        problem.code == "parse_error" and "quotes" in problem.hint and problem.row == 3
+    )  # where the quote opens
 
 
 def test_trailing_separator_does_not_shift_columns(tmp_path):
     # an empty field after the last column holds no data; values stay under their own column names
-    table = read_junctions(_write(tmp_path, "p,d1,d2\n3,0.6,0.5,\n2,0.7,0.6,\n"), parent="p", daughters="d1,d2")
+    table = read_junctions(
+        _write(tmp_path, "p,d1,d2\n3,0.6,0.5,\n2,0.7,0.6,\n"), parent="p", daughters="d1,d2"
+    )
     np.testing.assert_array_equal(table.parent, [3.0, 2.0])
     np.testing.assert_array_equal(table.daughters, [[0.6, 0.5], [0.7, 0.6]])
     with pytest.raises(InputError) as exc:
@@ -222,7 +274,9 @@ def test_trailing_separator_does_not_shift_columns(tmp_path):
 
 def test_space_padded_headers_match_recipe(tmp_path):
     path = _write(tmp_path, " taxon ,  parent ,d1 ,\td2\n A ,1,0.6,0.5\nA,1,0.7,0.6\n")
-    recipe = _write(tmp_path, '[columns]\ntaxon = "taxon"\nparent = "parent"\ndaughters = ["d1", "d2"]\n', "r.toml")
+    recipe = _write(
+        tmp_path, '[columns]\ntaxon = "taxon"\nparent = "parent"\ndaughters = ["d1", "d2"]\n', "r.toml"
+    )
     table = read_junctions(path, recipe=recipe)
     assert table.n_junctions == 2 and table.taxa == ["A"]  # label spaces are ignored too
     with pytest.raises(InputError) as exc:
@@ -268,8 +322,12 @@ def test_encoding_keyword(tmp_path, encoding):
 def test_encoding_in_recipe_applies_to_repeats(tmp_path):
     path = _write(tmp_path, "s,j,p,a,b\nMüller,1,1,0.6,0.5\n", encoding="latin-1")
     _write(tmp_path, "specimen,junction,segment,value\nMüller,1,a,0.61\n", "rep.csv", encoding="latin-1")
-    recipe = _write(tmp_path, '[columns]\nspecimen = "s"\njunction = "j"\nparent = "p"\ndaughters = ["a", "b"]\n'
-                    '[measurement]\nrepeats = "rep.csv"\n[input]\nencoding = "latin-1"\n', "r.toml")
+    recipe = _write(
+        tmp_path,
+        '[columns]\nspecimen = "s"\njunction = "j"\nparent = "p"\ndaughters = ["a", "b"]\n'
+        '[measurement]\nrepeats = "rep.csv"\n[input]\nencoding = "latin-1"\n',
+        "r.toml",
+    )
     table = read_junctions(path, recipe=recipe)
     assert list(table.data["specimen"]) == ["Müller"] and list(table.repeats["specimen"]) == ["Müller"]
     mapping = load_recipe(recipe)
@@ -284,8 +342,11 @@ def test_unknown_encoding_names_key(tmp_path):
         read_junctions(path, parent="p", daughters="d1,d2", encoding="latin-99")
     with pytest.raises(RecipeError, match="not a text encoding"):  # a bytes-to-bytes codec
         read_junctions(path, parent="p", daughters="d1,d2", encoding="base64")
-    recipe = _write(tmp_path, '[columns]\nparent = "p"\ndaughters = ["d1", "d2"]\n[input]\nencoding = "klingon"\n',
-                    "bad.toml")
+    recipe = _write(
+        tmp_path,
+        '[columns]\nparent = "p"\ndaughters = ["d1", "d2"]\n[input]\nencoding = "klingon"\n',
+        "bad.toml",
+    )
     with pytest.raises(RecipeError) as exc:
         load_recipe(recipe)
     assert "bad.toml" in str(exc.value) and "[input] encoding" in str(exc.value)
@@ -329,7 +390,9 @@ def test_load_netcdf_without_provenance(tmp_path):
     import xarray as xr
 
     path = tmp_path / "other.nc"
-    xr.Dataset({"x": ("i", np.arange(5.0))}, attrs={"title": "some other data"}).to_netcdf(path, engine="h5netcdf")
+    xr.Dataset({"x": ("i", np.arange(5.0))}, attrs={"title": "some other data"}).to_netcdf(
+        path, engine="h5netcdf"
+    )
     _assert_not_a_fit(path)
     truncated = tmp_path / "truncated.nc"
     truncated.write_bytes(path.read_bytes()[:400])

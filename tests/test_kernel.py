@@ -42,13 +42,34 @@ def _junctions(n: int = 12, seed: int = 0) -> dict[str, np.ndarray]:
     return {"y0": y0, "Y": Y, "M": M, "V0": V0, "V": V, "spec_idx": np.arange(n), "a_spec": a_spec}
 
 
-def _full(d: dict, a_spec=None, sdev=POINT["sigma_dev"], srel=POINT["sigma_rel"], sasym=POINT["sigma_asym"],
-          nu=POINT["nu"], student=False, skip=None):
+def _full(
+    d: dict,
+    a_spec=None,
+    sdev=POINT["sigma_dev"],
+    srel=POINT["sigma_rel"],
+    sasym=POINT["sigma_asym"],
+    nu=POINT["nu"],
+    student=False,
+    skip=None,
+):
     """``kernel.junction_terms`` on the test data."""
     skip = np.zeros(5, dtype=bool) if skip is None else skip
     a_spec = d["a_spec"] if a_spec is None else np.asarray(a_spec, dtype=float)
-    return kernel.junction_terms(d["y0"], d["Y"], d["M"], d["V0"], d["V"], d["spec_idx"], a_spec,
-                                 float(sdev), float(srel), float(sasym), float(nu), student, skip)
+    return kernel.junction_terms(
+        d["y0"],
+        d["Y"],
+        d["M"],
+        d["V0"],
+        d["V"],
+        d["spec_idx"],
+        a_spec,
+        float(sdev),
+        float(srel),
+        float(sasym),
+        float(nu),
+        student,
+        skip,
+    )
 
 
 def _pre(d: dict, srel=POINT["sigma_rel"], sasym=POINT["sigma_asym"]):
@@ -63,8 +84,9 @@ def _fast(d: dict, a_spec=None, sdev=POINT["sigma_dev"], nu=POINT["nu"], student
     """``kernel.fast_terms`` on the test data."""
     mu, g, c, ybar, lld, s0sq = _pre(d) if pre is None else pre
     a_spec = d["a_spec"] if a_spec is None else np.asarray(a_spec, dtype=float)
-    return kernel.fast_terms(d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, d["spec_idx"], a_spec,
-                             float(sdev), float(nu), student)
+    return kernel.fast_terms(
+        d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, d["spec_idx"], a_spec, float(sdev), float(nu), student
+    )
 
 
 def _assert_close_derivative(analytic: np.ndarray, numeric: np.ndarray) -> None:
@@ -86,6 +108,7 @@ def test_junction_terms_derivatives_match_finite_differences(direction: str, stu
         np.testing.assert_allclose(jac - np.diag(np.diag(jac)), 0.0, atol=1e-12)
         numeric = np.diag(jac)
     else:
+
         def ll_of(x: np.ndarray) -> np.ndarray:
             return _full(d, student=student, **{_kw(direction): x[0]})[0]
 
@@ -129,8 +152,9 @@ def test_fast_terms_derivatives_match_finite_differences(direction: str, student
         )[:, 0]
     _assert_close_derivative(dll[:, col], numeric)
     # Fixed quantities have no derivative column.
-    np.testing.assert_array_equal(dll[:, [kernel.DIRECTIONS.index("sigma_rel"),
-                                          kernel.DIRECTIONS.index("sigma_asym")]], 0.0)
+    np.testing.assert_array_equal(
+        dll[:, [kernel.DIRECTIONS.index("sigma_rel"), kernel.DIRECTIONS.index("sigma_asym")]], 0.0
+    )
 
 
 def test_aggregate_gradient_sums_by_specimen() -> None:
@@ -263,8 +287,10 @@ def test_without_measurement_error_the_predicted_parent_is_the_law(a: float) -> 
     zero = {**d, "V": np.zeros_like(d["V"]), "V0": np.zeros_like(d["V0"])}
     a_spec = np.full(d["y0"].shape[0], a)
     sdev = 0.07
-    for _, _, mean, var in (_full(zero, a_spec=a_spec, sdev=sdev, srel=0.0),
-                            _fast(zero, a_spec=a_spec, sdev=sdev, pre=_pre(zero, srel=0.0))):
+    for _, _, mean, var in (
+        _full(zero, a_spec=a_spec, sdev=sdev, srel=0.0),
+        _fast(zero, a_spec=a_spec, sdev=sdev, pre=_pre(zero, srel=0.0)),
+    ):
         law = np.array([logsumexp(a * zero["Y"][j, zero["M"][j]]) / a for j in range(len(a_spec))])
         # The floor (a 0.01 % error) moves the mean by O(1e-8 * a) only.
         np.testing.assert_allclose(mean, law, rtol=0, atol=1e-6)
@@ -279,8 +305,19 @@ def test_symmetric_bifurcation_law_checks() -> None:
     Y = np.log(np.array([[r0 * 2 ** (-1 / a), r0 * 2 ** (-1 / a)]]))
     M = np.ones_like(Y, dtype=bool)
     ll, _, mean, var = kernel.junction_terms(
-        np.array([np.log(r0)]), Y, M, np.zeros(1), np.zeros_like(Y), np.zeros(1, dtype=np.int64),
-        np.array([a]), 0.05, 0.0, 0.3, 30.0, False, np.ones(5, dtype=bool),
+        np.array([np.log(r0)]),
+        Y,
+        M,
+        np.zeros(1),
+        np.zeros_like(Y),
+        np.zeros(1, dtype=np.int64),
+        np.array([a]),
+        0.05,
+        0.0,
+        0.3,
+        30.0,
+        False,
+        np.ones(5, dtype=bool),
     )
     np.testing.assert_allclose(mean[0], np.log(r0), atol=1e-7)
     parent_peak = norm.logpdf(0.0, scale=np.sqrt(var[0]))
@@ -302,8 +339,19 @@ def test_second_order_delta_method_matches_monte_carlo() -> None:
     m = logsumexp(a * u, axis=1) / a
     M = np.ones((1, 3), dtype=bool)
     _, _, mean, var = kernel.junction_terms(
-        np.array([0.0]), y[None, :], M, np.zeros(1), np.zeros((1, 3)), np.zeros(1, dtype=np.int64),
-        np.array([a]), 1e-6, srel, sasym, 30.0, False, np.ones(5, dtype=bool),
+        np.array([0.0]),
+        y[None, :],
+        M,
+        np.zeros(1),
+        np.zeros((1, 3)),
+        np.zeros(1, dtype=np.int64),
+        np.array([a]),
+        1e-6,
+        srel,
+        sasym,
+        30.0,
+        False,
+        np.ones(5, dtype=bool),
     )
     mc_se = m.std() / np.sqrt(m.size)
     first_order = logsumexp(a * mean_u) / a

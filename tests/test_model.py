@@ -42,7 +42,9 @@ def data():
 
 def _repeat_table(tmp_path: Path, seed: int = 2) -> ab.JunctionTable:
     """A table without a stated error but with three repeat readings of some parents and daughters."""
-    sim = ab.simulate_junctions(taxa=2, specimens_per_taxon=2, junctions_per_specimen=8, rel_error=0.05, seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=2, specimens_per_taxon=2, junctions_per_specimen=8, rel_error=0.05, seed=seed
+    )
     main = tmp_path / "junctions.csv"
     sim.frame.to_csv(main, index=False)
     rng = np.random.default_rng(seed)
@@ -51,11 +53,21 @@ def _repeat_table(tmp_path: Path, seed: int = 2) -> ab.JunctionTable:
         for segment in ("parent", "d1", "d2"):
             for _ in range(3):
                 value = getattr(rec, segment) * np.exp(0.05 * rng.standard_normal())
-                rows.append({"specimen": rec.specimen, "junction": rec.junction, "segment": segment, "value": value})
+                rows.append(
+                    {"specimen": rec.specimen, "junction": rec.junction, "segment": segment, "value": value}
+                )
     pd.DataFrame(rows).to_csv(tmp_path / "rep.csv", index=False)
     m = sim.mapping
-    return ab.read_junctions(main, parent=m.parent, daughters=list(m.daughters), taxon="taxon", specimen="specimen",
-                             junction="junction", unit="mm", repeats="rep.csv")
+    return ab.read_junctions(
+        main,
+        parent=m.parent,
+        daughters=list(m.daughters),
+        taxon="taxon",
+        specimen="specimen",
+        junction="junction",
+        unit="mm",
+        repeats="rep.csv",
+    )
 
 
 def _names(built) -> dict[str, set[str]]:
@@ -185,8 +197,14 @@ def test_repeat_readings_estimate_the_measurement_error(tmp_path: Path) -> None:
 
 
 def test_absolute_error_only_uses_the_fast_form() -> None:
-    table = _table(taxa=2, specimens_per_taxon=2, junctions_per_specimen=10, rel_error=0.0, abs_error=0.01,
-                   parent_range=(0.5, 2.0))
+    table = _table(
+        taxa=2,
+        specimens_per_taxon=2,
+        junctions_per_specimen=10,
+        rel_error=0.0,
+        abs_error=0.01,
+        parent_range=(0.5, 2.0),
+    )
     d = model_data(table)
     assert d.error_mode == "absolute_only" and d.rel_error == 0.0
     # (se / y)^2 is the log-scale variance of each reading (delta method).
@@ -241,9 +259,15 @@ def _value_point(model, natural: dict[str, np.ndarray]) -> dict[str, np.ndarray]
 
 def _hierarchy_point(data, rng: np.random.Generator) -> dict[str, np.ndarray]:
     return {
-        "mu": 2.6, "tau_taxon": 0.3, "r_taxon": rng.standard_normal(len(data.taxa)),
-        "tau_specimen": 0.12, "r_specimen": rng.standard_normal(len(data.specimens)), "sigma_dev": 0.05,
-        "sigma_asym": 0.22, "nu": 7.0, "sigma_meas": 0.06,
+        "mu": 2.6,
+        "tau_taxon": 0.3,
+        "r_taxon": rng.standard_normal(len(data.taxa)),
+        "tau_specimen": 0.12,
+        "r_specimen": rng.standard_normal(len(data.specimens)),
+        "sigma_dev": 0.05,
+        "sigma_asym": 0.22,
+        "nu": 7.0,
+        "sigma_meas": 0.06,
     }
 
 
@@ -314,8 +338,9 @@ def test_repeat_readings_term_is_the_chi_square_density(tmp_path: Path) -> None:
     logp_fn = built.model.compile_logp(jacobian=False)
 
     def reference(p: dict) -> float:
-        ll, _, _ = built.pointwise(_specimen_exponents(d, p), p["sigma_dev"], sigma_rel=p["sigma_meas"],
-                                   sigma_asym=p["sigma_asym"])
+        ll, _, _ = built.pointwise(
+            _specimen_exponents(d, p), p["sigma_dev"], sigma_rel=p["sigma_meas"], sigma_asym=p["sigma_asym"]
+        )
         s = p["sigma_meas"]
         chi2 = stats.chi2.logpdf(ss / s**2, df) - np.log(s**2)
         return ll.sum() + chi2 + _prior_logp(p, built.spec.priors, ("sigma_asym", "sigma_meas"))
@@ -380,7 +405,7 @@ def _flat_functions(model):
     def unflatten(x: np.ndarray) -> dict:
         out, start = {}, 0
         for n, shape, size in zip(names, shapes, sizes):
-            out[n] = x[start:start + size].reshape(shape)
+            out[n] = x[start : start + size].reshape(shape)
             start += size
         return out
 
@@ -390,8 +415,13 @@ def _flat_functions(model):
 
 @pytest.mark.parametrize(
     "spec_kwargs",
-    [{}, {"deviation": "student_t"}, {"asymmetry": "sampled"}, {"asymmetry": "sampled", "deviation": "student_t"},
-     {"fixed_taxa": {"T1": 2.2}}],
+    [
+        {},
+        {"deviation": "student_t"},
+        {"asymmetry": "sampled"},
+        {"asymmetry": "sampled", "deviation": "student_t"},
+        {"fixed_taxa": {"T1": 2.2}},
+    ],
     ids=["fast", "fast-student_t", "full", "full-student_t", "fast-fixed_taxa"],
 )
 def test_model_gradient_matches_finite_differences(data, spec_kwargs: dict) -> None:
@@ -416,8 +446,12 @@ def test_repeats_model_gradient_matches_finite_differences(tmp_path: Path) -> No
 # -- specification checks ---------------------------------------------------------------------------------------
 @pytest.mark.parametrize(
     ("field", "allowed"),
-    [("deviation", DEVIATIONS), ("likelihood", LIKELIHOODS), ("parametrization", PARAMETRIZATIONS),
-     ("asymmetry", ASYMMETRY)],
+    [
+        ("deviation", DEVIATIONS),
+        ("likelihood", LIKELIHOODS),
+        ("parametrization", PARAMETRIZATIONS),
+        ("asymmetry", ASYMMETRY),
+    ],
 )
 def test_spec_rejects_unknown_options(field: str, allowed: tuple[str, ...]) -> None:
     with pytest.raises(ValueError, match=field) as info:

@@ -69,8 +69,12 @@ def _cost(r: float, q: float) -> float:
 
 def _optimal_radius(q: float) -> float:
     """The radius minimising :func:`_cost` for flow ``q``, found numerically (scipy.optimize)."""
-    res = optimize.minimize_scalar(lambda x: _cost(math.exp(x), q), bounds=(math.log(1e-7), math.log(1.0)),
-                                   method="bounded", options={"xatol": 1e-12})
+    res = optimize.minimize_scalar(
+        lambda x: _cost(math.exp(x), q),
+        bounds=(math.log(1e-7), math.log(1.0)),
+        method="bounded",
+        options={"xatol": 1e-12},
+    )
     assert res.success
     return math.exp(res.x)
 
@@ -89,9 +93,13 @@ def test_optimal_radii_at_a_junction_give_exponent_three(share):
     # Flow is conserved at a junction (Q0 = Q1 + Q2); with each segment at its own optimal radius,
     # Q ~ r^3 makes r0^3 = r1^3 + r2^3 (Murray 1926), for symmetric (share 0.5) and asymmetric splits.
     q0 = np.array([1e-10, 1e-8, 1e-6])
-    frame = pd.DataFrame({"p": [_optimal_radius(q) for q in q0],
-                          "d1": [_optimal_radius(q * share) for q in q0],
-                          "d2": [_optimal_radius(q * (1 - share)) for q in q0]})
+    frame = pd.DataFrame(
+        {
+            "p": [_optimal_radius(q) for q in q0],
+            "d1": [_optimal_radius(q * share) for q in q0],
+            "d2": [_optimal_radius(q * (1 - share)) for q in q0],
+        }
+    )
     table = ab.read_junctions(frame, parent="p", daughters=["d1", "d2"], unit="m")
     np.testing.assert_allclose(ab.junction_geometry(table)["exponent"], 3.0, rtol=1e-6)
 
@@ -131,7 +139,9 @@ def test_bayes_factor_thresholds_follow_the_published_scales():
     # and the rule reads these constants at their boundaries (exact: B = 3 qualifies, just below does not)
     assert vm.law_failures(_law_row(bf=3.0)) == []
     assert vm.law_failures(_law_row(bf=2.99)) != []
-    assert vm.law_rejected(_law_row(p_rope=0.0, bf=0.1)) and not vm.law_rejected(_law_row(p_rope=0.0, bf=0.11))
+    assert vm.law_rejected(_law_row(p_rope=0.0, bf=0.1)) and not vm.law_rejected(
+        _law_row(p_rope=0.0, bf=0.11)
+    )
 
 
 def test_loo_rule_is_the_common_practice():
@@ -146,8 +156,17 @@ def test_loo_rule_is_the_common_practice():
 def _law_row(p_rope: float = 0.95, bf: float = 10.0, elpd_diff: float = 0.0, dse: float = 0.0) -> pd.Series:
     """One law's evidence with the same Bayes factor under every prior."""
     log10_bf = math.log10(bf)
-    return pd.Series({"law": "murray", "p_rope": p_rope, "log10_bf": log10_bf, "log10_bf_narrow": log10_bf,
-                      "log10_bf_wide": log10_bf, "elpd_diff": elpd_diff, "dse": dse})
+    return pd.Series(
+        {
+            "law": "murray",
+            "p_rope": p_rope,
+            "log10_bf": log10_bf,
+            "log10_bf_narrow": log10_bf,
+            "log10_bf_wide": log10_bf,
+            "elpd_diff": elpd_diff,
+            "dse": dse,
+        }
+    )
 
 
 # ------------------------------------------------- the sampler's posterior against an independent one
@@ -186,8 +205,7 @@ def _grid_log_posterior(a, sdev, y0, y, s2, tau):
     mean, var_m = _junction_moments(a, y, s2, tau)
     scale = np.sqrt(sdev[None, None, :] ** 2 + s2 + var_m[:, :, None])
     loglik = stats.norm.logpdf(y0[None, :, None], mean[:, :, None], scale).sum(axis=1)
-    return (loglik + stats.norm.logpdf(a, 2.5, 1.0)[:, None]
-            + stats.halfnorm.logpdf(sdev, scale=0.1)[None, :])
+    return loglik + stats.norm.logpdf(a, 2.5, 1.0)[:, None] + stats.halfnorm.logpdf(sdev, scale=0.1)[None, :]
 
 
 def _grid_moments(a, sdev, logpost):
@@ -201,9 +219,15 @@ def _grid_moments(a, sdev, logpost):
 
 @pytest.mark.parametrize("seed", [1, 3])
 def test_sampled_posterior_equals_grid_integration(seed):
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=GRID_JUNCTIONS,
-                                rel_error=GRID_ERROR, taxon_exponents={"T1": GRID_TRUTH}, tau_specimen=0.0,
-                                seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=1,
+        junctions_per_specimen=GRID_JUNCTIONS,
+        rel_error=GRID_ERROR,
+        taxon_exponents={"T1": GRID_TRUTH},
+        tau_specimen=0.0,
+        seed=seed,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
     result = ab.fit(table, draws=1000, tune=1000, chains=4, seed=seed, progress=False)
     tau = result.settings["sigma_asym_empirical"]["T1"] ** 2  # the fitted (fixed) asymmetry scale, squared
@@ -230,7 +254,6 @@ def test_sampled_posterior_equals_grid_integration(seed):
     assert grid_sd < 0.35 and mcse_mean < 0.02
 
 
-
 @pytest.mark.parametrize("n_draws", [400, 2500])
 def test_pareto_k_threshold_is_the_published_one(n_draws):
     # Pareto-smoothed importance sampling is reliable for Pareto k below min(1 - 1/log10(S), 0.7) with S
@@ -239,8 +262,12 @@ def test_pareto_k_threshold_is_the_published_one(n_draws):
     from allobranch.comparison import loo as loom
 
     rng = np.random.default_rng(0)
-    fits = {label: az.from_dict(posterior={"mu": rng.normal(size=(2, n_draws))},
-                                log_likelihood={"loglik": rng.normal(-1 + shift, 0.3, size=(2, n_draws, 6))})
-            for label, shift in (("free", 0.0), ("murray", -0.2))}
+    fits = {
+        label: az.from_dict(
+            posterior={"mu": rng.normal(size=(2, n_draws))},
+            log_likelihood={"loglik": rng.normal(-1 + shift, 0.3, size=(2, n_draws, 6))},
+        )
+        for label, shift in (("free", 0.0), ("murray", -0.2))
+    }
     got = loom.compare_loo(fits)
     assert got.k_threshold == pytest.approx(min(1 - 1 / math.log10(2 * n_draws), 0.7), abs=1e-12)

@@ -22,12 +22,24 @@ from allobranch.model.data import model_data
 from allobranch.model.spec import ModelSpec
 from allobranch.reporting.checks import CHECK_COLUMNS, PPP_TAIL, ppc_checks, ppc_pvalues, ppc_warnings
 from allobranch.reporting.plots import (
-    plot_diagnostics, plot_exponents, plot_law_comparison, plot_naive_vs_model, plot_ppc_check,
+    plot_diagnostics,
+    plot_exponents,
+    plot_law_comparison,
+    plot_naive_vs_model,
+    plot_ppc_check,
     plot_ratio_plane,
 )
 from allobranch.reporting.plots.laws import ELPD_DIFF_MAX, LOG10_BF_LIMITS
 from allobranch.reporting.style import (
-    CLASSIC_LAW_STYLES, HOUSE_RC, MM_PER_INCH, SMALL_PT, TEXT_PT, WIDTHS_MM, figure, house_style, law_styles,
+    CLASSIC_LAW_STYLES,
+    HOUSE_RC,
+    MM_PER_INCH,
+    SMALL_PT,
+    TEXT_PT,
+    WIDTHS_MM,
+    figure,
+    house_style,
+    law_styles,
     save_figure,
 )
 
@@ -64,22 +76,24 @@ def fake_geometry(seed: int = 0, n: int = 60, a: float = 2.6, noise: float = 0.0
     x_obs = x * np.exp(rng.normal(0, noise, n))
     y_obs = asym * x * np.exp(rng.normal(0, noise, n))
     large, small = np.maximum(x_obs, y_obs), np.minimum(x_obs, y_obs)
-    return pd.DataFrame({
-        "taxon": rng.choice(["Rattus", "Sus", "Quercus"], n),
-        "specimen": [f"s{k % 7}" for k in range(n)],
-        "junction": [f"j{k}" for k in range(n)],
-        "n_daughters": np.where(np.arange(n) % 15 == 14, 3, 2),
-        "exponent": np.where(large < 1, a, np.nan),
-        "ratio_large": large,
-        "ratio_small": small,
-        "flagged": np.arange(n) % 10 == 3,
-    })
+    return pd.DataFrame(
+        {
+            "taxon": rng.choice(["Rattus", "Sus", "Quercus"], n),
+            "specimen": [f"s{k % 7}" for k in range(n)],
+            "junction": [f"j{k}" for k in range(n)],
+            "n_daughters": np.where(np.arange(n) % 15 == 14, 3, 2),
+            "exponent": np.where(large < 1, a, np.nan),
+            "ratio_large": large,
+            "ratio_small": small,
+            "flagged": np.arange(n) % 10 == 3,
+        }
+    )
 
 
 def fake_laws() -> pd.DataFrame:
     """Laws table for an overall scope and one taxon scope."""
     rows = []
-    for scope, best in (("overall", "free"), ("Rattus", "Murray (a=3)")):
+    for scope in ("overall", "Rattus"):
         for law, value in [("free", np.nan), *LAWS.items()]:
             rows.append({"scope": scope, "law": law, "value": value})
     df = pd.DataFrame(rows)
@@ -101,29 +115,65 @@ def fake_checks(seed: int = 0, n_draws: int = 30) -> pd.DataFrame:
         junction = [f"{taxon}/j{k}" for k in range(n)]
         base = rng.normal(0, 0.06, n)
         split = rng.uniform(0.4, 1.0, n)
-        parts.append(pd.DataFrame({"check": "split", "taxon": taxon, "junction": junction, "source": "observed",
-                                   "draw": -1, "value": split}))
+        parts.append(
+            pd.DataFrame(
+                {
+                    "check": "split",
+                    "taxon": taxon,
+                    "junction": junction,
+                    "source": "observed",
+                    "draw": -1,
+                    "value": split,
+                }
+            )
+        )
         for d in range(n_draws):
             parts += [
-                pd.DataFrame({"check": "law_residual", "taxon": taxon, "junction": junction, "source": "observed",
-                              "draw": d, "value": base + rng.normal(0, 0.005)}),
-                pd.DataFrame({"check": "law_residual", "taxon": taxon, "junction": junction,
-                              "source": "replicated", "draw": d, "value": rng.normal(0, 0.06, n)}),
-                pd.DataFrame({"check": "split", "taxon": taxon, "junction": junction, "source": "replicated",
-                              "draw": d, "value": rng.uniform(0.4, 1.0, n)}),
+                pd.DataFrame(
+                    {
+                        "check": "law_residual",
+                        "taxon": taxon,
+                        "junction": junction,
+                        "source": "observed",
+                        "draw": d,
+                        "value": base + rng.normal(0, 0.005),
+                    }
+                ),
+                pd.DataFrame(
+                    {
+                        "check": "law_residual",
+                        "taxon": taxon,
+                        "junction": junction,
+                        "source": "replicated",
+                        "draw": d,
+                        "value": rng.normal(0, 0.06, n),
+                    }
+                ),
+                pd.DataFrame(
+                    {
+                        "check": "split",
+                        "taxon": taxon,
+                        "junction": junction,
+                        "source": "replicated",
+                        "draw": d,
+                        "value": rng.uniform(0.4, 1.0, n),
+                    }
+                ),
             ]
     return pd.concat(parts, ignore_index=True)
 
 
-def fake_fit(seed: int = 0, exponent: float | None = None, asymmetry_factor: float = 1.0,
-             settings: dict | None = None) -> FitResult:
+def fake_fit(
+    seed: int = 0, exponent: float | None = None, asymmetry_factor: float = 1.0, settings: dict | None = None
+) -> FitResult:
     """A FitResult without sampling: simulated junctions and posterior draws scattered about the truth.
 
     ``exponent`` puts every specimen's exponent at that value instead (a wrong posterior);
     ``asymmetry_factor`` scales the asymmetry scale the fit records.
     """
-    sim = ab.simulate_junctions(taxa=2, specimens_per_taxon=2, junctions_per_specimen=15, rel_error=0.05,
-                                seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=2, specimens_per_taxon=2, junctions_per_specimen=15, rel_error=0.05, seed=seed
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
     data = model_data(table)
     rng = np.random.default_rng(seed)
@@ -131,12 +181,19 @@ def fake_fit(seed: int = 0, exponent: float | None = None, asymmetry_factor: flo
     shape = (chains, draws)
     truth = np.array([sim.truth["a_specimen"][s] for s in data.specimens])
     a_spec = (np.full(truth.shape, float(exponent)) if exponent is not None else truth) + rng.normal(
-        0, 0.03, (*shape, len(truth)))
-    a_taxon = np.stack([a_spec[..., data.specimen_taxon_idx == t].mean(-1) for t in range(len(data.taxa))], -1)
-    posterior = {"mu": a_taxon.mean(-1) + rng.normal(0, 0.02, shape), "a_taxon": a_taxon, "a_specimen": a_spec,
-                 "tau_taxon": np.abs(rng.normal(0.2, 0.05, shape)),
-                 "tau_specimen": np.abs(rng.normal(0.1, 0.03, shape)),
-                 "sigma_dev": np.abs(rng.normal(sim.truth["sigma_dev"], 0.003, shape))}
+        0, 0.03, (*shape, len(truth))
+    )
+    a_taxon = np.stack(
+        [a_spec[..., data.specimen_taxon_idx == t].mean(-1) for t in range(len(data.taxa))], -1
+    )
+    posterior = {
+        "mu": a_taxon.mean(-1) + rng.normal(0, 0.02, shape),
+        "a_taxon": a_taxon,
+        "a_specimen": a_spec,
+        "tau_taxon": np.abs(rng.normal(0.2, 0.05, shape)),
+        "tau_specimen": np.abs(rng.normal(0.1, 0.03, shape)),
+        "sigma_dev": np.abs(rng.normal(sim.truth["sigma_dev"], 0.003, shape)),
+    }
     idata = az.from_dict(
         posterior=posterior,
         sample_stats={"diverging": np.zeros(shape, bool), "energy": rng.normal(0, 1, shape)},
@@ -145,13 +202,27 @@ def fake_fit(seed: int = 0, exponent: float | None = None, asymmetry_factor: flo
         dims={"a_taxon": ["taxon"], "a_specimen": ["specimen"], "log_parent": ["junction"]},
     )
     asym = estimate_sigma_asym(data, 0.05) * asymmetry_factor
-    base = {"draws": draws, "tune": draws, "chains": chains, "seed": seed, "sampler": "nutpie",
-            "target_accept": 0.9, "seconds": 1.0, "form": "fast", "error_mode": "known",
-            "sigma_asym_empirical": dict(zip(data.taxa, map(float, asym)))}
+    base = {
+        "draws": draws,
+        "tune": draws,
+        "chains": chains,
+        "seed": seed,
+        "sampler": "nutpie",
+        "target_accept": 0.9,
+        "seconds": 1.0,
+        "form": "fast",
+        "error_mode": "known",
+        "sigma_asym_empirical": dict(zip(data.taxa, map(float, asym))),
+    }
     settings = {**base, **(settings or {})}
-    idata.attrs["allobranch_provenance"] = json.dumps({
-        "input_sha256": table.digest(), "source": table.source, "settings": settings,
-        "versions": {"allobranch": ab.__version__}})
+    idata.attrs["allobranch_provenance"] = json.dumps(
+        {
+            "input_sha256": table.digest(),
+            "source": table.source,
+            "settings": settings,
+            "versions": {"allobranch": ab.__version__},
+        }
+    )
     return FitResult(idata=idata, table=table, spec=ModelSpec(), settings=settings)
 
 
@@ -171,11 +242,18 @@ def fake_naive(seed: int = 0) -> pd.DataFrame:
 def fake_idata(seed: int = 0, energy: bool = True) -> az.InferenceData:
     """InferenceData from random arrays: 4 chains x 100 draws, a scalar and a 3-vector."""
     rng = np.random.default_rng(seed)
-    posterior = {"mu": rng.normal(2.5, 0.1, (4, 100)), "tau_taxon": rng.gamma(2, 0.1, (4, 100)),
-                 "a_taxon": rng.normal(2.5, 0.2, (4, 100, 3))}
+    posterior = {
+        "mu": rng.normal(2.5, 0.1, (4, 100)),
+        "tau_taxon": rng.gamma(2, 0.1, (4, 100)),
+        "a_taxon": rng.normal(2.5, 0.2, (4, 100, 3)),
+    }
     stats = {"energy": rng.normal(0, 1, (4, 100)), "diverging": np.zeros((4, 100), bool)} if energy else None
-    return az.from_dict(posterior=posterior, sample_stats=stats, dims={"a_taxon": ["taxon"]},
-                        coords={"taxon": ["Rattus", "Sus", "Quercus"]})
+    return az.from_dict(
+        posterior=posterior,
+        sample_stats=stats,
+        dims={"a_taxon": ["taxon"]},
+        coords={"taxon": ["Rattus", "Sus", "Quercus"]},
+    )
 
 
 def _rc_snapshot() -> dict:
@@ -189,8 +267,9 @@ def _legend_texts(ax) -> list[str]:
 
 
 def _law_line_values(ax, prefix: str) -> list[float]:
-    return sorted(float(a.get_gid().split(":")[1]) for a in ax.get_children()
-                  if (a.get_gid() or "").startswith(prefix))
+    return sorted(
+        float(a.get_gid().split(":")[1]) for a in ax.get_children() if (a.get_gid() or "").startswith(prefix)
+    )
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -268,8 +347,16 @@ def test_house_style_font_sizes_follow_journal_guidance():
     # ordinary text at 7 pt: the top of Nature's 5-7 pt range and Elsevier's 7 pt; fonts embedded (Nature guide)
     assert TEXT_PT == ELSEVIER_TEXT_PT and NATURE_TEXT_PT[0] <= TEXT_PT <= NATURE_TEXT_PT[1]
     assert max(NATURE_TEXT_PT[0], ELSEVIER_MIN_PT) <= SMALL_PT <= TEXT_PT
-    for key in ("font.size", "axes.titlesize", "axes.labelsize", "xtick.labelsize", "ytick.labelsize",
-                "legend.fontsize", "legend.title_fontsize", "figure.titlesize"):
+    for key in (
+        "font.size",
+        "axes.titlesize",
+        "axes.labelsize",
+        "xtick.labelsize",
+        "ytick.labelsize",
+        "legend.fontsize",
+        "legend.title_fontsize",
+        "figure.titlesize",
+    ):
         assert HOUSE_RC[key] == TEXT_PT, key
     assert HOUSE_RC["pdf.fonttype"] == 42
 
@@ -477,7 +564,9 @@ def test_law_comparison_two_panels_rows_and_scopes():
     assert len(elpd_bars) == len(laws)
     bf_points = [ln for ln in ax_bf.lines if (ln.get_gid() or "").startswith("bf:")]
     assert len(bf_points) == laws["log10_bf"].notna().sum()
-    np.testing.assert_allclose(sorted(ln.get_xdata()[0] for ln in bf_points), sorted(laws["log10_bf"].dropna()))
+    np.testing.assert_allclose(
+        sorted(ln.get_xdata()[0] for ln in bf_points), sorted(laws["log10_bf"].dropna())
+    )
     headings = [t.get_text() for t in ax_elpd.texts if (t.get_gid() or "").startswith("scope:")]
     assert headings == ["overall", "Rattus"]
     assert sum(t.get_text() == "reference" for t in ax_bf.texts) == 2
@@ -519,13 +608,18 @@ def test_law_comparison_clips_far_points_at_stated_limits():
     assert points["bf:overall:Rall (a=1.5)"].get_markerfacecolor() == "white"
     assert points["bf:overall:Murray (a=3)"].get_xdata()[0] == pytest.approx(0.4)
     notes = {t.get_gid(): t.get_text() for t in ax_bf.texts if (t.get_gid() or "").startswith("bf-clipped:")}
-    assert notes == {"bf-clipped:overall:Rall (a=1.5)": "\u2190 -87", "bf-clipped:Rattus:Murray (a=3)": "6.2 \u2192"}
+    assert notes == {
+        "bf-clipped:overall:Rall (a=1.5)": "\u2190 -87",
+        "bf-clipped:Rattus:Murray (a=3)": "6.2 \u2192",
+    }
     # the axis keeps the region around 0 readable: it ends just beyond the limits, not at -87
     x0, x1 = ax_bf.get_xlim()
     assert lo - 1.5 < x0 < lo and hi < x1 < hi + 1.5
     elpd = next(c for c in ax_elpd.containers if c.lines[0].get_gid() == "elpd:Rattus:Rall (a=1.5)")
     assert elpd.lines[0].get_xdata()[0] == ELPD_DIFF_MAX
-    assert any(t.get_gid() == "elpd-clipped:Rattus:Rall (a=1.5)" and "43" in t.get_text() for t in ax_elpd.texts)
+    assert any(
+        t.get_gid() == "elpd-clipped:Rattus:Rall (a=1.5)" and "43" in t.get_text() for t in ax_elpd.texts
+    )
     assert ax_elpd.get_xlim()[1] < ELPD_DIFF_MAX * 1.2
     # the limits are stated on the axes
     assert f"clipped at {ELPD_DIFF_MAX:g}" in ax_elpd.get_xlabel()
@@ -545,8 +639,10 @@ def test_ppc_panels_per_taxon_and_legend():
         observed = [ln for ln in ax.lines if (ln.get_gid() or "").startswith("observed:")]
         assert len(replicated) == 20 and len(observed) == 20  # the observed residual depends on the draw
     (legend,) = axes[0].figure.legends
-    assert [t.get_text() for t in legend.get_texts()] == ["replicated (20 draws)",
-                                                          "observed, at each\ndraw's exponent (20)"]
+    assert [t.get_text() for t in legend.get_texts()] == [
+        "replicated (20 draws)",
+        "observed, at each\ndraw's exponent (20)",
+    ]
     assert "Law residual" in axes[0].figure.get_supxlabel()
     assert len(axes[0].figure.axes) == 3  # the fourth grid cell is removed
 
@@ -557,8 +653,12 @@ def test_ppc_split_observed_once_and_pvalues_printed():
     axes = plot_ppc_check(checks, "split", pvalues=pvalues)
     observed = [ln for ln in axes[0].lines if (ln.get_gid() or "").startswith("observed:")]
     assert len(observed) == 1
-    obs = np.sort(checks.loc[(checks["check"] == "split") & (checks["source"] == "observed")
-                             & (checks["taxon"] == "Rattus"), "value"])
+    obs = np.sort(
+        checks.loc[
+            (checks["check"] == "split") & (checks["source"] == "observed") & (checks["taxon"] == "Rattus"),
+            "value",
+        ]
+    )
     x, y = observed[0].get_data()
     # reference definition: the empirical CDF reaches k/n at the k-th smallest value
     assert set(np.round(y, 12)) >= set(np.round(np.arange(1, obs.size + 1) / obs.size, 12))
@@ -624,7 +724,9 @@ def test_checks_pass_at_the_truth_and_fail_at_a_wrong_exponent():
     assert set(failing.loc[failing["statistic"] == "mean", "check"]) == {"law_residual"}
     assert set(failing["taxon"]) == set(fake_fit().table.taxa)
     message = ppc_warnings(bad)
-    assert len(message) == 2 and all(m.startswith("posterior predictive check of the law residual") for m in message)
+    assert len(message) == 2 and all(
+        m.startswith("posterior predictive check of the law residual") for m in message
+    )
 
 
 def test_split_check_fails_when_the_asymmetry_is_wrong():

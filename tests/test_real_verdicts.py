@@ -28,8 +28,15 @@ SHORT = {"draws": 300, "tune": 300, "chains": 2}
 
 def _one_taxon(truth: float, junctions: int, rel_error: float, seed: int) -> ab.JunctionTable:
     """One taxon, one specimen (its exponent is the taxon's: tau_specimen = 0)."""
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=junctions,
-                                rel_error=rel_error, taxon_exponents={"T1": truth}, tau_specimen=0.0, seed=seed)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=1,
+        junctions_per_specimen=junctions,
+        rel_error=rel_error,
+        taxon_exponents={"T1": truth},
+        tau_specimen=0.0,
+        seed=seed,
+    )
     return ab.read_junctions(sim.frame, sim.mapping)
 
 
@@ -39,7 +46,10 @@ def test_a_classic_law_that_holds_is_declared(truth, expected):
     # law's region holds essentially all the posterior mass and its Bayes factor is about 10 (checked at
     # seed 1: estimates 3.02 +/- 0.08 and 2.01 +/- 0.03).
     result = ab.compare_laws(_one_taxon(truth, 200, 0.05, seed=1), seed=1, **SHORT)
-    assert dict(zip(result.verdicts["scope"], result.verdicts["verdict"])) == {"overall": expected, "T1": expected}
+    assert dict(zip(result.verdicts["scope"], result.verdicts["verdict"])) == {
+        "overall": expected,
+        "T1": expected,
+    }
     overall = result.overall.set_index("law")
     assert overall.loc[expected, "p_rope"] >= vm.P_ROPE_DECLARE
     others = [law for law in ("rall", "da_vinci", "murray") if law != expected]
@@ -55,8 +65,15 @@ def test_two_taxa_each_get_their_own_law():
     # 3.04 +/- 0.07 and 2.01 +/- 0.04. The population exponent lies between them, with a between-taxon SD
     # estimated from two taxa only: no verdict on the overall scope.
     truth = {"cube": 3.0, "square": 2.0}
-    sim = ab.simulate_junctions(taxa=list(truth), specimens_per_taxon=1, junctions_per_specimen=[200, 120],
-                                rel_error=0.05, taxon_exponents=truth, tau_specimen=0.0, seed=2)
+    sim = ab.simulate_junctions(
+        taxa=list(truth),
+        specimens_per_taxon=1,
+        junctions_per_specimen=[200, 120],
+        rel_error=0.05,
+        taxon_exponents=truth,
+        tau_specimen=0.0,
+        seed=2,
+    )
     result = ab.compare_laws(ab.read_junctions(sim.frame, sim.mapping), seed=2, **SHORT)
     verdicts = dict(zip(result.verdicts["scope"], result.verdicts["verdict"]))
     assert verdicts == {"overall": "undecided", "cube": "murray", "square": "da_vinci"}
@@ -91,7 +108,9 @@ def test_a_dozen_noisy_junctions_decide_nothing():
 # ------------------------------------------------------------------------------- the demo's known truth
 @pytest.fixture(scope="module")
 def demo_fit() -> tuple[ab.FitResult, dict]:
-    table = ab.read_junctions(REPO / "data_demo" / DEMO_FILES["table"], recipe=REPO / "data_demo" / DEMO_FILES["recipe"])
+    table = ab.read_junctions(
+        REPO / "data_demo" / DEMO_FILES["table"], recipe=REPO / "data_demo" / DEMO_FILES["recipe"]
+    )
     truth = json.loads((REPO / "data_demo" / DEMO_FILES["truth"]).read_text())
     return ab.fit(table, seed=1, progress=False, **SHORT), truth
 

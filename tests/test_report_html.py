@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from matplotlib.image import imread
+from test_plots import LAWS, fake_exponents, fake_fit, fake_laws
 
 from allobranch.reporting.attempts import attempts_sentence, attempts_table
 from allobranch.reporting.html import CAUTION, write_html_report
@@ -28,15 +29,28 @@ from allobranch.reporting.saved_comparison import WARNINGS_FILE, SavedComparison
 from allobranch.reporting.style import figure, save_figure
 from allobranch.reporting.tables import fit_summary_markdown
 from allobranch.reporting.warning_groups import group_warnings, merge_fit_and_comparison
-from test_plots import LAWS, fake_exponents, fake_fit, fake_laws
 
 HOSTILE = '<script>alert("x")</script> & "quotes"'
 
 ATTEMPTS = [
-    {"parametrization": "non-centred", "target_accept": 0.9, "divergences": 14, "max_r_hat": 1.031,
-     "min_ess_bulk": 120.0, "seconds": 6.1, "kept": False},
-    {"parametrization": "centred specimen level", "target_accept": 0.95, "divergences": 0, "max_r_hat": 1.004,
-     "min_ess_bulk": 450.0, "seconds": 8.4, "kept": True},
+    {
+        "parametrization": "non-centred",
+        "target_accept": 0.9,
+        "divergences": 14,
+        "max_r_hat": 1.031,
+        "min_ess_bulk": 120.0,
+        "seconds": 6.1,
+        "kept": False,
+    },
+    {
+        "parametrization": "centred specimen level",
+        "target_accept": 0.95,
+        "divergences": 0,
+        "max_r_hat": 1.004,
+        "min_ess_bulk": 450.0,
+        "seconds": 8.4,
+        "kept": True,
+    },
 ]
 
 
@@ -89,10 +103,20 @@ def report(tmp_path_factory):
     png, svg = save_figure(png_fig, tmp_path / "forest", formats=("png", "svg"), dpi=60)
     exponents = fake_exponents()
     exponents.loc[1, "group"] = HOSTILE
-    flags = pd.DataFrame({"severity": ["flag", "flag"], "file": ["casts.csv", "casts.csv"], "row": [4, 9],
-                          "column": ["d1", HOSTILE], "code": ["daughter_ge_parent", "ratio"],
-                          "message": ["daughter >= parent " * 8, "blank"], "hint": ["check the reading", ""]})
-    verdicts = pd.DataFrame({"scope": ["overall"], "verdict": ["undecided"], "reason": ["closest law murray"]})
+    flags = pd.DataFrame(
+        {
+            "severity": ["flag", "flag"],
+            "file": ["casts.csv", "casts.csv"],
+            "row": [4, 9],
+            "column": ["d1", HOSTILE],
+            "code": ["daughter_ge_parent", "ratio"],
+            "message": ["daughter >= parent " * 8, "blank"],
+            "hint": ["check the reading", ""],
+        }
+    )
+    verdicts = pd.DataFrame(
+        {"scope": ["overall"], "verdict": ["undecided"], "reason": ["closest law murray"]}
+    )
     path = write_html_report(
         tmp_path / "report.html",
         title=f"Study {HOSTILE}",
@@ -166,8 +190,13 @@ def test_answer_comes_first_then_evidence_diagnostics_data_methods_caution(repor
 def test_answer_table_reads_interval_and_verdict_from_results():
     ex = fake_exponents()
     ex.attrs["hdi_prob"] = 0.95
-    verdicts = pd.DataFrame({"scope": ["overall", "Rattus"], "verdict": ["undecided", "Murray (a=3)"],
-                             "reason": ["closest law ...", "all conditions hold"]})
+    verdicts = pd.DataFrame(
+        {
+            "scope": ["overall", "Rattus"],
+            "verdict": ["undecided", "Murray (a=3)"],
+            "reason": ["closest law ...", "all conditions hold"],
+        }
+    )
     table = answer_table(ex, verdicts, fake_laws(), {"Rattus": 40, "Sus": 25, "Quercus": 61})
     assert list(table.columns) == ["estimate", "junctions", "exponent a", "95% HDI", "verdict", "reason"]
     assert list(table["estimate"]) == ["all taxa (population)", "Rattus", "Sus", "Quercus"]
@@ -187,16 +216,25 @@ def test_warnings_grouped_one_line_per_kind(report):
     assert doc.count("<details><summary>") >= 4
     groups = group_warnings(WARNINGS)
     assert [(g.kind, g.count) for g in groups] == [
-        ("law fits with convergence problems", 3), ("R-hat above threshold (chains disagree)", 1),
-        ("divergent transitions", 1), ("other warnings", 1)]
+        ("law fits with convergence problems", 3),
+        ("R-hat above threshold (chains disagree)", 1),
+        ("divergent transitions", 1),
+        ("other warnings", 1),
+    ]
 
 
 def test_free_fit_copies_are_dropped_once():
     fit = ["R-hat above 1.01 for mu"]
-    comparison = ["fit of the free model: R-hat above 1.01 for mu", "fit of the free model: something else",
-                  "LOO UNRELIABLE in scope overall: ..."]
+    comparison = [
+        "fit of the free model: R-hat above 1.01 for mu",
+        "fit of the free model: something else",
+        "LOO UNRELIABLE in scope overall: ...",
+    ]
     assert merge_fit_and_comparison(fit, comparison) == [
-        "R-hat above 1.01 for mu", "fit of the free model: something else", "LOO UNRELIABLE in scope overall: ..."]
+        "R-hat above 1.01 for mu",
+        "fit of the free model: something else",
+        "LOO UNRELIABLE in scope overall: ...",
+    ]
 
 
 def test_flags_table_drops_single_file_and_wraps(report, tmp_path):
@@ -204,7 +242,7 @@ def test_flags_table_drops_single_file_and_wraps(report, tmp_path):
     table = next(a for t, a in parsed.tags if t == "table" and a.get("id") == "flags")
     assert "wide" in table["class"]
     doc = report.read_text(encoding="utf-8")
-    flags_html = doc[doc.index('id="flags"'):].split("</table>", 1)[0]
+    flags_html = doc[doc.index('id="flags"') :].split("</table>", 1)[0]
     assert "<th>file</th>" not in flags_html and "<th>message</th>" in flags_html
     assert 'class="long"' in flags_html  # long text wraps
     assert "All refer to casts.csv" in _text(report)
@@ -215,9 +253,11 @@ def test_flags_table_drops_single_file_and_wraps(report, tmp_path):
 
 def test_attempts_shown_as_table_and_sentence(report):
     text = _text(report)
-    assert ("First attempt (non-centred at target_accept 0.9) had 14 divergences, max R-hat 1.031, min bulk ESS "
-            "120; refitted with centred specimen level at target_accept 0.95 (0 divergences, max R-hat 1.004, "
-            "min bulk ESS 450); kept attempt 2.") in text
+    assert (
+        "First attempt (non-centred at target_accept 0.9) had 14 divergences, max R-hat 1.031, min bulk ESS "
+        "120; refitted with centred specimen level at target_accept 0.95 (0 divergences, max R-hat 1.004, "
+        "min bulk ESS 450); kept attempt 2."
+    ) in text
     table = attempts_table({"attempts": ATTEMPTS})
     assert list(table["attempt"]) == [1, 2] and list(table["kept"]) == [False, True]
     assert attempts_table({}) is None and attempts_sentence({"attempts": []}) == ""
@@ -235,7 +275,9 @@ def test_summary_markdown_lists_attempts_only_when_recorded():
 def test_caution_present(report):
     text = _text(report)
     assert CAUTION in text
-    assert "research tool" in text and "not clinical measurements" in text and "qualified professionals" in text
+    assert (
+        "research tool" in text and "not clinical measurements" in text and "qualified professionals" in text
+    )
 
 
 def test_user_text_escaped(report):
@@ -273,20 +315,28 @@ def test_empty_report_and_bad_figures(tmp_path):
 
 def _write_comparison(folder: Path, *, warnings_file: bool) -> None:
     evidence = fake_laws()
-    evidence["law"] = evidence["law"].map({"free": "free", "Rall (a=1.5)": "rall", "da Vinci (a=2)": "da_vinci",
-                                           "Murray (a=3)": "murray"})
+    evidence["law"] = evidence["law"].map(
+        {"free": "free", "Rall (a=1.5)": "rall", "da Vinci (a=2)": "da_vinci", "Murray (a=3)": "murray"}
+    )
     evidence["scope"] = evidence["scope"].replace({"Rattus": "T1"})
     evidence["n_high_k"] = [0, 0, 0, 2, 0, 0, 0, 0]
-    evidence["bf_method"] = np.where(evidence["value"].isna(), "", ["", "normal_approx", "", "", "", "", "", ""])
+    evidence["bf_method"] = np.where(
+        evidence["value"].isna(), "", ["", "normal_approx", "", "", "", "", "", ""]
+    )
     evidence.to_csv(folder / "laws.csv", index=False)
     pd.DataFrame({"taxon": ["T1"], "verdict": ["murray"]}).to_csv(folder / "laws_by_taxon.csv", index=False)
-    pd.DataFrame({"scope": ["overall", "T1"], "verdict": ["undecided", "murray"],
-                  "reason": ["closest law murray: P(ROPE) 0.33 < 0.9", "murray: P(ROPE) 0.95, BF 4.1"]}).to_csv(
-        folder / "laws_verdicts.csv", index=False)
+    pd.DataFrame(
+        {
+            "scope": ["overall", "T1"],
+            "verdict": ["undecided", "murray"],
+            "reason": ["closest law murray: P(ROPE) 0.33 < 0.9", "murray: P(ROPE) 0.95, BF 4.1"],
+        }
+    ).to_csv(folder / "laws_verdicts.csv", index=False)
     (folder / "laws.md").write_text("## Warnings\n\n- A WARNING ONLY IN MARKDOWN\n", encoding="utf-8")
     if warnings_file:
-        pd.DataFrame({"message": ["fit of murray (overall): R-hat above 1.01"]}).to_csv(folder / WARNINGS_FILE,
-                                                                                       index=False)
+        pd.DataFrame({"message": ["fit of murray (overall): R-hat above 1.01"]}).to_csv(
+            folder / WARNINGS_FILE, index=False
+        )
 
 
 def test_saved_comparison_reads_tables_not_markdown(tmp_path):
@@ -307,15 +357,16 @@ def fit_report(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("fit_report")
     _write_comparison(folder, warnings_file=False)
     fit = fake_fit(settings={"attempts": ATTEMPTS, "parametrization": "centred specimen level"})
-    return build_report(fit, folder / "report.html", laws=SavedComparison.read(folder),
-                        title="Report of SIMULATED data")
+    return build_report(
+        fit, folder / "report.html", laws=SavedComparison.read(folder), title="Report of SIMULATED data"
+    )
 
 
 def test_report_from_fit_answers_first(fit_report):
     text = _text(fit_report)
     assert "Branching exponent per taxon (90% HDI)" in text
     start = text.index("Branching exponent per taxon")
-    answer = text[start:text.index("Law comparison", start)]
+    answer = text[start : text.index("Law comparison", start)]
     assert "T1" in answer and "T2" in answer and "Murray (a=3)" in answer and "murray: P(ROPE) 0.95" in answer
     assert "undecided" in answer
     assert "kept attempt 2" in text and "Law residual" in text
@@ -342,8 +393,10 @@ class _WebSocket:
         parts = urllib.parse.urlsplit(url)
         self.sock = socket.create_connection((parts.hostname, parts.port), timeout=timeout)
         key = base64.b64encode(os.urandom(16)).decode()
-        request = (f"GET {parts.path} HTTP/1.1\r\nHost: {parts.hostname}:{parts.port}\r\nUpgrade: websocket\r\n"
-                   f"Connection: Upgrade\r\nSec-WebSocket-Key: {key}\r\nSec-WebSocket-Version: 13\r\n\r\n")
+        request = (
+            f"GET {parts.path} HTTP/1.1\r\nHost: {parts.hostname}:{parts.port}\r\nUpgrade: websocket\r\n"
+            f"Connection: Upgrade\r\nSec-WebSocket-Key: {key}\r\nSec-WebSocket-Version: 13\r\n\r\n"
+        )
         self.sock.sendall(request.encode())
         head = b""
         while b"\r\n\r\n" not in head:
@@ -366,8 +419,13 @@ class _WebSocket:
     def send(self, text: str) -> None:
         payload = text.encode()
         n = len(payload)
-        header = bytes([0x81]) + (bytes([0x80 | n]) if n < 126 else bytes([0x80 | 126]) + struct.pack(">H", n)
-                                  if n < 65536 else bytes([0x80 | 127]) + struct.pack(">Q", n))
+        header = bytes([0x81]) + (
+            bytes([0x80 | n])
+            if n < 126
+            else bytes([0x80 | 126]) + struct.pack(">H", n)
+            if n < 65536
+            else bytes([0x80 | 127]) + struct.pack(">Q", n)
+        )
         mask = os.urandom(4)
         self.sock.sendall(header + mask + bytes(b ^ mask[i % 4] for i, b in enumerate(payload)))
 
@@ -422,7 +480,9 @@ class _DevTools:
         if method == "Runtime.exceptionThrown":
             self.errors.append(f"exception: {params['exceptionDetails'].get('text')}")
         elif method == "Runtime.consoleAPICalled" and params.get("type") in ("error", "assert"):
-            self.errors.append(f"console.{params['type']}: {[a.get('value') for a in params.get('args', [])]}")
+            self.errors.append(
+                f"console.{params['type']}: {[a.get('value') for a in params.get('args', [])]}"
+            )
         elif method == "Log.entryAdded" and params["entry"].get("level") == "error":
             self.errors.append(f"log: {params['entry'].get('text')} {params['entry'].get('url', '')}")
 
@@ -442,11 +502,24 @@ def browser(tmp_path):
         pytest.skip("no Chromium installed (Debian: apt-get install chromium; .ci/run installs it)")
     profile = tmp_path / "profile"
     proc = subprocess.Popen(
-        [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-         "--disable-component-update", "--disable-sync", "--no-first-run", "--hide-scrollbars",
-         f"--user-data-dir={profile}", "--remote-debugging-port=0", "--remote-debugging-address=127.0.0.1",
-         "about:blank"],
-        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        [
+            exe,
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--disable-background-networking",
+            "--disable-component-update",
+            "--disable-sync",
+            "--no-first-run",
+            "--hide-scrollbars",
+            f"--user-data-dir={profile}",
+            "--remote-debugging-port=0",
+            "--remote-debugging-address=127.0.0.1",
+            "about:blank",
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     try:
         port_file = profile / "DevToolsActivePort"  # written by Chromium: port, then the browser's path
         deadline = time.monotonic() + 60
@@ -462,7 +535,9 @@ def browser(tmp_path):
         for domain in ("Page", "Runtime", "Log"):
             tools.call(f"{domain}.enable")
         # a laptop screen: 1280 x 800 CSS pixels
-        tools.call("Emulation.setDeviceMetricsOverride", width=1280, height=800, deviceScaleFactor=1, mobile=False)
+        tools.call(
+            "Emulation.setDeviceMetricsOverride", width=1280, height=800, deviceScaleFactor=1, mobile=False
+        )
         yield tools
         ws.close()
     finally:
@@ -525,9 +600,13 @@ def test_browser_check_catches_broken_images_and_console_errors(browser, tmp_pat
     # controls for the test above: an image whose bytes do not decode, a console error and an uncaught
     # exception are all reported
     page = tmp_path / "broken.html"
-    page.write_text('<!DOCTYPE html><html><body><img alt="broken" src="data:image/png;base64,'
-                    + base64.b64encode(b"not a png").decode() + '"><script>console.error("seen");'
-                    'null.missing;</script></body></html>', encoding="utf-8")
+    page.write_text(
+        '<!DOCTYPE html><html><body><img alt="broken" src="data:image/png;base64,'
+        + base64.b64encode(b"not a png").decode()
+        + '"><script>console.error("seen");'
+        "null.missing;</script></body></html>",
+        encoding="utf-8",
+    )
     browser.call("Page.navigate", url=page.as_uri())
     browser.wait_for("Page.loadEventFired")
     images = _evaluate(browser, _IMAGES_JS)

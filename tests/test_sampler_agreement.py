@@ -42,11 +42,20 @@ def _per_element(result: ab.FitResult, var: str) -> list[np.ndarray]:
 @pytest.fixture(scope="module")
 def two_samplers() -> dict[str, ab.FitResult]:
     """One taxon, two specimens of 20 junctions at 5 % error (specimen level present), fitted twice."""
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=2, junctions_per_specimen=20, rel_error=0.05,
-                                taxon_exponents={"T1": 2.6}, tau_specimen=0.1, seed=1)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=2,
+        junctions_per_specimen=20,
+        rel_error=0.05,
+        taxon_exponents={"T1": 2.6},
+        tau_specimen=0.1,
+        seed=1,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
-    return {s: ab.fit(table, draws=1000, tune=1000, chains=2, seed=7, sampler=s, progress=False)
-            for s in ("nutpie", "pymc")}
+    return {
+        s: ab.fit(table, draws=1000, tune=1000, chains=2, seed=7, sampler=s, progress=False)
+        for s in ("nutpie", "pymc")
+    }
 
 
 def test_each_sampler_really_ran(two_samplers):
@@ -57,16 +66,20 @@ def test_each_sampler_really_ran(two_samplers):
 
 @pytest.mark.parametrize("var", ["mu", "a_specimen", "sigma_dev"])
 def test_pymc_and_nutpie_posterior_means_agree(two_samplers, var):
-    for x, y in zip(_per_element(two_samplers["nutpie"], var), _per_element(two_samplers["pymc"], var),
-                    strict=True):
+    for x, y in zip(
+        _per_element(two_samplers["nutpie"], var), _per_element(two_samplers["pymc"], var), strict=True
+    ):
         se = np.hypot(_mcse_mean(x), _mcse_mean(y))
         # 4 combined MCSE (ArviZ) plus 1e-3 for rounding-level differences of two compiled codes
         assert abs(x.mean() - y.mean()) < Z_MC * se + 1e-3, (var, x.mean(), y.mean(), se)
 
 
 def test_pymc_and_nutpie_posterior_sds_agree(two_samplers):
-    for x, y in zip(_per_element(two_samplers["nutpie"], "a_specimen"),
-                    _per_element(two_samplers["pymc"], "a_specimen"), strict=True):
+    for x, y in zip(
+        _per_element(two_samplers["nutpie"], "a_specimen"),
+        _per_element(two_samplers["pymc"], "a_specimen"),
+        strict=True,
+    ):
         se = np.hypot(_mcse_sd(x), _mcse_sd(y))
         assert abs(x.std() - y.std()) < Z_MC * se + 1e-3, (x.std(), y.std(), se)
 
@@ -75,11 +88,20 @@ def test_pymc_and_nutpie_posterior_sds_agree(two_samplers):
 @pytest.fixture(scope="module")
 def two_forms() -> dict[str, ab.FitResult]:
     """One taxon, one specimen, 40 junctions at 5 % error, fitted in the fast and in the exact form."""
-    sim = ab.simulate_junctions(taxa=1, specimens_per_taxon=1, junctions_per_specimen=40, rel_error=0.05,
-                                taxon_exponents={"T1": 2.6}, tau_specimen=0.0, seed=2)
+    sim = ab.simulate_junctions(
+        taxa=1,
+        specimens_per_taxon=1,
+        junctions_per_specimen=40,
+        rel_error=0.05,
+        taxon_exponents={"T1": 2.6},
+        tau_specimen=0.0,
+        seed=2,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
-    return {name: ab.fit(table, spec, draws=1000, tune=1000, chains=2, seed=5, progress=False)
-            for name, spec in (("fast", ab.ModelSpec()), ("latent", ab.ModelSpec(likelihood="latent")))}
+    return {
+        name: ab.fit(table, spec, draws=1000, tune=1000, chains=2, seed=5, progress=False)
+        for name, spec in (("fast", ab.ModelSpec()), ("latent", ab.ModelSpec(likelihood="latent")))
+    }
 
 
 def test_latent_form_keeps_the_true_radii(two_forms):
@@ -106,7 +128,10 @@ def test_fast_form_matches_the_exact_latent_form(two_forms):
     y = two_forms["latent"].idata.posterior["mu"].values
     sd = y.std()
     assert abs(x.mean() - y.mean()) < 0.1 * sd + Z_MC * np.hypot(_mcse_mean(x), _mcse_mean(y)), (
-        x.mean(), y.mean(), sd)
+        x.mean(),
+        y.mean(),
+        sd,
+    )
     assert abs(x.std() - sd) < 0.1 * sd + Z_MC * np.hypot(_mcse_sd(x), _mcse_sd(y)), (x.std(), sd)
     # the same check on the deviation scale, whose posterior the approximation could also distort
     x = two_forms["fast"].idata.posterior["sigma_dev"].values

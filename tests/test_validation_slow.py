@@ -35,8 +35,10 @@ def calibration():
     return _load("calibration")
 
 
-@pytest.mark.skip(reason="benchmarks/calibration.py swaps data into a compiled PyMC model and checks it against "
-                  "allobranch.fit, which now samples the compiled fast density; the script must be ported to that route")
+@pytest.mark.skip(
+    reason="benchmarks/calibration.py swaps data into a compiled PyMC model and checks it against "
+    "allobranch.fit, which now samples the compiled fast density; the script must be ported to that route"
+)
 def test_reduced_calibration_runs_and_covers(calibration) -> None:
     # Eight datasets from the prior: the pipeline runs end to end (including the check that swapping data
     # into the compiled model reproduces allobranch.fit exactly), ranks lie in range, and the number of
@@ -78,8 +80,15 @@ def test_model_beats_naive_estimate_at_high_error() -> None:
     # daughters and the selective loss of rootless junctions); the model's taxon exponents must be closer
     # to the truth on average and their 90 % HDIs must cover it.
     truth = {"A": 2.0, "B": 3.0}
-    sim = ab.simulate_junctions(taxa=list(truth), taxon_exponents=truth, specimens_per_taxon=3,
-                                junctions_per_specimen=40, rel_error=0.15, tau_specimen=0.05, seed=31)
+    sim = ab.simulate_junctions(
+        taxa=list(truth),
+        taxon_exponents=truth,
+        specimens_per_taxon=3,
+        junctions_per_specimen=40,
+        rel_error=0.15,
+        tau_specimen=0.05,
+        seed=31,
+    )
     table = ab.read_junctions(sim.frame, sim.mapping)
     result = ab.fit(table, seed=3, draws=600, tune=600, chains=2, progress=False)
     exps = result.exponents().set_index("group")

@@ -37,8 +37,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     add_mapping_arguments(parser)
     parser.add_argument("--out", metavar="DIR", help=f"write per-junction geometry to DIR/{JUNCTIONS_FILE}")
-    parser.add_argument("--save-recipe", metavar="FILE", dest="save_recipe",
-                        help="write the column mapping used to a TOML recipe FILE")
+    parser.add_argument(
+        "--save-recipe",
+        metavar="FILE",
+        dest="save_recipe",
+        help="write the column mapping used to a TOML recipe FILE",
+    )
     parser.add_argument("--force", action="store_true", help="overwrite existing output files")
     parser.set_defaults(func=run)
 
@@ -67,7 +71,9 @@ def junction_output(table: JunctionTable, geometry: pd.DataFrame) -> pd.DataFram
 
 def _refuse_overwrite(dest: Path, force: bool, option: str) -> None:
     if dest.exists() and not force:
-        raise OutputExistsError(f"{dest} already exists; use --force to overwrite it or choose another {option}")
+        raise OutputExistsError(
+            f"{dest} already exists; use --force to overwrite it or choose another {option}"
+        )
 
 
 def _write_csv(frame: pd.DataFrame, dest: Path, force: bool) -> None:
@@ -77,7 +83,9 @@ def _write_csv(frame: pd.DataFrame, dest: Path, force: bool) -> None:
         dest.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
     except OSError as exc:
-        raise AllobranchError(f"{dest.parent}: cannot create the output folder or file ({exc.strerror})") from None
+        raise AllobranchError(
+            f"{dest.parent}: cannot create the output folder or file ({exc.strerror})"
+        ) from None
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             frame.to_csv(fh, index=False)
@@ -97,8 +105,10 @@ def _error_note(table: JunctionTable) -> str:
     if table.repeats is not None:
         parts.append(f"{len(table.repeats)} repeat readings")
     if not parts:
-        return ("none given (the model cannot then tell measurement error from biological deviation; "
-                "give --rel-error, --se or --repeats if you can)")
+        return (
+            "none given (the model cannot then tell measurement error from biological deviation; "
+            "give --rel-error, --se or --repeats if you can)"
+        )
     return "; ".join(parts)
 
 
@@ -121,8 +131,11 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
     m = table.mapping
     hist = d["n_daughters"].value_counts().sort_index()
     roles = [f"parent '{m.parent}'", "daughters " + ", ".join(f"'{c}'" for c in m.daughters)]
-    roles += [f"{role} '{col}'" for role, col in (("taxon", m.taxon), ("specimen", m.specimen),
-                                                    ("junction", m.junction)) if col]
+    roles += [
+        f"{role} '{col}'"
+        for role, col in (("taxon", m.taxon), ("specimen", m.specimen), ("junction", m.junction))
+        if col
+    ]
     lines = [
         f"Table: {table.source}",
         "  columns: " + "; ".join(roles),
@@ -131,14 +144,19 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
         "  daughters per junction: " + ", ".join(f"{k}: {v}" for k, v in hist.items()),
         f"  sizes: {table.mapping.measure} in {table.unit}; measurement error: {_error_note(table)}",
     ]
-    sections = (("Flagged rows (kept)", table.report.flags), ("Excluded rows (not used)", table.report.excluded))
+    sections = (
+        ("Flagged rows (kept)", table.report.flags),
+        ("Excluded rows (not used)", table.report.excluded),
+    )
     for title, items in sections:
         lines.append(f"{title}: {len(items)}")
         lines.extend(f"  {p.format()}" for p in items)
     lines.append(f"Naive summary by taxon -- {NAIVE_NOTE}:")
     shown = summary.drop(columns=["method"])
     with pd.option_context("display.width", 200, "display.max_columns", 20):
-        lines.extend("  " + s for s in shown.to_string(index=False, float_format=lambda x: f"{x:.3g}").splitlines())
+        lines.extend(
+            "  " + s for s in shown.to_string(index=False, float_format=lambda x: f"{x:.3g}").splitlines()
+        )
     return "\n".join(lines)
 
 
@@ -181,6 +199,8 @@ def run(args: argparse.Namespace) -> int:
     reasons = geometry["no_root_reason"].dropna().value_counts()
     if len(reasons):
         why = ", ".join(f"{reason}: {count}" for reason, count in reasons.items())
-        print(f"Note: {int(reasons.sum())} junction(s) have no per-junction exponent ({why}); they stay in the "
-              "table for the model.")
+        print(
+            f"Note: {int(reasons.sum())} junction(s) have no per-junction exponent ({why}); they stay in the "
+            "table for the model."
+        )
     return 0

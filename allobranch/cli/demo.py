@@ -14,11 +14,10 @@ from allobranch.reporting.outputs import prepare_output_dir
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch demo``."""
-    from allobranch.reporting.figures import write_figures
-    from allobranch.reporting.report import REPORT_FILE, build_report
-
     import allobranch as ab
     from allobranch.cli.check import format_check_report
+    from allobranch.reporting.figures import write_figures
+    from allobranch.reporting.report import REPORT_FILE, build_report
 
     out = Path(args.out)
     folder = demo_folder()
@@ -30,20 +29,36 @@ def run(args: argparse.Namespace) -> int:
     geometry = ab.junction_geometry(table)
     print(format_check_report(table, ab.naive_summary(geometry, by=("taxon",))))
     result = fit_and_write(table, args, out)
-    laws = ab.compare_laws(table, fit=result, seed=args.seed, draws=args.draws, tune=args.tune,
-                           chains=args.chains, sampler=args.sampler, target_accept=args.target_accept,
-                           escalate=args.escalate, workers=args.workers, progress=not args.quiet)
+    laws = ab.compare_laws(
+        table,
+        fit=result,
+        seed=args.seed,
+        draws=args.draws,
+        tune=args.tune,
+        chains=args.chains,
+        sampler=args.sampler,
+        target_accept=args.target_accept,
+        escalate=args.escalate,
+        workers=args.workers,
+        progress=not args.quiet,
+    )
     write_outputs(laws, out, force=args.force)
     print("Law verdicts (law, 'none' or 'undecided'):")
     for row in laws.verdicts.itertuples():
         print(f"  {row.scope:<24} {row.verdict:<12} {row.reason}")
-    print(f"Law comparison took {laws.settings.get('seconds', float('nan')):.0f} s "
-          f"({laws.settings.get('n_fits')} fits)")
+    print(
+        f"Law comparison took {laws.settings.get('seconds', float('nan')):.0f} s "
+        f"({laws.settings.get('n_fits')} fits)"
+    )
     figures = write_figures(result, out / "figures", laws_table=laws.laws_table())
     print(f"{len(figures)} figure files in {out / 'figures'}/")
     prepare_output_dir(out, [REPORT_FILE], force=args.force)
-    report = build_report(result, out / REPORT_FILE, laws=laws,
-                          title="Branching-exponent analysis of SIMULATED demo data (invented species)")
+    report = build_report(
+        result,
+        out / REPORT_FILE,
+        laws=laws,
+        title="Branching-exponent analysis of SIMULATED demo data (invented species)",
+    )
     print(f"Report: {report}")
     return 0
 
@@ -51,11 +66,14 @@ def run(args: argparse.Namespace) -> int:
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``demo`` sub-command."""
     parser = subparsers.add_parser(
-        "demo", help="run the whole analysis on the bundled simulated demo data",
+        "demo",
+        help="run the whole analysis on the bundled simulated demo data",
         description="Check, fit, compare laws, draw figures and write the report for the bundled SIMULATED "
         "demo data (four invented lizard species).",
     )
-    parser.add_argument("--out", metavar="DIR", default="allobranch_demo", help="results folder (default allobranch_demo)")
+    parser.add_argument(
+        "--out", metavar="DIR", default="allobranch_demo", help="results folder (default allobranch_demo)"
+    )
     add_sampler_arguments(parser)
     add_worker_argument(parser)
     # shorter chains than 'fit' so that the demo's 16 fits (free model and every law) finish in minutes;

@@ -24,8 +24,13 @@ def run(args: argparse.Namespace) -> int:
 
     fit_dir = Path(args.fit_dir)
     result = FitResult.load(fit_dir / "fit.nc")
-    written = write_figures(result, fit_dir / "figures", laws_table=read_laws_table(fit_dir),
-                            formats=_formats(args.format), width=args.width)
+    written = write_figures(
+        result,
+        fit_dir / "figures",
+        laws_table=read_laws_table(fit_dir),
+        formats=_formats(args.format),
+        width=args.width,
+    )
     print(f"{len(written)} figure files written to {fit_dir / 'figures'}/")
     return 0
 
@@ -33,13 +38,22 @@ def run(args: argparse.Namespace) -> int:
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``figures`` sub-command."""
     parser = subparsers.add_parser(
-        "figures", help="draw every figure of a fit",
+        "figures",
+        help="draw every figure of a fit",
         description="Draw the exponent forest plot, ratio plane, naive-vs-model, posterior predictive check, "
         "law comparison (when 'allobranch compare' wrote into the same folder) and sampler diagnostics into "
         "FIT_DIR/figures/ (existing figure files there are replaced).",
     )
-    parser.add_argument("fit_dir", metavar="FIT_DIR", help="folder written by 'allobranch fit' (holds fit.nc)")
-    parser.add_argument("--format", default="pdf,png,svg", help="comma-separated formats (default pdf,png,svg)")
-    parser.add_argument("--width", choices=("single", "double"), default="single",
-                        help="journal column width: single (~85 mm) or double (~180 mm)")
+    parser.add_argument(
+        "fit_dir", metavar="FIT_DIR", help="folder written by 'allobranch fit' (holds fit.nc)"
+    )
+    parser.add_argument(
+        "--format", default="pdf,png,svg", help="comma-separated formats (default pdf,png,svg)"
+    )
+    parser.add_argument(
+        "--width",
+        choices=("single", "double"),
+        default="single",
+        help="journal column width: single (~85 mm) or double (~180 mm)",
+    )
     parser.set_defaults(func=run)

@@ -36,27 +36,65 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
     g = parser.add_argument_group("sampling")
     g.add_argument("--seed", type=int, default=0, help="random seed (same seed, same tables; default 0)")
     d = SAMPLER_DEFAULTS
-    g.add_argument("--draws", type=positive_int, default=d["draws"],
-                   help=f"posterior draws per chain (default {d['draws']})")
-    g.add_argument("--tune", type=positive_int, default=d["tune"],
-                   help=f"tuning steps per chain (default {d['tune']})")
-    g.add_argument("--chains", type=positive_int, default=d["chains"], help=f"number of chains (default {d['chains']})")
-    g.add_argument("--sampler", choices=SAMPLERS, default=d["sampler"],
-                   help="NUTS implementation (default nutpie; falls back to pymc if nutpie fails)")
-    g.add_argument("--target-accept", type=probability, default=d["target_accept"], dest="target_accept",
-                   help=f"NUTS target acceptance of the first attempt (default {d['target_accept']}; a fit that "
-                   "fails its checks is refitted automatically with higher values)")
-    g.add_argument("--parametrization", choices=PARAMETRIZATIONS, default="auto",
-                   help="how the hierarchy's groups are sampled: auto (whitened from a pilot, default), "
-                   "centered or noncentered")
-    g.add_argument("--no-taxon-level", action="store_false", dest="taxon_level", default=None,
-                   help="one exponent shared by all taxa (no taxon level in the hierarchy)")
-    g.add_argument("--no-specimen-level", action="store_false", dest="specimen_level", default=None,
-                   help="specimens share their taxon's exponent (no specimen level in the hierarchy)")
-    g.add_argument("--no-escalate", action="store_false", dest="escalate",
-                   help="do not refit automatically when the first attempt has divergences or a high R-hat")
-    g.add_argument("--deviation", choices=DEVIATIONS, default="normal",
-                   help="junction deviation from the law: normal, or student_t for outlying junctions")
+    g.add_argument(
+        "--draws",
+        type=positive_int,
+        default=d["draws"],
+        help=f"posterior draws per chain (default {d['draws']})",
+    )
+    g.add_argument(
+        "--tune", type=positive_int, default=d["tune"], help=f"tuning steps per chain (default {d['tune']})"
+    )
+    g.add_argument(
+        "--chains", type=positive_int, default=d["chains"], help=f"number of chains (default {d['chains']})"
+    )
+    g.add_argument(
+        "--sampler",
+        choices=SAMPLERS,
+        default=d["sampler"],
+        help="NUTS implementation (default nutpie; falls back to pymc if nutpie fails)",
+    )
+    g.add_argument(
+        "--target-accept",
+        type=probability,
+        default=d["target_accept"],
+        dest="target_accept",
+        help=f"NUTS target acceptance of the first attempt (default {d['target_accept']}; a fit that "
+        "fails its checks is refitted automatically with higher values)",
+    )
+    g.add_argument(
+        "--parametrization",
+        choices=PARAMETRIZATIONS,
+        default="auto",
+        help="how the hierarchy's groups are sampled: auto (whitened from a pilot, default), "
+        "centered or noncentered",
+    )
+    g.add_argument(
+        "--no-taxon-level",
+        action="store_false",
+        dest="taxon_level",
+        default=None,
+        help="one exponent shared by all taxa (no taxon level in the hierarchy)",
+    )
+    g.add_argument(
+        "--no-specimen-level",
+        action="store_false",
+        dest="specimen_level",
+        default=None,
+        help="specimens share their taxon's exponent (no specimen level in the hierarchy)",
+    )
+    g.add_argument(
+        "--no-escalate",
+        action="store_false",
+        dest="escalate",
+        help="do not refit automatically when the first attempt has divergences or a high R-hat",
+    )
+    g.add_argument(
+        "--deviation",
+        choices=DEVIATIONS,
+        default="normal",
+        help="junction deviation from the law: normal, or student_t for outlying junctions",
+    )
     g.add_argument("--hdi", type=float, default=0.9, help="HDI probability of the tables (default 0.9)")
     g.add_argument("--quiet", action="store_true", help="no progress display")
     g.add_argument("--force", action="store_true", help="replace existing result files in --out")
@@ -64,8 +102,12 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
 
 def spec_from_args(args: argparse.Namespace) -> ModelSpec:
     """Model specification from the command-line options."""
-    return ModelSpec(deviation=args.deviation, parametrization=args.parametrization, taxon_level=args.taxon_level,
-                     specimen_level=args.specimen_level)
+    return ModelSpec(
+        deviation=args.deviation,
+        parametrization=args.parametrization,
+        taxon_level=args.taxon_level,
+        specimen_level=args.specimen_level,
+    )
 
 
 def fit_and_write(table, args: argparse.Namespace, out) -> object:
@@ -75,9 +117,18 @@ def fit_and_write(table, args: argparse.Namespace, out) -> object:
     from allobranch.reporting.outputs import prepare_output_dir
 
     prepare_output_dir(out, list(FIT_FILES), force=args.force)  # fail before the long fit, not after
-    result = ab.fit(table, spec_from_args(args), draws=args.draws, tune=args.tune, chains=args.chains,
-                    seed=args.seed, sampler=args.sampler, target_accept=args.target_accept,
-                    escalate=args.escalate, progress=not args.quiet)
+    result = ab.fit(
+        table,
+        spec_from_args(args),
+        draws=args.draws,
+        tune=args.tune,
+        chains=args.chains,
+        seed=args.seed,
+        sampler=args.sampler,
+        target_accept=args.target_accept,
+        escalate=args.escalate,
+        progress=not args.quiet,
+    )
     for note in result.notes:
         print(f"NOTE: {note}", file=sys.stderr)
     write_fit_outputs(result, out, hdi_prob=args.hdi, force=True)
@@ -87,8 +138,10 @@ def fit_and_write(table, args: argparse.Namespace, out) -> object:
     shown = exps[exps["level"] != "specimen"]
     print(f"Exponents ({int(args.hdi * 100)} % HDI):")
     for row in shown.itertuples():
-        print(f"  {row.level:<10} {row.group:<24} {row.mean:6.3f}  [{row.hdi_low:.3f}, {row.hdi_high:.3f}]"
-              f"  r_hat {row.r_hat:.3f}  ess {row.ess_bulk:.0f}")
+        print(
+            f"  {row.level:<10} {row.group:<24} {row.mean:6.3f}  [{row.hdi_low:.3f}, {row.hdi_high:.3f}]"
+            f"  r_hat {row.r_hat:.3f}  ess {row.ess_bulk:.0f}"
+        )
     print(f"Fit took {result.settings['seconds']} s; results in {out}/ ({', '.join(FIT_FILES)})")
     return result
 
@@ -103,7 +156,8 @@ def run(args: argparse.Namespace) -> int:
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``fit`` sub-command."""
     parser = subparsers.add_parser(
-        "fit", help="fit the hierarchical exponent model",
+        "fit",
+        help="fit the hierarchical exponent model",
         description="Fit the errors-in-variables hierarchical model (population -> taxon -> specimen) and "
         "write exponents.csv, variance.csv, diagnostics.csv, summary.md and fit.nc into --out.",
     )

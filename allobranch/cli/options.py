@@ -23,9 +23,12 @@ def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool =
         Also add the positional ``TABLE`` argument (stored as ``args.table``).
     """
     if with_table:
-        parser.add_argument("table", metavar="TABLE",
-                            help="junction table: .csv, .tsv, semicolon-separated text (decimal comma), .parquet "
-                                 "or .xlsx; one row per junction")
+        parser.add_argument(
+            "table",
+            metavar="TABLE",
+            help="junction table: .csv, .tsv, semicolon-separated text (decimal comma), .parquet "
+            "or .xlsx; one row per junction",
+        )
     group = parser.add_argument_group(
         "column mapping",
         "Name the columns of TABLE, or give a recipe file with --recipe. Options given beside --recipe "
@@ -33,26 +36,48 @@ def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool =
     )
     group.add_argument("--recipe", metavar="FILE", help="TOML recipe holding the column mapping")
     group.add_argument("--parent", metavar="COL", help="column with the parent segment's size")
-    group.add_argument("--daughters", metavar="COL,COL[,COL...]",
-                       help="daughter size columns, comma-separated; third and later may be empty in a row")
+    group.add_argument(
+        "--daughters",
+        metavar="COL,COL[,COL...]",
+        help="daughter size columns, comma-separated; third and later may be empty in a row",
+    )
     group.add_argument("--taxon", metavar="COL", help="taxon column (default: one taxon named 'all')")
     group.add_argument("--specimen", metavar="COL", help="specimen column (default: one specimen per taxon)")
     group.add_argument("--junction", metavar="COL", help="junction label column (default: the row number)")
     group.add_argument("--measure", choices=MEASURES, help="sizes are radii or diameters (default: radius)")
-    group.add_argument("--unit", metavar="UNIT",
-                       help=f"length unit of the sizes, one of {', '.join(ALLOWED_UNITS)} (default: mm)")
-    group.add_argument("--rel-error", metavar="FRACTION", type=float, dest="rel_error",
-                       help="known relative measurement error of every reading, e.g. 0.05 for 5%%")
-    group.add_argument("--se", metavar="COL[,COL...]",
-                       help="absolute standard-error column: one for every reading of a row, or one per size "
-                            "column (parent first)")
-    group.add_argument("--repeats", metavar="FILE",
-                       help="table of repeat readings (columns specimen, junction, segment, value); for an "
-                            "Excel TABLE also a sheet name")
-    group.add_argument("--sheet", metavar="NAME", help="Excel sheet holding the junctions (default: the first)")
-    group.add_argument("--encoding", metavar="NAME",
-                       help="text encoding of a CSV/TSV TABLE and repeat-readings file, e.g. cp1252, latin-1, "
-                       "utf-16 (default: UTF-8)")
+    group.add_argument(
+        "--unit",
+        metavar="UNIT",
+        help=f"length unit of the sizes, one of {', '.join(ALLOWED_UNITS)} (default: mm)",
+    )
+    group.add_argument(
+        "--rel-error",
+        metavar="FRACTION",
+        type=float,
+        dest="rel_error",
+        help="known relative measurement error of every reading, e.g. 0.05 for 5%%",
+    )
+    group.add_argument(
+        "--se",
+        metavar="COL[,COL...]",
+        help="absolute standard-error column: one for every reading of a row, or one per size "
+        "column (parent first)",
+    )
+    group.add_argument(
+        "--repeats",
+        metavar="FILE",
+        help="table of repeat readings (columns specimen, junction, segment, value); for an "
+        "Excel TABLE also a sheet name",
+    )
+    group.add_argument(
+        "--sheet", metavar="NAME", help="Excel sheet holding the junctions (default: the first)"
+    )
+    group.add_argument(
+        "--encoding",
+        metavar="NAME",
+        help="text encoding of a CSV/TSV TABLE and repeat-readings file, e.g. cp1252, latin-1, "
+        "utf-16 (default: UTF-8)",
+    )
 
 
 def mapping_from_args(args: argparse.Namespace) -> ColumnMapping:
@@ -73,17 +98,32 @@ def mapping_from_args(args: argparse.Namespace) -> ColumnMapping:
     if repeats is not None and Path(repeats).is_file():
         repeats = str(Path(repeats).resolve())  # a path typed on the command line is relative to here
     return mapping_from_options(
-        base=base, parent=args.parent, daughters=args.daughters, taxon=args.taxon, specimen=args.specimen,
-        junction=args.junction, measure=args.measure, unit=args.unit, rel_error=args.rel_error, se=args.se,
-        repeats=repeats, sheet=args.sheet, encoding=args.encoding,
+        base=base,
+        parent=args.parent,
+        daughters=args.daughters,
+        taxon=args.taxon,
+        specimen=args.specimen,
+        junction=args.junction,
+        measure=args.measure,
+        unit=args.unit,
+        rel_error=args.rel_error,
+        se=args.se,
+        repeats=repeats,
+        sheet=args.sheet,
+        encoding=args.encoding,
     )
 
 
 def add_worker_argument(parser: argparse.ArgumentParser) -> None:
     """``--workers``: local processes running a comparison's fits."""
-    parser.add_argument("--workers", type=int, default=None, metavar="N",
-                        help="worker processes running the law fits (default: one per processor core); the "
-                        "results do not depend on it")
+    parser.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        metavar="N",
+        help="worker processes running the law fits (default: one per processor core); the "
+        "results do not depend on it",
+    )
 
 
 def table_from_args(args: argparse.Namespace) -> JunctionTable:

@@ -11,7 +11,15 @@ from __future__ import annotations
 from allobranch.comparison.laws import CLASSIC_LAWS, Law, parse_law, resolve_laws
 from allobranch.comparison.rope import DEFAULT_DELTA
 
-__all__ = ["CLASSIC_LAWS", "DEFAULT_DELTA", "Law", "LawComparison", "compare_laws", "parse_law", "resolve_laws"]
+__all__ = [
+    "CLASSIC_LAWS",
+    "DEFAULT_DELTA",
+    "Law",
+    "LawComparison",
+    "compare_laws",
+    "parse_law",
+    "resolve_laws",
+]
 
 
 def __getattr__(name: str):

@@ -55,8 +55,15 @@ MIN_NEAR_DRAWS = 10.0
 #: Factors applied to the prior scales ``mu_sd`` and ``tau_taxon`` for the sensitivity columns.
 SENSITIVITY: dict[str, float] = {"narrow": 0.5, "wide": 2.0}
 #: Columns of :func:`bayes_factor_table`.
-BF_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "log10_bf", "bf_method", "log10_bf_narrow",
-                               "log10_bf_wide")
+BF_COLUMNS: tuple[str, ...] = (
+    "scope",
+    "law",
+    "value",
+    "log10_bf",
+    "bf_method",
+    "log10_bf_narrow",
+    "log10_bf_wide",
+)
 #: One-line caveat shown beside the numbers.
 CAVEAT = (
     "Savage-Dickey Bayes factors (posterior / prior density at the law, from the free fit) depend on the "
@@ -121,8 +128,9 @@ def log_prior_taxon(value: float, priors: Priors, *, seed: int = 0, n_draws: int
     return float(logsumexp(logs) - np.log(n_draws))
 
 
-def log_posterior_density(draws: np.ndarray, value: float,
-                          log_weights: np.ndarray | None = None) -> tuple[float, str, float]:
+def log_posterior_density(
+    draws: np.ndarray, value: float, log_weights: np.ndarray | None = None
+) -> tuple[float, str, float]:
     """Log posterior density at ``value`` from (optionally weighted) draws.
 
     Parameters
@@ -157,8 +165,9 @@ def log_posterior_density(draws: np.ndarray, value: float,
     return float(stats.norm.logpdf(value, mean, sd)), "normal_approx", near
 
 
-def savage_dickey(draws: np.ndarray, value: float, log_prior: float,
-                  log_weights: np.ndarray | None = None) -> SavageDickey:
+def savage_dickey(
+    draws: np.ndarray, value: float, log_prior: float, log_weights: np.ndarray | None = None
+) -> SavageDickey:
     """Savage–Dickey Bayes factor of ``theta = value`` against the free model.
 
     Parameters
@@ -198,7 +207,11 @@ def prior_log_ratio(posterior, old: Priors, new: Priors) -> np.ndarray:
     out = stats.norm.logpdf(mu, new.mu_mean, new.mu_sd) - stats.norm.logpdf(mu, old.mu_mean, old.mu_sd)
     if "tau_taxon" in posterior:
         tau = posterior["tau_taxon"].values.ravel()
-        out = out + stats.halfnorm.logpdf(tau, scale=new.tau_taxon) - stats.halfnorm.logpdf(tau, scale=old.tau_taxon)
+        out = (
+            out
+            + stats.halfnorm.logpdf(tau, scale=new.tau_taxon)
+            - stats.halfnorm.logpdf(tau, scale=old.tau_taxon)
+        )
     return out
 
 
@@ -214,9 +227,15 @@ def _log_prior(value: float, priors: Priors, taxon: str | None, hierarchical: bo
     return log_prior_taxon(value, priors, seed=seed)
 
 
-def bayes_factor_table(idata: az.InferenceData, priors: Priors, laws: Sequence[Law],
-                       taxa: Sequence[str] | None = None, *, include_overall: bool = True,
-                       seed: int = 0) -> tuple[pd.DataFrame, list[str]]:
+def bayes_factor_table(
+    idata: az.InferenceData,
+    priors: Priors,
+    laws: Sequence[Law],
+    taxa: Sequence[str] | None = None,
+    *,
+    include_overall: bool = True,
+    seed: int = 0,
+) -> tuple[pd.DataFrame, list[str]]:
     """Savage–Dickey Bayes factors of every law, per scope, with their prior sensitivity.
 
     Parameters
@@ -249,18 +268,27 @@ def bayes_factor_table(idata: az.InferenceData, priors: Priors, laws: Sequence[L
             lw, k = az.psislw(prior_log_ratio(post, priors, new))
         weights[key] = (new, np.asarray(lw))
         if float(k) > good_k:
-            warnings.append(f"prior sensitivity ({key} prior, scales x{factor:g}) by reweighting is unreliable "
-                            f"(Pareto k = {float(k):.2f} > {good_k:.2f}); refit with that prior to check")
+            warnings.append(
+                f"prior sensitivity ({key} prior, scales x{factor:g}) by reweighting is unreliable "
+                f"(Pareto k = {float(k):.2f} > {good_k:.2f}); refit with that prior to check"
+            )
     scopes = ([None] if include_overall else []) + list(taxa or [])
     rows = []
     for taxon in scopes:
         draws = _parameter_draws(post, taxon)
         for law in laws:
             base = savage_dickey(draws, law.value, _log_prior(law.value, priors, taxon, hierarchical, seed))
-            row = {"scope": "overall" if taxon is None else str(taxon), "law": law.label, "value": law.value,
-                   "log10_bf": base.log10_bf, "bf_method": base.method}
+            row = {
+                "scope": "overall" if taxon is None else str(taxon),
+                "law": law.label,
+                "value": law.value,
+                "log10_bf": base.log10_bf,
+                "bf_method": base.method,
+            }
             for key, (new, lw) in weights.items():
-                alt = savage_dickey(draws, law.value, _log_prior(law.value, new, taxon, hierarchical, seed), lw)
+                alt = savage_dickey(
+                    draws, law.value, _log_prior(law.value, new, taxon, hierarchical, seed), lw
+                )
                 row[f"log10_bf_{key}"] = alt.log10_bf
             rows.append(row)
     return pd.DataFrame(rows, columns=list(BF_COLUMNS)), warnings

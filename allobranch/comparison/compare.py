@@ -21,15 +21,45 @@ from allobranch.model.spec import SAMPLER_DEFAULTS, ModelSpec
 
 #: Columns of :attr:`LawComparison.overall` (and of the long evidence table, for every scope).
 EVIDENCE_COLUMNS: tuple[str, ...] = (
-    "scope", "law", "value", "elpd", "elpd_se", "elpd_diff", "dse", "weight", "p_loo", "n_high_k",
-    "log10_bf", "bf_method", "log10_bf_narrow", "log10_bf_wide", "p_rope",
+    "scope",
+    "law",
+    "value",
+    "elpd",
+    "elpd_se",
+    "elpd_diff",
+    "dse",
+    "weight",
+    "p_loo",
+    "n_high_k",
+    "log10_bf",
+    "bf_method",
+    "log10_bf_narrow",
+    "log10_bf_wide",
+    "p_rope",
 )
 #: Columns of :meth:`LawComparison.laws_table` (what the law-comparison figure draws).
-LAWS_TABLE_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd", "elpd_diff", "dse", "weight",
-                                       "log10_bf", "p_rope")
+LAWS_TABLE_COLUMNS: tuple[str, ...] = (
+    "scope",
+    "law",
+    "value",
+    "elpd",
+    "elpd_diff",
+    "dse",
+    "weight",
+    "log10_bf",
+    "p_rope",
+)
 #: Per-law evidence columns of :attr:`LawComparison.by_taxon`, each suffixed ``_<label>``.
-BY_TAXON_LAW_COLUMNS: tuple[str, ...] = ("p_rope", "log10_bf", "log10_bf_narrow", "log10_bf_wide", "bf_method",
-                                         "elpd_diff", "dse", "weight")
+BY_TAXON_LAW_COLUMNS: tuple[str, ...] = (
+    "p_rope",
+    "log10_bf",
+    "log10_bf_narrow",
+    "log10_bf_wide",
+    "bf_method",
+    "elpd_diff",
+    "dse",
+    "weight",
+)
 
 
 @dataclass
@@ -77,16 +107,24 @@ class LawComparison:
         verdicts = self.verdicts.set_index("scope")
         for taxon in taxa:
             ev = self.evidence[self.evidence["scope"] == taxon].set_index("law")
-            row: dict = {"taxon": taxon, "verdict": verdicts.at[taxon, "verdict"],
-                         "reason": verdicts.at[taxon, "reason"]}
+            row: dict = {
+                "taxon": taxon,
+                "verdict": verdicts.at[taxon, "verdict"],
+                "reason": verdicts.at[taxon, "reason"],
+            }
             for law in self.laws:
                 row.update({f"{c}_{law.label}": ev.at[law.label, c] for c in BY_TAXON_LAW_COLUMNS})
             row.update({f"{c}_{FREE}": ev.at[FREE, c] for c in ("elpd_diff", "dse", "weight")})
             row["n_high_k"] = int(ev["n_high_k"].max())
             rows.append(row)
-        columns = ["taxon", "verdict", "reason",
-                   *(f"{c}_{law.label}" for law in self.laws for c in BY_TAXON_LAW_COLUMNS),
-                   *(f"{c}_{FREE}" for c in ("elpd_diff", "dse", "weight")), "n_high_k"]
+        columns = [
+            "taxon",
+            "verdict",
+            "reason",
+            *(f"{c}_{law.label}" for law in self.laws for c in BY_TAXON_LAW_COLUMNS),
+            *(f"{c}_{FREE}" for c in ("elpd_diff", "dse", "weight")),
+            "n_high_k",
+        ]
         return pd.DataFrame(rows, columns=columns)
 
     def laws_table(self) -> pd.DataFrame:
@@ -99,23 +137,47 @@ class LawComparison:
         s = self.settings
         law_list = ", ".join(f"{law.label} (a = {law.value:g})" for law in self.laws)
         lines = [
-            "# Branching-law comparison", "",
+            "# Branching-law comparison",
+            "",
             f"Laws: {law_list}; free model: exponent estimated. ROPE half-width delta = {self.delta:g}.",
             f"Fits: {s.get('n_fits')} (draws {s.get('draws')}, tune {s.get('tune')}, chains {s.get('chains')}, "
-            f"seed {s.get('seed')}); runtime {s.get('seconds', float('nan')):.0f} s.", "",
-            "## Verdicts", "", self.verdicts.to_markdown(**fmt), "",
+            f"seed {s.get('seed')}); runtime {s.get('seconds', float('nan')):.0f} s.",
+            "",
+            "## Verdicts",
+            "",
+            self.verdicts.to_markdown(**fmt),
+            "",
         ]
         if not self.overall.empty:
             lines += ["## Overall (all taxa share the exponent)", "", self.overall.to_markdown(**fmt), ""]
         by_taxon = self.by_taxon
         if not by_taxon.empty:
-            keep = ["taxon", "verdict", *(f"{c}_{law.label}" for law in self.laws
-                                          for c in ("p_rope", "log10_bf", "elpd_diff"))]
-            lines += ["## By taxon (one taxon's exponent fixed at a time)", "", by_taxon[keep].to_markdown(**fmt),
-                      "", "Full per-taxon evidence (Bayes-factor sensitivity, weights): laws_by_taxon.csv / "
-                      "`LawComparison.by_taxon`.", ""]
-        lines += ["## Decision rule", "", verdict.RULE, "", "## Caveats", "",
-                  f"- {loo.CAVEAT}", f"- {bayes_factor.CAVEAT}", f"- {rope.CAVEAT}", ""]
+            keep = [
+                "taxon",
+                "verdict",
+                *(f"{c}_{law.label}" for law in self.laws for c in ("p_rope", "log10_bf", "elpd_diff")),
+            ]
+            lines += [
+                "## By taxon (one taxon's exponent fixed at a time)",
+                "",
+                by_taxon[keep].to_markdown(**fmt),
+                "",
+                "Full per-taxon evidence (Bayes-factor sensitivity, weights): laws_by_taxon.csv / "
+                "`LawComparison.by_taxon`.",
+                "",
+            ]
+        lines += [
+            "## Decision rule",
+            "",
+            verdict.RULE,
+            "",
+            "## Caveats",
+            "",
+            f"- {loo.CAVEAT}",
+            f"- {bayes_factor.CAVEAT}",
+            f"- {rope.CAVEAT}",
+            "",
+        ]
         lines += ["## Warnings", ""] + ([f"- {w}" for w in self.warnings] or ["- none"])
         return "\n".join(lines) + "\n"
 
@@ -128,8 +190,9 @@ def _check_scopes(scopes: Iterable[str]) -> tuple[str, ...]:
     return scopes
 
 
-def _free_fit(table_or_fit: JunctionTable | FitResult, fit: FitResult | None, spec: ModelSpec | None
-              ) -> tuple[FitResult | None, JunctionTable]:
+def _free_fit(
+    table_or_fit: JunctionTable | FitResult, fit: FitResult | None, spec: ModelSpec | None
+) -> tuple[FitResult | None, JunctionTable]:
     """The given free model's fit (None when it is to be fitted here) and the table to fit the laws to."""
     if isinstance(table_or_fit, FitResult):
         if fit is not None:
@@ -140,15 +203,21 @@ def _free_fit(table_or_fit: JunctionTable | FitResult, fit: FitResult | None, sp
         if fit is not None:
             made_from = fit.provenance.get("input_sha256")
             if made_from is not None and made_from != table.digest():
-                raise InputError("the saved fit was made from other data than this junction table (different "
-                                 "content hash): give the table and mapping the fit was made from, or refit")
+                raise InputError(
+                    "the saved fit was made from other data than this junction table (different "
+                    "content hash): give the table and mapping the fit was made from, or refit"
+                )
     else:
-        raise InputError(f"compare_laws needs a JunctionTable or a FitResult, got {type(table_or_fit).__name__}")
+        raise InputError(
+            f"compare_laws needs a JunctionTable or a FitResult, got {type(table_or_fit).__name__}"
+        )
     if fit is not None:
         if fit.spec.fixed_exponent is not None or fit.spec.fixed_taxa:
             raise InputError("the given fit has a fixed exponent; the comparison needs the free model's fit")
         if spec is not None and spec != fit.spec:
-            raise InputError("spec differs from the given fit's specification; leave spec out to use the fit's")
+            raise InputError(
+                "spec differs from the given fit's specification; leave spec out to use the fit's"
+            )
         return fit, table
     if spec is not None and (spec.fixed_exponent is not None or spec.fixed_taxa):
         raise InputError("spec must describe the free model: leave fixed_exponent and fixed_taxa empty")
@@ -161,24 +230,40 @@ def _law_fit_warning(result: FitResult, law: str, scope: str) -> str | None:
         return None
     where = "overall" if scope == OVERALL else f"taxon {scope}"
     problems = "; ".join(w.split(". ")[0] for w in result.warnings)
-    return (f"fit of {law} ({where}): {problems} -> its LOO terms are less trustworthy; run longer "
-            "(--draws/--tune)")
+    return (
+        f"fit of {law} ({where}): {problems} -> its LOO terms are less trustworthy; run longer "
+        "(--draws/--tune)"
+    )
 
 
-def _scope_rows(scope: str, loo_result: loo.LooComparison, bf: pd.DataFrame, draws: np.ndarray,
-                laws: Sequence[Law], delta: float) -> list[dict]:
+def _scope_rows(
+    scope: str,
+    loo_result: loo.LooComparison,
+    bf: pd.DataFrame,
+    draws: np.ndarray,
+    laws: Sequence[Law],
+    delta: float,
+) -> list[dict]:
     rows = []
     for label, stats in loo_result.table.iterrows():
         row = {"scope": scope, "law": label, **stats.to_dict()}
         law = next((law for law in laws if law.label == label), None)
         if law is None:
-            row.update(value=np.nan, log10_bf=np.nan, bf_method="", log10_bf_narrow=np.nan,
-                       log10_bf_wide=np.nan, p_rope=np.nan)
+            row.update(
+                value=np.nan,
+                log10_bf=np.nan,
+                bf_method="",
+                log10_bf_narrow=np.nan,
+                log10_bf_wide=np.nan,
+                p_rope=np.nan,
+            )
         else:
             b = bf[(bf["scope"] == scope) & (bf["law"] == label)].iloc[0]
-            row.update(value=law.value, **{c: b[c] for c in ("log10_bf", "bf_method", "log10_bf_narrow",
-                                                             "log10_bf_wide")},
-                       p_rope=rope.p_rope(draws, law.value, delta))
+            row.update(
+                value=law.value,
+                **{c: b[c] for c in ("log10_bf", "bf_method", "log10_bf_narrow", "log10_bf_wide")},
+                p_rope=rope.p_rope(draws, law.value, delta),
+            )
         rows.append(row)
     return rows
 
@@ -280,10 +365,14 @@ def compare_laws(
     given = fit if fit is not None else (table_or_fit if isinstance(table_or_fit, FitResult) else None)
     base = given.settings if given is not None else {}
     defaults = SAMPLER_DEFAULTS
-    sampler_kw = {"draws": int(draws or base.get("draws", defaults["draws"])),
-                  "tune": int(tune or base.get("tune", defaults["tune"])),
-                  "chains": int(chains or base.get("chains", defaults["chains"])), "sampler": sampler,
-                  "target_accept": float(target_accept or defaults["target_accept"]), "escalate": bool(escalate)}
+    sampler_kw = {
+        "draws": int(draws or base.get("draws", defaults["draws"])),
+        "tune": int(tune or base.get("tune", defaults["tune"])),
+        "chains": int(chains or base.get("chains", defaults["chains"])),
+        "sampler": sampler,
+        "target_accept": float(target_accept or defaults["target_accept"]),
+        "escalate": bool(escalate),
+    }
     given_fit, table = _free_fit(table_or_fit, fit, spec)
     taxa = [str(t) for t in table.taxa]
     if "taxon" in scopes and "overall" in taxa:
@@ -292,14 +381,17 @@ def compare_laws(
     plan = jobs.plan_jobs(laws, taxa, scopes, seed, include_free=given_fit is None)
     log = jobs.stderr_log(progress)
     log(f"{len(plan)} fits to run")
-    fits = jobs.run_jobs(table, free_spec, plan, {**sampler_kw, "progress": False}, workers=workers,
-                         executor=executor, log=log)
+    fits = jobs.run_jobs(
+        table, free_spec, plan, {**sampler_kw, "progress": False}, workers=workers, executor=executor, log=log
+    )
     free = given_fit if given_fit is not None else fits[(jobs.OVERALL, FREE)]
 
     warnings = rope.overlapping_laws(laws, delta)
     warnings += [f"fit of the free model: {w}" for w in free.warnings]
     per_scope: dict[str, dict] = {}
-    scope_names = [scope for scope in [OVERALL, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)]
+    scope_names = [
+        scope for scope in [OVERALL, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)
+    ]
     for scope in scope_names:
         per_scope[scope] = {FREE: free.idata}
         for law in laws:
@@ -316,8 +408,13 @@ def compare_laws(
     n_fits = len(plan)
 
     bf, bf_warnings = bayes_factor.bayes_factor_table(
-        free.idata, free.spec.priors, laws, taxa if "taxon" in scopes else None,
-        include_overall="overall" in scopes, seed=seed)
+        free.idata,
+        free.spec.priors,
+        laws,
+        taxa if "taxon" in scopes else None,
+        include_overall="overall" in scopes,
+        seed=seed,
+    )
     warnings += bf_warnings
     post = free.idata.posterior
     rows = []
@@ -330,11 +427,25 @@ def compare_laws(
         rows += _scope_rows(scope, result, bf, draws_, laws, delta)
     tail = bf[bf["bf_method"] == "normal_approx"]
     if len(tail):
-        warnings.append(f"{len(tail)} Bayes factor(s) use a normal approximation to the posterior (the law lies "
-                        "in the far tail of the draws): only their order of magnitude is meaningful")
+        warnings.append(
+            f"{len(tail)} Bayes factor(s) use a normal approximation to the posterior (the law lies "
+            "in the far tail of the draws): only their order of magnitude is meaningful"
+        )
     evidence = pd.DataFrame(rows, columns=list(EVIDENCE_COLUMNS))
-    settings = {**sampler_kw, "seed": seed, "taxa": taxa, "scopes": list(scopes),
-                "n_fits": n_fits,
-                "seconds": round(time.perf_counter() - started, 1)}
-    return LawComparison(evidence=evidence, verdicts=verdict.verdict_table(evidence), laws=laws, delta=delta,
-                         warnings=warnings, settings=settings, free_fit=free)
+    settings = {
+        **sampler_kw,
+        "seed": seed,
+        "taxa": taxa,
+        "scopes": list(scopes),
+        "n_fits": n_fits,
+        "seconds": round(time.perf_counter() - started, 1),
+    }
+    return LawComparison(
+        evidence=evidence,
+        verdicts=verdict.verdict_table(evidence),
+        laws=laws,
+        delta=delta,
+        warnings=warnings,
+        settings=settings,
+        free_fit=free,
+    )

@@ -8,13 +8,13 @@ passes (for example a distributed engine's executor).
 
 from __future__ import annotations
 
+import multiprocessing
 import os
 import sys
 import zlib
 from collections.abc import Callable, Sequence
 from concurrent.futures import Executor, ProcessPoolExecutor
 from dataclasses import dataclass
-import multiprocessing
 
 import numpy as np
 
@@ -70,8 +70,9 @@ def job_seed(seed: int, scope: str, law: str) -> int:
     return int(np.random.SeedSequence(words).generate_state(1)[0] % (2**31 - 1))
 
 
-def plan_jobs(laws: Sequence[Law], taxa: Sequence[str], scopes: Sequence[str], seed: int,
-              include_free: bool = True) -> list[FitJob]:
+def plan_jobs(
+    laws: Sequence[Law], taxa: Sequence[str], scopes: Sequence[str], seed: int, include_free: bool = True
+) -> list[FitJob]:
     """Every fit a comparison needs: the free model (unless given), then each law per scope.
 
     With one taxon the taxon scope is the overall one (the same models), so it adds no jobs.
@@ -99,9 +100,16 @@ def default_workers(n_jobs: int) -> int:
     return max(1, min(n_jobs, os.cpu_count() or 1))
 
 
-def run_jobs(table: JunctionTable, free_spec: ModelSpec, jobs: Sequence[FitJob], sampler_kw: dict, *,
-             workers: int | None = None, executor: Executor | None = None,
-             log: Callable[[str], None] | None = None) -> dict[tuple[str, str], FitResult]:
+def run_jobs(
+    table: JunctionTable,
+    free_spec: ModelSpec,
+    jobs: Sequence[FitJob],
+    sampler_kw: dict,
+    *,
+    workers: int | None = None,
+    executor: Executor | None = None,
+    log: Callable[[str], None] | None = None,
+) -> dict[tuple[str, str], FitResult]:
     """Run the jobs and return their fits by key.
 
     Parameters
@@ -156,8 +164,10 @@ def run_jobs(table: JunctionTable, free_spec: ModelSpec, jobs: Sequence[FitJob],
             raise
         # worker processes could not start (typically a script without an `if __name__ == "__main__":`
         # guard, which spawned workers re-run): run the remaining jobs here; seeds make the results the same
-        log("worker processes could not start; running the fits in this process (add an "
-            "`if __name__ == \"__main__\":` guard to your script, or pass workers=1)")
+        log(
+            "worker processes could not start; running the fits in this process (add an "
+            '`if __name__ == "__main__":` guard to your script, or pass workers=1)'
+        )
         for job in jobs:
             if job.key not in results:
                 results[job.key] = run_job(table, free_spec, job, {**sampler_kw, "cores": None})
@@ -169,6 +179,7 @@ def run_jobs(table: JunctionTable, free_spec: ModelSpec, jobs: Sequence[FitJob],
 
 def stderr_log(progress: bool) -> Callable[[str], None]:
     """A logger printing to standard error when ``progress`` is set."""
+
     def log(message: str) -> None:
         if progress:
             print(f"[compare] {message}", file=sys.stderr, flush=True)

@@ -54,14 +54,19 @@ class Law:
 
     def __post_init__(self) -> None:
         if not LABEL_PATTERN.match(self.label):
-            raise InputError(f"law label {self.label!r}: use letters, digits and underscores, starting with a "
-                             "letter (e.g. turbulent=7/3)")
+            raise InputError(
+                f"law label {self.label!r}: use letters, digits and underscores, starting with a "
+                "letter (e.g. turbulent=7/3)"
+            )
         if self.label.lower() in RESERVED_LABELS:
-            raise InputError(f"law label {self.label!r} is reserved ({', '.join(RESERVED_LABELS)}); choose "
-                             "another label")
+            raise InputError(
+                f"law label {self.label!r} is reserved ({', '.join(RESERVED_LABELS)}); choose another label"
+            )
         lo, hi = VALUE_RANGE
         if not lo < float(self.value) < hi:
-            raise InputError(f"law {self.label!r}: exponent {self.value!r} must lie between {lo:g} and {hi:g}")
+            raise InputError(
+                f"law {self.label!r}: exponent {self.value!r} must lie between {lo:g} and {hi:g}"
+            )
         object.__setattr__(self, "value", float(self.value))
         if not self.name:
             object.__setattr__(self, "name", self.label)
@@ -133,8 +138,10 @@ def parse_law(text: str) -> Law:
     key = text.strip().lower()
     if key in ALIASES:
         return ALIASES[key]
-    raise InputError(f"unknown law {text!r}: give one of {', '.join(law.label for law in CLASSIC_LAWS)} or "
-                     "LABEL=VALUE (e.g. turbulent=7/3)")
+    raise InputError(
+        f"unknown law {text!r}: give one of {', '.join(law.label for law in CLASSIC_LAWS)} or "
+        "LABEL=VALUE (e.g. turbulent=7/3)"
+    )
 
 
 def resolve_laws(laws: Iterable[str | Law] | Mapping[str, float | str] | None = None) -> tuple[Law, ...]:
@@ -171,8 +178,9 @@ def resolve_laws(laws: Iterable[str | Law] | Mapping[str, float | str] | None = 
         for law in out:
             key = getattr(law, attr)
             if key in seen:
-                raise InputError(f"laws {seen[key].label!r} and {law.label!r} share the {attr} {key!r}; give "
-                                 "each law once")
+                raise InputError(
+                    f"laws {seen[key].label!r} and {law.label!r} share the {attr} {key!r}; give each law once"
+                )
             seen[key] = law
     return tuple(sorted(out, key=lambda law: law.value))
 

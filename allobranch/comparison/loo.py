@@ -89,13 +89,20 @@ def compare_loo(idatas: Mapping[str, az.InferenceData], var_name: str = "loglik"
     for label, loo in loos.items():
         k = loo.pareto_k
         bad = np.asarray(k.values) > k_threshold
-        high_k[label] = [str(j) for j in np.asarray(k["junction"].values)[bad]] if "junction" in k.dims else []
-        rows.append({
-            "elpd": float(ranked.at[label, "elpd_loo"]), "elpd_se": float(ranked.at[label, "se"]),
-            "elpd_diff": float(ranked.at[label, "elpd_diff"]), "dse": float(ranked.at[label, "dse"]),
-            "weight": float(ranked.at[label, "weight"]), "p_loo": float(ranked.at[label, "p_loo"]),
-            "n_high_k": int(bad.sum()),
-        })
+        high_k[label] = (
+            [str(j) for j in np.asarray(k["junction"].values)[bad]] if "junction" in k.dims else []
+        )
+        rows.append(
+            {
+                "elpd": float(ranked.at[label, "elpd_loo"]),
+                "elpd_se": float(ranked.at[label, "se"]),
+                "elpd_diff": float(ranked.at[label, "elpd_diff"]),
+                "dse": float(ranked.at[label, "dse"]),
+                "weight": float(ranked.at[label, "weight"]),
+                "p_loo": float(ranked.at[label, "p_loo"]),
+                "n_high_k": int(bad.sum()),
+            }
+        )
     table = pd.DataFrame(rows, index=pd.Index(list(loos), name="law"), columns=list(LOO_COLUMNS))
     return LooComparison(table=table, high_k=high_k, k_threshold=k_threshold)
 
@@ -120,7 +127,9 @@ def high_k_warning(scope: str, result: LooComparison) -> str | None:
     shown = ", ".join(junctions[:MAX_NAMED_JUNCTIONS])
     more = f" and {len(junctions) - MAX_NAMED_JUNCTIONS} more" if len(junctions) > MAX_NAMED_JUNCTIONS else ""
     which = ", ".join(f"{label} ({len(js)})" for label, js in affected.items())
-    return (f"LOO UNRELIABLE in scope {scope}: Pareto k > {result.k_threshold:.2f} for {len(junctions)} "
-            f"junction(s) ({shown}{more}) in hypotheses {which}. Their ELPD terms are not trustworthy: inspect "
-            "these junctions (outliers?), refit without them, or check with a K-fold cross-validation by "
-            "specimen; the Bayes factors and P(ROPE) are not affected.")
+    return (
+        f"LOO UNRELIABLE in scope {scope}: Pareto k > {result.k_threshold:.2f} for {len(junctions)} "
+        f"junction(s) ({shown}{more}) in hypotheses {which}. Their ELPD terms are not trustworthy: inspect "
+        "these junctions (outliers?), refit without them, or check with a K-fold cross-validation by "
+        "specimen; the Bayes factors and P(ROPE) are not affected."
+    )

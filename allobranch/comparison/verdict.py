@@ -49,8 +49,15 @@ LOO_CLEAR_SE = 2.0
 #: Verdict labels besides a law's label.
 NONE, UNDECIDED = "none", "undecided"
 #: Columns of the evidence table a verdict reads.
-EVIDENCE_COLUMNS: tuple[str, ...] = ("law", "p_rope", "log10_bf", "log10_bf_narrow", "log10_bf_wide",
-                                     "elpd_diff", "dse")
+EVIDENCE_COLUMNS: tuple[str, ...] = (
+    "law",
+    "p_rope",
+    "log10_bf",
+    "log10_bf_narrow",
+    "log10_bf_wide",
+    "elpd_diff",
+    "dse",
+)
 #: The rule in one paragraph, for reports.
 RULE = (
     f"A law is declared when P(ROPE) >= {P_ROPE_DECLARE:g}, its Bayes factor against the free model is >= "
@@ -148,16 +155,22 @@ def decide(evidence: pd.DataFrame, scope: str) -> Verdict:
     passing = [row["law"] for _, row in laws.iterrows() if not law_failures(row)]
     if len(passing) == 1:
         row = laws[laws["law"] == passing[0]].iloc[0]
-        return Verdict(scope, str(passing[0]),
-                       f"{passing[0]}: P(ROPE) {row['p_rope']:.2f}, BF {10 ** _log10_bfs(row).min():.3g} "
-                       "(lowest over priors), not clearly worse by LOO")
+        return Verdict(
+            scope,
+            str(passing[0]),
+            f"{passing[0]}: P(ROPE) {row['p_rope']:.2f}, BF {10 ** _log10_bfs(row).min():.3g} "
+            "(lowest over priors), not clearly worse by LOO",
+        )
     if len(passing) > 1:
-        return Verdict(scope, UNDECIDED, f"laws {', '.join(map(str, passing))} all qualify (overlapping regions)")
+        return Verdict(
+            scope, UNDECIDED, f"laws {', '.join(map(str, passing))} all qualify (overlapping regions)"
+        )
     if all(law_rejected(row) for _, row in laws.iterrows()):
-        return Verdict(scope, NONE, f"every law has P(ROPE) <= {P_ROPE_REJECT:g} and BF <= 1/{1 / BF_REJECT:g}")
+        return Verdict(
+            scope, NONE, f"every law has P(ROPE) <= {P_ROPE_REJECT:g} and BF <= 1/{1 / BF_REJECT:g}"
+        )
     best = laws.sort_values("p_rope", ascending=False).iloc[0]
-    return Verdict(scope, UNDECIDED,
-                   f"closest law {best['law']}: {'; '.join(law_failures(best))}")
+    return Verdict(scope, UNDECIDED, f"closest law {best['law']}: {'; '.join(law_failures(best))}")
 
 
 def verdict_table(evidence: pd.DataFrame) -> pd.DataFrame:

@@ -32,8 +32,17 @@ NO_ROOT_REASONS: dict[str, str] = {
 
 #: Columns of :func:`junction_geometry`'s result, in order.
 GEOMETRY_COLUMNS: tuple[str, ...] = (
-    "taxon", "specimen", "junction", "source_row", "n_daughters", "exponent", "no_root_reason",
-    "ratio_large", "ratio_small", "asymmetry", "area_ratio",
+    "taxon",
+    "specimen",
+    "junction",
+    "source_row",
+    "n_daughters",
+    "exponent",
+    "no_root_reason",
+    "ratio_large",
+    "ratio_small",
+    "asymmetry",
+    "area_ratio",
 )
 
 
@@ -71,7 +80,9 @@ def solve_exponent(parent: np.ndarray, daughters: np.ndarray) -> tuple[np.ndarra
     parent = np.asarray(parent, dtype=float).reshape(-1)
     daughters = np.asarray(daughters, dtype=float)
     if daughters.ndim != 2 or daughters.shape[0] != parent.shape[0]:
-        raise ValueError(f"daughters must have shape (n, K) with n = {parent.shape[0]}; got {daughters.shape}")
+        raise ValueError(
+            f"daughters must have shape (n, K) with n = {parent.shape[0]}; got {daughters.shape}"
+        )
     n = parent.shape[0]
     exponent = np.full(n, np.nan)
     reason = np.full(n, None, dtype=object)
@@ -100,7 +111,8 @@ def solve_exponent(parent: np.ndarray, daughters: np.ndarray) -> tuple[np.ndarra
     inside = (g_lo > 0) & (g_hi < 0)
     if inside.any():
         res = elementwise.find_root(
-            _log_balance, (np.full(inside.sum(), lo), np.full(inside.sum(), hi)),
+            _log_balance,
+            (np.full(inside.sum(), lo), np.full(inside.sum(), hi)),
             args=tuple(c[inside] for c in cols),
         )
         idx = todo[inside]

@@ -50,14 +50,16 @@ def naive_summary(geometry: pd.DataFrame, by: Sequence[str] = ("taxon",)) -> pd.
     if not by or unknown:
         raise ValueError(f"by must be a non-empty subset of {GROUPING_COLUMNS}; got {tuple(by)}")
     grouped = geometry.groupby(by, sort=False)["exponent"]
-    out = pd.DataFrame({
-        "n_junctions": grouped.size(),
-        "n_no_root": grouped.apply(lambda s: int(s.isna().sum())),
-        "median": grouped.median(),
-        "q25": grouped.quantile(0.25),
-        "q75": grouped.quantile(0.75),
-        "mean": grouped.mean(),
-    })
+    out = pd.DataFrame(
+        {
+            "n_junctions": grouped.size(),
+            "n_no_root": grouped.apply(lambda s: int(s.isna().sum())),
+            "median": grouped.median(),
+            "q25": grouped.quantile(0.25),
+            "q75": grouped.quantile(0.75),
+            "mean": grouped.mean(),
+        }
+    )
     out.insert(2, "share_no_root", out["n_no_root"] / out["n_junctions"])
     out = out.reset_index()
     out["n_no_root"] = out["n_no_root"].astype(np.int64)

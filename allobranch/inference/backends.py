@@ -51,7 +51,6 @@ def compile_nutpie(model: pm.Model, var_names: list[str] | None = None) -> Any:
     nutpie compiled model
         Accepted by :func:`nutpie.sample`.
     """
-    import nutpie
 
     value_vars, names, slices, shapes, ndim = _flat_layout(model)
     joined = pt.dvector("__joined")
@@ -65,9 +64,7 @@ def compile_nutpie(model: pm.Model, var_names: list[str] | None = None) -> Any:
     out_names = [v.name for v in outputs]
     expand_outs = pytensor.graph.replace.graph_replace(outputs, replace, strict=False)
     expand_fn = compile_pymc([joined], expand_outs, mode="FAST_RUN", on_unused_input="ignore")
-    init_fn = make_initial_point_fn(
-        model=model, jitter_rvs=set(model.free_RVs), return_transformed=True
-    )
+    init_fn = make_initial_point_fn(model=model, jitter_rvs=set(model.free_RVs), return_transformed=True)
     x0 = np.concatenate([np.ravel(model.initial_point()[n]) for n in names])
     out_shapes = [tuple(np.shape(v)) for v in expand_fn(x0)]
     lock = threading.Lock()
@@ -115,7 +112,13 @@ def compile_nutpie(model: pm.Model, var_names: list[str] | None = None) -> Any:
 
 
 def sample_nutpie(
-    model: pm.Model, *, draws: int, tune: int, chains: int, seed: int, progress: bool,
+    model: pm.Model,
+    *,
+    draws: int,
+    tune: int,
+    chains: int,
+    seed: int,
+    progress: bool,
     target_accept: float,
 ) -> az.InferenceData:
     """Sample with nutpie; returns InferenceData with ``posterior`` and ``sample_stats``."""
@@ -123,22 +126,40 @@ def sample_nutpie(
 
     compiled = compile_nutpie(model)
     idata = nutpie.sample(
-        compiled, draws=draws, tune=tune, chains=chains, seed=seed, progress_bar=progress,
-        target_accept=target_accept, cores=min(chains, 2),
+        compiled,
+        draws=draws,
+        tune=tune,
+        chains=chains,
+        seed=seed,
+        progress_bar=progress,
+        target_accept=target_accept,
+        cores=min(chains, 2),
     )
     keep = [g for g in ("posterior", "sample_stats") if g in idata.groups()]
     return az.InferenceData(**{g: idata[g] for g in keep})
 
 
 def sample_pymc(
-    model: pm.Model, *, draws: int, tune: int, chains: int, seed: int, progress: bool,
+    model: pm.Model,
+    *,
+    draws: int,
+    tune: int,
+    chains: int,
+    seed: int,
+    progress: bool,
     target_accept: float,
 ) -> az.InferenceData:
     """Sample with PyMC's own NUTS."""
     with model:
         idata = pm.sample(
-            draws=draws, tune=tune, chains=chains, random_seed=seed, progressbar=progress,
-            target_accept=target_accept, cores=min(chains, 2), compute_convergence_checks=False,
+            draws=draws,
+            tune=tune,
+            chains=chains,
+            random_seed=seed,
+            progressbar=progress,
+            target_accept=target_accept,
+            cores=min(chains, 2),
+            compute_convergence_checks=False,
             idata_kwargs={"log_likelihood": False},
         )
     keep = [g for g in ("posterior", "sample_stats") if g in idata.groups()]

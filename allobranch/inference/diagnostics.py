@@ -68,7 +68,9 @@ def diagnostics_table(idata: az.InferenceData, var_names: list[str]) -> pd.DataF
         for label, ri, bi, ti, vi in zip(labels, r, b, t, varies):
             if not vi:  # a fixed value (e.g. a taxon's exponent fixed at a law) has nothing to check
                 continue
-            rows.append({"parameter": label, "r_hat": float(ri), "ess_bulk": float(bi), "ess_tail": float(ti)})
+            rows.append(
+                {"parameter": label, "r_hat": float(ri), "ess_bulk": float(bi), "ess_tail": float(ti)}
+            )
     out = pd.DataFrame(rows)
     out["ok"] = (out["r_hat"] <= RHAT_MAX) & (out["ess_bulk"] >= ESS_MIN) & (out["ess_tail"] >= ESS_MIN)
     return out

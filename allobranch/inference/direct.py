@@ -73,16 +73,34 @@ def compiled_model(density: FastDensity, init: np.ndarray, coords: dict[str, lis
     )
 
 
-def sample_direct(density: FastDensity, init: np.ndarray, coords: dict[str, list[str]], *, draws: int,
-                  tune: int, chains: int, seed: int, progress: bool, target_accept: float,
-                  cores: int | None = None) -> az.InferenceData:
+def sample_direct(
+    density: FastDensity,
+    init: np.ndarray,
+    coords: dict[str, list[str]],
+    *,
+    draws: int,
+    tune: int,
+    chains: int,
+    seed: int,
+    progress: bool,
+    target_accept: float,
+    cores: int | None = None,
+) -> az.InferenceData:
     """Sample a packed fast-form density with nutpie; returns ``posterior`` and ``sample_stats``."""
     import nutpie
 
     model = compiled_model(density, init, coords)
     if cores is None:
         cores = min(chains, os.cpu_count() or 1)
-    idata = nutpie.sample(model, draws=draws, tune=tune, chains=chains, seed=seed, progress_bar=progress,
-                          target_accept=target_accept, cores=max(1, int(cores)))
+    idata = nutpie.sample(
+        model,
+        draws=draws,
+        tune=tune,
+        chains=chains,
+        seed=seed,
+        progress_bar=progress,
+        target_accept=target_accept,
+        cores=max(1, int(cores)),
+    )
     keep = [g for g in ("posterior", "sample_stats") if g in idata.groups()]
     return az.InferenceData(**{g: idata[g] for g in keep})

@@ -5,8 +5,7 @@ from __future__ import annotations
 import json
 import platform
 import sys
-import warnings
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import arviz as az
 import numpy as np
@@ -36,9 +35,14 @@ def _versions() -> dict[str, str]:
     import allobranch
 
     return {
-        "allobranch": allobranch.__version__, "python": platform.python_version(), "numpy": np.__version__,
-        "pandas": pandas.__version__, "scipy": scipy.__version__, "pymc": pymc.__version__,
-        "arviz": az.__version__, "nutpie": getattr(nutpie, "__version__", "?"),
+        "allobranch": allobranch.__version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pandas": pandas.__version__,
+        "scipy": scipy.__version__,
+        "pymc": pymc.__version__,
+        "arviz": az.__version__,
+        "nutpie": getattr(nutpie, "__version__", "?"),
         "matplotlib": matplotlib.__version__,
     }
 
@@ -75,9 +79,7 @@ def add_pointwise(idata: az.InferenceData, built: BuiltModel, seed: int) -> az.I
             p = _draw_params(post, c, d, built)
             ll[c, d], mean, var = built.pointwise(**p)
             if k < len(keep) and keep[k] == d:
-                noise = (
-                    rng.standard_t(p["nu"], size=n) if built.student else rng.standard_normal(n)
-                )
+                noise = rng.standard_t(p["nu"], size=n) if built.student else rng.standard_normal(n)
                 pred[c, k] = mean + np.sqrt(var) * noise
                 k += 1
     coords = {"chain": post["chain"].values, "junction": built.data.junctions}
@@ -158,15 +160,29 @@ def fit(
     form = model_form(data, spec)
     sigma_asym = estimate_sigma_asym(data, float(data.rel_error or 0.0)) if form == "fast" else None
     arrays = data_arrays(data, form, sigma_asym)
-    started = datetime.now(timezone.utc)
+    started = datetime.now(UTC)
     layout = group_layout(data, spec, arrays if form == "fast" else None)
     notes: list[str] = []
     attempts: list[dict] = []
     kept = None
     for k, plan in enumerate(sampling.escalation_plan(spec, layout, target_accept, escalate)):
         (idata, used, attempt_notes), seconds = sampling.timed(
-            sampling.sample_once, data, spec, form, layout, arrays, sigma_asym, plan=plan, draws=draws,
-            tune=tune, chains=chains, seed=seed + 7919 * k, sampler=sampler, progress=progress, cores=cores)
+            sampling.sample_once,
+            data,
+            spec,
+            form,
+            layout,
+            arrays,
+            sigma_asym,
+            plan=plan,
+            draws=draws,
+            tune=tune,
+            chains=chains,
+            seed=seed + 7919 * k,
+            sampler=sampler,
+            progress=progress,
+            cores=cores,
+        )
         notes += [n for n in attempt_notes if n not in notes]
         record = sampling.attempt_record(idata, plan, layout, seconds)
         record["sampler"] = used
@@ -186,22 +202,40 @@ def fit(
             f"{index + 1} ({plan.parametrization}, target_accept {plan.target_accept})"
             + ("" if sampling.clean(attempts[index]) else "; no attempt was clean")
         )
-    seconds = (datetime.now(timezone.utc) - started).total_seconds()
-    built = BuiltModel(model=None, data=data, spec=spec, form=form, sigma_asym=sigma_asym, arrays=arrays,
-                       layout=sampling.attempt_layout(layout, plan))
+    seconds = (datetime.now(UTC) - started).total_seconds()
+    built = BuiltModel(
+        model=None,
+        data=data,
+        spec=spec,
+        form=form,
+        sigma_asym=sigma_asym,
+        arrays=arrays,
+        layout=sampling.attempt_layout(layout, plan),
+    )
     add_pointwise(idata, built, seed)
     settings = {
-        "draws": draws, "tune": tune, "chains": chains, "seed": seed, "sampler": used,
-        "target_accept": plan.target_accept, "seconds": round(seconds, 2), "form": built.form,
+        "draws": draws,
+        "tune": tune,
+        "chains": chains,
+        "seed": seed,
+        "sampler": used,
+        "target_accept": plan.target_accept,
+        "seconds": round(seconds, 2),
+        "form": built.form,
         "error_mode": data.error_mode,
         "parametrization": sampling.attempt_layout(layout, plan).describe(),
         "attempts": attempts,
         "sigma_asym_empirical": None if sigma_asym is None else dict(zip(data.taxa, map(float, sigma_asym))),
     }
     provenance = {
-        "created": started.isoformat(), "input_sha256": table.digest(), "source": table.source,
-        "mapping": table.mapping.to_dict(), "spec": spec.to_dict(), "settings": settings,
-        "versions": _versions(), "command": " ".join(sys.argv),
+        "created": started.isoformat(),
+        "input_sha256": table.digest(),
+        "source": table.source,
+        "mapping": table.mapping.to_dict(),
+        "spec": spec.to_dict(),
+        "settings": settings,
+        "versions": _versions(),
+        "command": " ".join(sys.argv),
     }
     idata.attrs["allobranch_provenance"] = json.dumps(provenance, default=str)
     return FitResult(idata=idata, table=table, spec=spec, settings=settings, notes=notes)

@@ -18,14 +18,25 @@ from allobranch.inference import diagnostics as dg
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.table import JunctionTable, ValidationReport
 from allobranch.intake.units import from_internal_radius
-from allobranch.model.structure import HYPER_PARAMETERS
 from allobranch.model.spec import ModelSpec
+from allobranch.model.structure import HYPER_PARAMETERS
 
 #: Default probability of the highest-density intervals.
 HDI_PROB = 0.9
 #: Columns of :meth:`FitResult.exponents`.
-EXPONENT_COLUMNS = ("level", "group", "taxon", "mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk",
-                    "ess_tail", "fixed")
+EXPONENT_COLUMNS = (
+    "level",
+    "group",
+    "taxon",
+    "mean",
+    "sd",
+    "hdi_low",
+    "hdi_high",
+    "r_hat",
+    "ess_bulk",
+    "ess_tail",
+    "fixed",
+)
 #: Plain-language meaning of each variance component.
 COMPONENTS = {
     "tau_taxon": "between-taxon SD of the exponent",
@@ -41,12 +52,23 @@ def _summ(draws: np.ndarray, hdi_prob: float) -> dict[str, float]:
     """Mean, SD and HDI of draws shaped (chain, draw)."""
     flat = draws.reshape(-1)
     if np.ptp(flat) == 0:
-        return {"mean": float(flat[0]), "sd": 0.0, "hdi_low": float(flat[0]), "hdi_high": float(flat[0]),
-                "r_hat": np.nan, "ess_bulk": np.nan, "ess_tail": np.nan}
+        return {
+            "mean": float(flat[0]),
+            "sd": 0.0,
+            "hdi_low": float(flat[0]),
+            "hdi_high": float(flat[0]),
+            "r_hat": np.nan,
+            "ess_bulk": np.nan,
+            "ess_tail": np.nan,
+        }
     lo, hi = az.hdi(flat, hdi_prob=hdi_prob)  # ArviZ HDI
     return {
-        "mean": float(flat.mean()), "sd": float(flat.std(ddof=1)), "hdi_low": float(lo), "hdi_high": float(hi),
-        "r_hat": float(az.rhat(draws)), "ess_bulk": float(az.ess(draws, method="bulk")),
+        "mean": float(flat.mean()),
+        "sd": float(flat.std(ddof=1)),
+        "hdi_low": float(lo),
+        "hdi_high": float(hi),
+        "r_hat": float(az.rhat(draws)),
+        "ess_bulk": float(az.ess(draws, method="bulk")),
         "ess_tail": float(az.ess(draws, method="tail")),
     }
 
@@ -86,18 +108,38 @@ class FitResult:
             Columns :data:`EXPONENT_COLUMNS`; ``attrs["hdi_prob"]`` records the HDI probability.
         """
         post = self.idata.posterior
-        rows = [{"level": "population", "group": "all", "taxon": "all", **_summ(post["mu"].values, hdi_prob),
-                 "fixed": self.spec.fixed_exponent is not None}]
+        rows = [
+            {
+                "level": "population",
+                "group": "all",
+                "taxon": "all",
+                **_summ(post["mu"].values, hdi_prob),
+                "fixed": self.spec.fixed_exponent is not None,
+            }
+        ]
         for i, t in enumerate(post["taxon"].values):
             fixed = self.spec.fixed_exponent is not None or str(t) in self.spec.fixed_taxa
-            rows.append({"level": "taxon", "group": str(t), "taxon": str(t),
-                         **_summ(post["a_taxon"].values[:, :, i], hdi_prob), "fixed": fixed})
+            rows.append(
+                {
+                    "level": "taxon",
+                    "group": str(t),
+                    "taxon": str(t),
+                    **_summ(post["a_taxon"].values[:, :, i], hdi_prob),
+                    "fixed": fixed,
+                }
+            )
         if "tau_specimen" in post:
             spec_taxon = self.table.specimens.set_index("specimen")["taxon"].astype(str)
             for i, s in enumerate(post["specimen"].values):
-                rows.append({"level": "specimen", "group": str(s), "taxon": spec_taxon[str(s)],
-                             **_summ(post["a_specimen"].values[:, :, i], hdi_prob),
-                             "fixed": spec_taxon[str(s)] in self.spec.fixed_taxa})
+                rows.append(
+                    {
+                        "level": "specimen",
+                        "group": str(s),
+                        "taxon": spec_taxon[str(s)],
+                        **_summ(post["a_specimen"].values[:, :, i], hdi_prob),
+                        "fixed": spec_taxon[str(s)] in self.spec.fixed_taxa,
+                    }
+                )
         out = pd.DataFrame(rows, columns=list(EXPONENT_COLUMNS))
         out.attrs["hdi_prob"] = hdi_prob
         return out
@@ -108,19 +150,55 @@ class FitResult:
         rows = []
         for name, text in COMPONENTS.items():
             if name in post:
-                rows.append({"component": name, "meaning": text, "source": "posterior",
-                             **_summ(post[name].values, hdi_prob)})
+                rows.append(
+                    {
+                        "component": name,
+                        "meaning": text,
+                        "source": "posterior",
+                        **_summ(post[name].values, hdi_prob),
+                    }
+                )
         mode = self.settings.get("error_mode")
         if mode == "known":
             rel = float(self.table.rel_error)
-            rows.append({"component": "sigma_meas", "meaning": "relative measurement error, given by the user",
-                         "source": "known", "mean": rel, "sd": 0.0, "hdi_low": rel, "hdi_high": rel})
+            rows.append(
+                {
+                    "component": "sigma_meas",
+                    "meaning": "relative measurement error, given by the user",
+                    "source": "known",
+                    "mean": rel,
+                    "sd": 0.0,
+                    "hdi_low": rel,
+                    "hdi_high": rel,
+                }
+            )
         for taxon, value in (self.settings.get("sigma_asym_empirical") or {}).items():
-            rows.append({"component": "sigma_asym", "meaning": f"{COMPONENTS['sigma_asym']}; taxon {taxon}",
-                         "source": "empirical (max. marginal likelihood)", "mean": value, "sd": np.nan,
-                         "hdi_low": np.nan, "hdi_high": np.nan})
-        out = pd.DataFrame(rows, columns=["component", "meaning", "source", "mean", "sd", "hdi_low", "hdi_high",
-                                          "r_hat", "ess_bulk", "ess_tail"])
+            rows.append(
+                {
+                    "component": "sigma_asym",
+                    "meaning": f"{COMPONENTS['sigma_asym']}; taxon {taxon}",
+                    "source": "empirical (max. marginal likelihood)",
+                    "mean": value,
+                    "sd": np.nan,
+                    "hdi_low": np.nan,
+                    "hdi_high": np.nan,
+                }
+            )
+        out = pd.DataFrame(
+            rows,
+            columns=[
+                "component",
+                "meaning",
+                "source",
+                "mean",
+                "sd",
+                "hdi_low",
+                "hdi_high",
+                "r_hat",
+                "ess_bulk",
+                "ess_tail",
+            ],
+        )
         out.attrs["hdi_prob"] = hdi_prob
         return out
 
@@ -166,8 +244,9 @@ class FitResult:
     def naive_vs_model(self, hdi_prob: float = HDI_PROB) -> pd.DataFrame:
         """Taxon exponents from the model beside the naive per-junction summary (which ignores error)."""
         naive = naive_summary(self.geometry(), by=("taxon",))
-        naive = naive.rename(columns={"median": "naive_median", "q25": "naive_q25", "q75": "naive_q75",
-                                      "mean": "naive_mean"})
+        naive = naive.rename(
+            columns={"median": "naive_median", "q25": "naive_q25", "q75": "naive_q75", "mean": "naive_mean"}
+        )
         model = self.exponents(hdi_prob)
         model = model[model["level"] == "taxon"]
         keep = ["taxon", "naive_median", "naive_q25", "naive_q75", "naive_mean", "n_junctions", "n_no_root"]
@@ -185,8 +264,16 @@ class FitResult:
         step = max(1, len(pred) // max_draws)
         frames = [pd.DataFrame({"taxon": taxa, "source": "observed", "value": obs, "draw": -1})]
         for k, row in enumerate(pred[::step][:max_draws]):
-            frames.append(pd.DataFrame({"taxon": taxa, "source": "predicted",
-                                        "value": from_internal_radius(np.exp(row), unit), "draw": k}))
+            frames.append(
+                pd.DataFrame(
+                    {
+                        "taxon": taxa,
+                        "source": "predicted",
+                        "value": from_internal_radius(np.exp(row), unit),
+                        "draw": k,
+                    }
+                )
+            )
         return pd.concat(frames, ignore_index=True)
 
     @property
@@ -216,7 +303,7 @@ class FitResult:
         return path
 
     @classmethod
-    def load(cls, path: str | os.PathLike) -> "FitResult":
+    def load(cls, path: str | os.PathLike) -> FitResult:
         """Read a result written by :meth:`save`.
 
         Parameters
@@ -237,11 +324,14 @@ class FitResult:
         """
         path = Path(path)
         if not path.is_file():
-            raise _load_error(path, "no saved fit here", "give the fit.nc written by 'allobranch fit'",
-                              "file_not_found")
+            raise _load_error(
+                path, "no saved fit here", "give the fit.nc written by 'allobranch fit'", "file_not_found"
+            )
         try:
             idata = az.from_netcdf(path)
-        except Exception as exc:  # h5py, h5netcdf and xarray raise many unrelated types for foreign or damaged files
+        except (
+            Exception
+        ) as exc:  # h5py, h5netcdf and xarray raise many unrelated types for foreign or damaged files
             raise _not_a_fit(path, exc) from None
         try:
             return cls._from_saved(idata)
@@ -249,20 +339,33 @@ class FitResult:
             raise _not_a_fit(path, exc) from None
 
     @classmethod
-    def _from_saved(cls, idata: az.InferenceData) -> "FitResult":
+    def _from_saved(cls, idata: az.InferenceData) -> FitResult:
         """Rebuild a result from the attributes :meth:`save` wrote (KeyError etc. when they are not there)."""
         attrs = idata.attrs
         prov = json.loads(attrs["allobranch_provenance"])
         data = _read_exact_csv(attrs["allobranch_table"])
         rep = pd.read_json(_io(attrs["allobranch_report"]), orient="split")
         repeats = _read_exact_csv(attrs["allobranch_repeats"]) if "allobranch_repeats" in attrs else None
-        problems = [Problem(**{k: (None if pd.isna(v) else v) for k, v in r.items()}) for r in rep.to_dict("records")]
-        mapping = ColumnMapping(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in prov["mapping"].items()})
-        table = JunctionTable(data=data, mapping=mapping, report=ValidationReport(problems=problems),
-                              source=prov.get("source", "<DataFrame>"), repeats=repeats)
-        return cls(idata=idata, table=table, spec=ModelSpec.from_dict(prov["spec"]),
-                   settings=json.loads(attrs.get("allobranch_settings", "{}")),
-                   notes=json.loads(attrs.get("allobranch_notes", "[]")))
+        problems = [
+            Problem(**{k: (None if pd.isna(v) else v) for k, v in r.items()}) for r in rep.to_dict("records")
+        ]
+        mapping = ColumnMapping(
+            **{k: (tuple(v) if isinstance(v, list) else v) for k, v in prov["mapping"].items()}
+        )
+        table = JunctionTable(
+            data=data,
+            mapping=mapping,
+            report=ValidationReport(problems=problems),
+            source=prov.get("source", "<DataFrame>"),
+            repeats=repeats,
+        )
+        return cls(
+            idata=idata,
+            table=table,
+            spec=ModelSpec.from_dict(prov["spec"]),
+            settings=json.loads(attrs.get("allobranch_settings", "{}")),
+            notes=json.loads(attrs.get("allobranch_notes", "[]")),
+        )
 
 
 def _load_error(path: Path, message: str, hint: str, code: str) -> InputError:
@@ -273,9 +376,12 @@ def _not_a_fit(path: Path, exc: Exception) -> InputError:
     """The error for a file that :meth:`FitResult.load` cannot read as a saved fit; names the cause briefly."""
     cause = str(exc).splitlines()[0][:160] if str(exc) else ""
     reason = f"{type(exc).__name__}: {cause}" if cause else type(exc).__name__
-    return _load_error(path, f"not a saved allobranch fit or damaged ({reason})",
-                       "refit with 'allobranch fit' (or allobranch.fit in Python), or give the fit.nc that it wrote",
-                       "not_a_fit")
+    return _load_error(
+        path,
+        f"not a saved allobranch fit or damaged ({reason})",
+        "refit with 'allobranch fit' (or allobranch.fit in Python), or give the fit.nc that it wrote",
+        "not_a_fit",
+    )
 
 
 #: Text columns of saved tables.

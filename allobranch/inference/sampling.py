@@ -39,8 +39,9 @@ class AttemptPlan:
     target_accept: float
 
 
-def escalation_plan(spec: ModelSpec, layout: GroupLayout, target_accept: float, escalate: bool
-                    ) -> list[AttemptPlan]:
+def escalation_plan(
+    spec: ModelSpec, layout: GroupLayout, target_accept: float, escalate: bool
+) -> list[AttemptPlan]:
     """The attempts to try in order (only the first unless ``escalate``).
 
     With ``parametrization="auto"`` the second attempt flips to the extreme the pilot leaned away from
@@ -71,8 +72,9 @@ def attempt_layout(layout: GroupLayout, plan: AttemptPlan) -> GroupLayout:
     return layout if plan.parametrization == "auto" else layout.with_weights(plan.parametrization)
 
 
-def initial_point(density_layout, layout: GroupLayout, spec: ModelSpec, specimen_taxon_idx: np.ndarray
-                  ) -> np.ndarray:
+def initial_point(
+    density_layout, layout: GroupLayout, spec: ModelSpec, specimen_taxon_idx: np.ndarray
+) -> np.ndarray:
     """Centre of the chains' starting points on the unconstrained scale, from the pilot.
 
     Raw group values are set so that the exponents equal the pilot's, their standardised deviations clipped
@@ -94,8 +96,10 @@ def initial_point(density_layout, layout: GroupLayout, spec: ModelSpec, specimen
         x[pos["mu"]] = mu  # ("mu_z", the conditioned form, starts at its centre, 0)
     a_taxon = np.where(layout.fixed_taxa, layout.fixed_values, np.clip(pe.a_taxon, 0.5, 6.0))
     if layout.whiten:  # standardised deviations start at 0 (the conditional means), spreads at the pilot's
-        for name, prior, tau in (("tau_taxon_log__", pr.tau_taxon, pe.tau_taxon),
-                                 ("tau_specimen_log__", pr.tau_specimen, pe.tau_specimen)):
+        for name, prior, tau in (
+            ("tau_taxon_log__", pr.tau_taxon, pe.tau_taxon),
+            ("tau_specimen_log__", pr.tau_specimen, pe.tau_specimen),
+        ):
             if name in pos:
                 x[pos[name]] = np.log(max(float(tau), 0.1 * prior))
         x[pos["sigma_dev_log__"]] = np.log(np.clip(pe.sigma_dev, 1e-3, 1.0))
@@ -105,34 +109,52 @@ def initial_point(density_layout, layout: GroupLayout, spec: ModelSpec, specimen
     if "r_taxon" in pos:
         tau = max(float(pe.tau_taxon), 0.1 * pr.tau_taxon)
         x[pos["tau_taxon_log__"]] = np.log(tau)
-        x[pos["r_taxon"]] = np.where(layout.fixed_taxa, 0.0,
-                                     raw(a_taxon, np.full_like(a_taxon, mu), tau, layout.w_taxon))
+        x[pos["r_taxon"]] = np.where(
+            layout.fixed_taxa, 0.0, raw(a_taxon, np.full_like(a_taxon, mu), tau, layout.w_taxon)
+        )
     if "r_specimen" in pos:
         tau = max(float(pe.tau_specimen), 0.1 * pr.tau_specimen)
         parent = a_taxon[np.asarray(specimen_taxon_idx)]
         x[pos["tau_specimen_log__"]] = np.log(tau)
-        x[pos["r_specimen"]] = np.where(layout.pinned, 0.0,
-                                        raw(np.clip(pe.a_specimen, 0.5, 6.0), parent, tau, layout.w_specimen))
+        x[pos["r_specimen"]] = np.where(
+            layout.pinned, 0.0, raw(np.clip(pe.a_specimen, 0.5, 6.0), parent, tau, layout.w_specimen)
+        )
     x[pos["sigma_dev_log__"]] = np.log(np.clip(pe.sigma_dev, 1e-3, 1.0))
     if "nu_log__" in pos:
         x[pos["nu_log__"]] = np.log(20.0)
     return x
 
 
-def sample_once(data: ModelData, spec: ModelSpec, form: str, layout: GroupLayout, arrays: dict,
-                sigma_asym: np.ndarray | None, *, plan: AttemptPlan, draws: int, tune: int, chains: int,
-                seed: int, sampler: str, progress: bool, cores: int | None = None
-                ) -> tuple[az.InferenceData, str, list[str]]:
+def sample_once(
+    data: ModelData,
+    spec: ModelSpec,
+    form: str,
+    layout: GroupLayout,
+    arrays: dict,
+    sigma_asym: np.ndarray | None,
+    *,
+    plan: AttemptPlan,
+    draws: int,
+    tune: int,
+    chains: int,
+    seed: int,
+    sampler: str,
+    progress: bool,
+    cores: int | None = None,
+) -> tuple[az.InferenceData, str, list[str]]:
     """Run one attempt; returns the draws, the sampler actually used and notes (e.g. a fallback)."""
     lay = attempt_layout(layout, plan)
-    kwargs = dict(draws=draws, tune=tune, chains=chains, seed=seed, progress=progress,
-                  target_accept=plan.target_accept)
+    kwargs = dict(
+        draws=draws, tune=tune, chains=chains, seed=seed, progress=progress, target_accept=plan.target_accept
+    )
     notes: list[str] = []
     if sampler == "nutpie" and form == "fast":
         try:
             return _sample_fast(data, spec, lay, arrays, {**kwargs, "cores": cores}), "nutpie", notes
         except Exception as exc:  # noqa: BLE001 - any failure of the fast path falls back, loudly
-            warnings.warn(f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2)
+            warnings.warn(
+                f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2
+            )
             notes.append(f"nutpie failed ({type(exc).__name__}); sampled with PyMC's NUTS instead")
             sampler = "pymc"
     from allobranch.inference.backends import sample_nutpie, sample_pymc
@@ -143,22 +165,33 @@ def sample_once(data: ModelData, spec: ModelSpec, form: str, layout: GroupLayout
         try:
             return sample_nutpie(built.model, **kwargs), "nutpie", notes
         except Exception as exc:  # noqa: BLE001
-            warnings.warn(f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2)
+            warnings.warn(
+                f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2
+            )
             notes.append(f"nutpie failed ({type(exc).__name__}); sampled with PyMC's NUTS instead")
     return sample_pymc(built.model, **kwargs), "pymc", notes
 
 
-def _sample_fast(data: ModelData, spec: ModelSpec, layout: GroupLayout, arrays: dict, kwargs: dict
-                 ) -> az.InferenceData:
+def _sample_fast(
+    data: ModelData, spec: ModelSpec, layout: GroupLayout, arrays: dict, kwargs: dict
+) -> az.InferenceData:
     from allobranch.inference.direct import sample_direct
     from allobranch.model.density import pack
 
     density = pack(
-        arrays, specimen_taxon_idx=data.specimen_taxon_idx, n_taxa=len(data.taxa),
-        taxon_level=layout.taxon_level, specimen_level=layout.specimen_level,
-        student=spec.deviation == "student_t", priors=spec.priors, fixed_exponent=spec.fixed_exponent,
-        fixed_taxa_mask=layout.fixed_taxa, fixed_taxa_values=layout.fixed_values, w_taxon=layout.w_taxon,
-        w_specimen=layout.w_specimen, condition_mu=layout.condition_mu,
+        arrays,
+        specimen_taxon_idx=data.specimen_taxon_idx,
+        n_taxa=len(data.taxa),
+        taxon_level=layout.taxon_level,
+        specimen_level=layout.specimen_level,
+        student=spec.deviation == "student_t",
+        priors=spec.priors,
+        fixed_exponent=spec.fixed_exponent,
+        fixed_taxa_mask=layout.fixed_taxa,
+        fixed_taxa_values=layout.fixed_values,
+        w_taxon=layout.w_taxon,
+        w_specimen=layout.w_specimen,
+        condition_mu=layout.condition_mu,
         whiten=_pilot_precision(layout) if layout.whiten else None,
     )
     init = initial_point(density.layout, layout, spec, data.specimen_taxon_idx)

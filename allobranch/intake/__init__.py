@@ -58,8 +58,18 @@ def resolve_mapping(
         If both a mapping and a recipe are given, or the result is inconsistent.
     """
     if mapping is not None and recipe is not None:
-        raise RecipeError([Problem("fatal", str(recipe), None, None, "both a mapping and a recipe were given",
-                                   "give one of them; use keyword arguments to override single fields")])
+        raise RecipeError(
+            [
+                Problem(
+                    "fatal",
+                    str(recipe),
+                    None,
+                    None,
+                    "both a mapping and a recipe were given",
+                    "give one of them; use keyword arguments to override single fields",
+                )
+            ]
+        )
     base = load_recipe(recipe) if recipe is not None else mapping
     return mapping_from_options(base=base, **mapping_kwargs)
 
@@ -75,9 +85,20 @@ def _read_repeats(spec: str, main: RawTable, encoding: str | None) -> RawTable:
         return read_table(main.path, sheet=spec)
     where = f" (looked in {path.parent})" if main.path is not None else ""
     sheets = f", nor a sheet of {main.label}" if main.kind == "excel" else ""
-    raise InputError([Problem("fatal", spec, None, None, f"repeat-readings file not found{where}{sheets}",
-                              "give the path of the repeat-readings file (relative paths are taken beside the "
-                              "junction table)", "file_not_found")])
+    raise InputError(
+        [
+            Problem(
+                "fatal",
+                spec,
+                None,
+                None,
+                f"repeat-readings file not found{where}{sheets}",
+                "give the path of the repeat-readings file (relative paths are taken beside the "
+                "junction table)",
+                "file_not_found",
+            )
+        ]
+    )
 
 
 def read_junctions(

@@ -124,21 +124,35 @@ def check_encoding(encoding: str | None, *, origin: str = "<options>", key: str 
     if isinstance(encoding, str) and encoding.strip():
         name = encoding.strip()
         try:
-            b"x".decode(name, "ignore")  # LookupError for unknown names and for codecs that are not text encodings
+            b"x".decode(
+                name, "ignore"
+            )  # LookupError for unknown names and for codecs that are not text encodings
         except LookupError:
             pass
         else:
             return name
-    raise RecipeError([Problem("fatal", origin, None, None,
-                               f"{key}: {encoding!r} is not a text encoding known to Python",
-                               f"give a Python codec name, e.g. {', '.join(ENCODING_EXAMPLES)}", "unknown_encoding")])
+    raise RecipeError(
+        [
+            Problem(
+                "fatal",
+                origin,
+                None,
+                None,
+                f"{key}: {encoding!r} is not a text encoding known to Python",
+                f"give a Python codec name, e.g. {', '.join(ENCODING_EXAMPLES)}",
+                "unknown_encoding",
+            )
+        ]
+    )
 
 
 def _encoding_hint(example: str) -> str:
     """How to name a text file's encoding: the Python keyword of ``read_junctions`` and the recipe key."""
-    return (f'name the file\'s encoding: encoding="{example}" in read_junctions(...), or encoding = "{example}" '
-            f"under [input] in the recipe (common ones: {', '.join(ENCODING_EXAMPLES)}); or save the file "
-            "again as 'CSV UTF-8'")
+    return (
+        f'name the file\'s encoding: encoding="{example}" in read_junctions(...), or encoding = "{example}" '
+        f"under [input] in the recipe (common ones: {', '.join(ENCODING_EXAMPLES)}); or save the file "
+        "again as 'CSV UTF-8'"
+    )
 
 
 def read_table(
@@ -192,7 +206,9 @@ def read_table(
         if not path.exists():
             raise _fatal(label, "file not found", "check the path and spelling", "file_not_found")
         if path.is_dir():
-            raise _fatal(label, "this is a folder, not a table file", "give the path of a table file", "not_a_file")
+            raise _fatal(
+                label, "this is a folder, not a table file", "give the path of a table file", "not_a_file"
+            )
         suffix = path.suffix.lower()
         if suffix in EXCEL_EXTENSIONS:
             raw = _read_excel(path, label, sheet)
@@ -209,7 +225,9 @@ def read_table(
             raw = _read_text(path, label, encoding)
     if raw.frame.shape[1] == 0 or len(raw.frame) == 0:
         what = "has no columns" if raw.frame.shape[1] == 0 else "has a header but no data rows"
-        raise _fatal(raw.label, f"the table {what}", "add one row per junction below the header", "empty_table")
+        raise _fatal(
+            raw.label, f"the table {what}", "add one row per junction below the header", "empty_table"
+        )
     return raw
 
 
@@ -246,8 +264,9 @@ def _decode(path: Path, label: str, encoding: str | None) -> str:
     try:
         data = path.read_bytes()
     except OSError as exc:
-        raise _fatal(label, f"cannot read the file ({exc.strerror})", "check the file's permissions",
-                     "unreadable") from None
+        raise _fatal(
+            label, f"cannot read the file ({exc.strerror})", "check the file's permissions", "unreadable"
+        ) from None
     for magic, what in _MAGIC:
         if data.startswith(magic):
             raise _fatal(
@@ -259,8 +278,14 @@ def _decode(path: Path, label: str, encoding: str | None) -> str:
     if encoding is None:
         for bom, wide in _WIDE_BOMS:
             if data.startswith(bom):
-                raise _fatal(label, f"the file is {wide.upper()} text, not UTF-8 (it starts with a {wide.upper()} "
-                             "byte-order mark)", _encoding_hint(wide), "bad_encoding", row=1)
+                raise _fatal(
+                    label,
+                    f"the file is {wide.upper()} text, not UTF-8 (it starts with a {wide.upper()} "
+                    "byte-order mark)",
+                    _encoding_hint(wide),
+                    "bad_encoding",
+                    row=1,
+                )
     codec = encoding or DEFAULT_ENCODING
     try:
         text = data.decode(codec)
@@ -270,11 +295,20 @@ def _decode(path: Path, label: str, encoding: str | None) -> str:
         line = data[: exc.start].count(b"\n") + 1
         byte = f"undecodable byte 0x{data[exc.start]:02x} on line {line}"
         if encoding is None:
-            raise _fatal(label, f"the file is not UTF-8 text ({byte})", _encoding_hint(ENCODING_EXAMPLES[1]),
-                         "bad_encoding", row=line) from None
-        raise _fatal(label, f"the file is not {encoding} text ({byte})",
-                     f"{encoding!r} does not fit this file; {_encoding_hint(ENCODING_EXAMPLES[0])}", "bad_encoding",
-                     row=line) from None
+            raise _fatal(
+                label,
+                f"the file is not UTF-8 text ({byte})",
+                _encoding_hint(ENCODING_EXAMPLES[1]),
+                "bad_encoding",
+                row=line,
+            ) from None
+        raise _fatal(
+            label,
+            f"the file is not {encoding} text ({byte})",
+            f"{encoding!r} does not fit this file; {_encoding_hint(ENCODING_EXAMPLES[0])}",
+            "bad_encoding",
+            row=line,
+        ) from None
     if "\x00" in text[:65536]:
         raise _binary(label)
     text = text.removeprefix("\ufeff")  # Unicode byte-order mark U+FEFF
@@ -308,9 +342,13 @@ def _read_text(path: Path, label: str, encoding: str | None) -> RawTable:
             consumed = reader.line_num
             records.append(record)
     except csv.Error as exc:
-        raise _fatal(label, f"the file cannot be parsed as a table from this row on ({exc})",
-                     "check that quotes are closed and that a quoted field is followed by the separator "
-                     f"'{sep_name}'", "parse_error", row=skip + consumed + 1) from None
+        raise _fatal(
+            label,
+            f"the file cannot be parsed as a table from this row on ({exc})",
+            f"check that quotes are closed and that a quoted field is followed by the separator '{sep_name}'",
+            "parse_error",
+            row=skip + consumed + 1,
+        ) from None
     header_row = starts[0]
     names = _column_names(records[0], label, header_row)
     width = len(names)
@@ -319,16 +357,30 @@ def _read_text(path: Path, label: str, encoding: str | None) -> RawTable:
     for record, row in zip(records[1:], starts[1:], strict=True):
         extra = record[width:]
         if any(cell.strip() for cell in extra):
-            too_long.append(Problem("fatal", label, row, None, f"this row has {len(record)} fields but the header "
-                                    f"has {width}", f"check that every row has the same number of '{sep_name}'-"
-                                    "separated fields, and quote fields that contain the separator",
-                                    "parse_error"))
+            too_long.append(
+                Problem(
+                    "fatal",
+                    label,
+                    row,
+                    None,
+                    f"this row has {len(record)} fields but the header has {width}",
+                    f"check that every row has the same number of '{sep_name}'-"
+                    "separated fields, and quote fields that contain the separator",
+                    "parse_error",
+                )
+            )
         body.append(record[:width] + [""] * (width - len(record)))  # empty trailing fields hold no data
     if too_long:
         raise InputError(too_long)
     frame = pd.DataFrame(body, columns=names, dtype=object)
-    return RawTable(frame=frame, label=label, rows=np.array(starts[1:], dtype=int), decimal=decimal, kind=kind,
-                    path=path.resolve())
+    return RawTable(
+        frame=frame,
+        label=label,
+        rows=np.array(starts[1:], dtype=int),
+        decimal=decimal,
+        kind=kind,
+        path=path.resolve(),
+    )
 
 
 # -- binary formats -----------------------------------------------------------------------------------
@@ -344,7 +396,9 @@ def _read_parquet(path: Path, label: str) -> RawTable:
         ) from None
     frame = frame.reset_index(drop=True)
     frame.columns = _column_names(list(frame.columns), label, 1)
-    return RawTable(frame=frame, label=label, rows=np.arange(len(frame)) + 2, kind="parquet", path=path.resolve())
+    return RawTable(
+        frame=frame, label=label, rows=np.arange(len(frame)) + 2, kind="parquet", path=path.resolve()
+    )
 
 
 def excel_sheet_names(path: str | os.PathLike) -> tuple[str, ...]:
@@ -408,8 +462,12 @@ def _read_excel(path: Path, label: str, sheet: str | int | None) -> RawTable:
 
     first = next((i for i, r in enumerate(cells) if not blank(r)), None)
     if first is None:
-        raise _fatal(f"{label} [sheet {chosen!r}]", "the sheet is empty", "put a header row and data on it",
-                     "empty_table")
+        raise _fatal(
+            f"{label} [sheet {chosen!r}]",
+            "the sheet is empty",
+            "put a header row and data on it",
+            "empty_table",
+        )
     # Trailing empty rows are invisible in a spreadsheet (often just formatting), so they are not data rows.
     last = max(i for i, r in enumerate(cells) if not blank(r))
     header = cells[first]

@@ -61,7 +61,9 @@ def _key(field: str, in_recipe: bool) -> str:
     return f"[{FIELD_SECTION[field]}] {field}" if in_recipe else field
 
 
-def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_recipe: bool = False) -> ColumnMapping:
+def check_mapping(
+    mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_recipe: bool = False
+) -> ColumnMapping:
     """Check a mapping for internal consistency and return it with canonical unit and measure spellings.
 
     Parameters
@@ -89,32 +91,63 @@ def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_re
     def add(field: str | None, message: str, hint: str) -> None:
         problems.append(_problem(origin, field and _key(field, in_recipe), message, hint))
 
-    roles = {"parent": (mapping.parent,), "daughters": mapping.daughters, "taxon": (mapping.taxon,),
-             "specimen": (mapping.specimen,), "junction": (mapping.junction,), "se": mapping.se}
+    roles = {
+        "parent": (mapping.parent,),
+        "daughters": mapping.daughters,
+        "taxon": (mapping.taxon,),
+        "specimen": (mapping.specimen,),
+        "junction": (mapping.junction,),
+        "se": mapping.se,
+    }
     for field, names in roles.items():
         for name in names:
             if name is not None and (not isinstance(name, str) or not name.strip()):
-                add(field, f"column name {name!r} is not a non-empty text",
-                    "write the column name as it appears in the header")
+                add(
+                    field,
+                    f"column name {name!r} is not a non-empty text",
+                    "write the column name as it appears in the header",
+                )
     if not mapping.parent:
         add("parent", "no parent column given", "name the column holding the parent segment's size")
     if len(mapping.daughters) < 2:
-        add("daughters", f"{len(mapping.daughters)} daughter column(s) given; a junction has at least two daughters",
-            "list two or more daughter columns, e.g. d1,d2 (a third column may be empty where a junction has two)")
-    used = [c for c in (mapping.parent, *mapping.daughters, mapping.taxon, mapping.specimen, mapping.junction,
-                        *mapping.se) if c]
+        add(
+            "daughters",
+            f"{len(mapping.daughters)} daughter column(s) given; a junction has at least two daughters",
+            "list two or more daughter columns, e.g. d1,d2 (a third column may be empty where a junction has two)",
+        )
+    used = [
+        c
+        for c in (
+            mapping.parent,
+            *mapping.daughters,
+            mapping.taxon,
+            mapping.specimen,
+            mapping.junction,
+            *mapping.se,
+        )
+        if c
+    ]
     twice = sorted({c for c in used if used.count(c) > 1})
     if twice:
-        add(None, f"column(s) {', '.join(repr(c) for c in twice)} used for more than one role",
-            "map each column to one role only (parent, daughters, taxon, specimen, junction, se)")
+        add(
+            None,
+            f"column(s) {', '.join(repr(c) for c in twice)} used for more than one role",
+            "map each column to one role only (parent, daughters, taxon, specimen, junction, se)",
+        )
     if mapping.se and len(mapping.se) not in (1, 1 + len(mapping.daughters)):
-        add("se", f"{len(mapping.se)} standard-error columns given for {1 + len(mapping.daughters)} size columns",
+        add(
+            "se",
+            f"{len(mapping.se)} standard-error columns given for {1 + len(mapping.daughters)} size columns",
             "give one SE column for all readings of a row, or one per size column (parent first, then the "
-            "daughters in order)")
+            "daughters in order)",
+        )
     r = mapping.rel_error
     if r is not None and (isinstance(r, bool) or not isinstance(r, (int, float)) or not 0 < r < 1):
-        add("rel_error", f"relative error {r!r} is not a fraction between 0 and 1",
-            "give it as a fraction, e.g. 0.05 for 5 %")
+        add(
+            "rel_error",
+            f"relative error {r!r} is not a fraction between 0 and 1",
+            "give it as a fraction, e.g. 0.05 for 5 %",
+        )
     measure = mapping.measure.strip().lower() if isinstance(mapping.measure, str) else mapping.measure
     if measure not in MEASURES:
         add("measure", f"unknown measure {mapping.measure!r}", f"use one of: {', '.join(MEASURES)}")
@@ -123,7 +156,9 @@ def check_mapping(mapping: ColumnMapping, origin: str = OPTIONS_ORIGIN, *, in_re
         unit = canonical_unit(mapping.unit, origin=origin, key=_key("unit", in_recipe))
     except RecipeError as exc:
         problems.extend(exc.problems)
-    if mapping.sheet is not None and (isinstance(mapping.sheet, bool) or not isinstance(mapping.sheet, (str, int))):
+    if mapping.sheet is not None and (
+        isinstance(mapping.sheet, bool) or not isinstance(mapping.sheet, (str, int))
+    ):
         add("sheet", f"sheet {mapping.sheet!r} is neither a name nor a position", "give the sheet's name")
     encoding = mapping.encoding
     try:
@@ -164,11 +199,24 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
     except FileNotFoundError:
         raise RecipeError([_problem(origin, None, "recipe file not found", "check the path")]) from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise RecipeError([_problem(origin, None, f"not a valid TOML file ({exc})",
-                                    "compare with the example recipe in the documentation")]) from None
+        raise RecipeError(
+            [
+                _problem(
+                    origin,
+                    None,
+                    f"not a valid TOML file ({exc})",
+                    "compare with the example recipe in the documentation",
+                )
+            ]
+        ) from None
     except OSError as exc:
-        raise RecipeError([_problem(origin, None, f"cannot read the recipe ({exc.strerror})",
-                                    "check the path and permissions")]) from None
+        raise RecipeError(
+            [
+                _problem(
+                    origin, None, f"cannot read the recipe ({exc.strerror})", "check the path and permissions"
+                )
+            ]
+        ) from None
 
     problems: list[Problem] = []
     values: dict[str, Any] = {}
@@ -176,16 +224,30 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
     sections = ", ".join(f"[{s}]" for s in RECIPE_SECTIONS)
     for section, content in doc.items():
         if section not in RECIPE_SECTIONS:
-            problems.append(_problem(origin, f"[{section}]", "unknown section", f"use the sections {sections}"))
+            problems.append(
+                _problem(origin, f"[{section}]", "unknown section", f"use the sections {sections}")
+            )
             continue
         if not isinstance(content, dict):
-            problems.append(_problem(origin, section, f"'{section}' must be a section [{section}], not a value",
-                                     f"write [{section}] on its own line followed by its keys"))
+            problems.append(
+                _problem(
+                    origin,
+                    section,
+                    f"'{section}' must be a section [{section}], not a value",
+                    f"write [{section}] on its own line followed by its keys",
+                )
+            )
             continue
         for key, value in content.items():
             if key not in RECIPE_SECTIONS[section]:
-                problems.append(_problem(origin, f"[{section}] {key}", "unknown key",
-                                         f"allowed keys in [{section}]: {', '.join(RECIPE_SECTIONS[section])}"))
+                problems.append(
+                    _problem(
+                        origin,
+                        f"[{section}] {key}",
+                        "unknown key",
+                        f"allowed keys in [{section}]: {', '.join(RECIPE_SECTIONS[section])}",
+                    )
+                )
                 continue
             problem = _check_type(origin, key, value)
             if problem is None:
@@ -195,8 +257,14 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
                 wrong_type.add(key)
     for key in ("parent", "daughters"):
         if key not in values and key not in wrong_type:
-            problems.append(_problem(origin, _key(key, True), "missing",
-                                     f"add '{key} = ...' under [columns] naming the {key} column(s)"))
+            problems.append(
+                _problem(
+                    origin,
+                    _key(key, True),
+                    "missing",
+                    f"add '{key} = ...' under [columns] naming the {key} column(s)",
+                )
+            )
     if isinstance(values.get("rel_error"), int):
         values["rel_error"] = float(values["rel_error"])
     repeats = values.get("repeats")
@@ -215,10 +283,14 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
 
 #: Expected TOML type of every recipe key, as (check, description for the message).
 _EXPECTED: dict[str, tuple[Any, str]] = {
-    "daughters": (lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v),
-                  'a list of column names, e.g. ["d1", "d2"]'),
-    "se": (lambda v: isinstance(v, str) or (isinstance(v, list) and all(isinstance(x, str) for x in v)),
-           "a column name or a list of column names"),
+    "daughters": (
+        lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v),
+        'a list of column names, e.g. ["d1", "d2"]',
+    ),
+    "se": (
+        lambda v: isinstance(v, str) or (isinstance(v, list) and all(isinstance(x, str) for x in v)),
+        "a column name or a list of column names",
+    ),
     "rel_error": (lambda v: isinstance(v, (int, float)) and not isinstance(v, bool), "a number, e.g. 0.05"),
     "sheet": (lambda v: isinstance(v, (str, int)) and not isinstance(v, bool), "a sheet name"),
 }
@@ -229,7 +301,9 @@ def _check_type(origin: str, key: str, value: Any) -> Problem | None:
     ok, expected = _EXPECTED.get(key, _TEXT)
     if ok(value):
         return None
-    return _problem(origin, _key(key, True), f"wrong type ({type(value).__name__}: {value!r})", f"give {expected}")
+    return _problem(
+        origin, _key(key, True), f"wrong type ({type(value).__name__}: {value!r})", f"give {expected}"
+    )
 
 
 def _split(value: str | Sequence[str] | None) -> tuple[str, ...] | None:
@@ -296,16 +370,34 @@ def mapping_from_options(
     'um'
     """
     updates: dict[str, Any] = {
-        "parent": parent, "daughters": _split(daughters), "taxon": taxon, "specimen": specimen,
-        "junction": junction, "measure": measure, "unit": unit, "rel_error": rel_error,
-        "se": _split(se), "repeats": repeats, "sheet": sheet, "encoding": encoding,
+        "parent": parent,
+        "daughters": _split(daughters),
+        "taxon": taxon,
+        "specimen": specimen,
+        "junction": junction,
+        "measure": measure,
+        "unit": unit,
+        "rel_error": rel_error,
+        "se": _split(se),
+        "repeats": repeats,
+        "sheet": sheet,
+        "encoding": encoding,
     }
     updates = {k: v for k, v in updates.items() if v is not None}
     if base is None:
         missing = [k for k in ("parent", "daughters") if k not in updates]
         if missing:
-            raise RecipeError([_problem(OPTIONS_ORIGIN, k, f"no '{k}' column given",
-                                        "give --parent and --daughters (or a recipe with --recipe)") for k in missing])
+            raise RecipeError(
+                [
+                    _problem(
+                        OPTIONS_ORIGIN,
+                        k,
+                        f"no '{k}' column given",
+                        "give --parent and --daughters (or a recipe with --recipe)",
+                    )
+                    for k in missing
+                ]
+            )
         mapping = ColumnMapping(**updates)
     else:
         mapping = dataclasses.replace(base, **updates)
@@ -347,7 +439,9 @@ def write_recipe(mapping: ColumnMapping, path: str | os.PathLike, *, overwrite: 
     """
     dest = Path(path)
     if dest.exists() and not overwrite:
-        raise OutputExistsError(f"{dest}: the recipe file already exists; choose another name or remove it first")
+        raise OutputExistsError(
+            f"{dest}: the recipe file already exists; choose another name or remove it first"
+        )
     values = mapping.to_dict()
     if "repeats" in values and Path(values["repeats"]).is_file():
         values["repeats"] = os.path.relpath(Path(values["repeats"]).resolve(), dest.resolve().parent)

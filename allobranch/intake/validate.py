@@ -180,28 +180,48 @@ class _Collector:
         self.fatal: list[Problem] = []
         self.other: list[Problem] = []
 
-    def add(self, severity: str, row: int | None, column: Hashable | None, message: str, hint: str,
-            code: str) -> None:
-        problem = Problem(severity, self.label, None if row is None else int(row),
-                          None if column is None else str(column), message, hint, code)
+    def add(
+        self, severity: str, row: int | None, column: Hashable | None, message: str, hint: str, code: str
+    ) -> None:
+        problem = Problem(
+            severity,
+            self.label,
+            None if row is None else int(row),
+            None if column is None else str(column),
+            message,
+            hint,
+            code,
+        )
         (self.fatal if severity == "fatal" else self.other).append(problem)
 
 
 # -- the junction table ---------------------------------------------------------------------------------
 def _check_columns(raw: RawTable, mapping: ColumnMapping) -> None:
     roles: list[tuple[str, str]] = [(mapping.parent, "parent"), *((d, "daughter") for d in mapping.daughters)]
-    roles += [(c, r) for c, r in ((mapping.taxon, "taxon"), (mapping.specimen, "specimen"),
-                                  (mapping.junction, "junction")) if c is not None]
+    roles += [
+        (c, r)
+        for c, r in ((mapping.taxon, "taxon"), (mapping.specimen, "specimen"), (mapping.junction, "junction"))
+        if c is not None
+    ]
     roles += [(c, "standard error") for c in mapping.se]
     present = [str(c) for c in raw.frame.columns]
     missing = [(c, r) for c, r in roles if c not in present]
     if missing:
         have = ", ".join(repr(c) for c in present)
-        raise InputError([
-            Problem("fatal", raw.label, 1, c, f"the {role} column '{c}' is not in the file; its columns are: {have}",
-                    "check the spelling and capitals of the column name in your options or recipe", "missing_column")
-            for c, role in missing
-        ])
+        raise InputError(
+            [
+                Problem(
+                    "fatal",
+                    raw.label,
+                    1,
+                    c,
+                    f"the {role} column '{c}' is not in the file; its columns are: {have}",
+                    "check the spelling and capitals of the column name in your options or recipe",
+                    "missing_column",
+                )
+                for c, role in missing
+            ]
+        )
 
 
 #: What to do about an unusable number cell, by the column's role and by the kind of problem (see
@@ -209,13 +229,13 @@ def _check_columns(raw: RawTable, mapping: ColumnMapping) -> None:
 _NUMBER_HINTS: dict[str, dict[str, str]] = {
     "size": {
         "missing_word": "write the measured size; leave the cell empty only where a third or later daughter is "
-                        "absent, and remove the row if the junction was not measured",
+        "absent, and remove the row if the junction was not measured",
         "nonfinite": "write a finite positive size",
         "not_numeric": "write sizes as plain numbers (decimal {decimal}), or leave the cell empty for no value",
     },
     "se": {
         "missing_word": "write the standard error as a number, or leave the cell empty if it is not known (the "
-                        "row is then kept with that reading's absolute error unknown)",
+        "row is then kept with that reading's absolute error unknown)",
         "nonfinite": "write standard errors as finite non-negative numbers",
         "not_numeric": "write standard errors as plain non-negative numbers (decimal {decimal})",
     },
@@ -227,8 +247,9 @@ _NUMBER_HINTS: dict[str, dict[str, str]] = {
 }
 
 
-def _parse_column(cells: pd.Series, rows: np.ndarray, column: str, role: str, decimal: str,
-                  out: _Collector) -> tuple[np.ndarray, np.ndarray]:
+def _parse_column(
+    cells: pd.Series, rows: np.ndarray, column: str, role: str, decimal: str, out: _Collector
+) -> tuple[np.ndarray, np.ndarray]:
     """Parse a number column, reporting every unusable cell as fatal; as :func:`parse_numbers`."""
     values, bad = parse_numbers(cells, decimal)
     mark = "comma" if decimal == "," else "point"
@@ -242,8 +263,9 @@ def _parse_column(cells: pd.Series, rows: np.ndarray, column: str, role: str, de
     return values, bad
 
 
-def _parse_sizes(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping,
-                 out: _Collector) -> np.ndarray:
+def _parse_sizes(
+    raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping, out: _Collector
+) -> np.ndarray:
     """Sizes as floats, shape (n, 1 + K): parent first, then daughter columns in the user's order."""
     sizes = np.empty((len(sub), len(mapping.size_columns)))
     for j, col in enumerate(mapping.size_columns):
@@ -251,19 +273,36 @@ def _parse_sizes(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: Co
         values, bad = _parse_column(sub[col], rows, col, "size", raw.decimal, out)
         if j <= 2:
             for i in np.flatnonzero(np.isnan(values) & ~bad):
-                out.add("fatal", rows[i], col, f"the {role} size is missing",
-                        "fill it in, or remove the row: every junction needs a parent and at least two daughters"
-                        " (the first two daughter columns)", "missing_size")
+                out.add(
+                    "fatal",
+                    rows[i],
+                    col,
+                    f"the {role} size is missing",
+                    "fill it in, or remove the row: every junction needs a parent and at least two daughters"
+                    " (the first two daughter columns)",
+                    "missing_size",
+                )
         for i in np.flatnonzero(values <= 0):
-            out.add("fatal", rows[i], col, f"the {role} size is {_fmt(values[i])}; sizes must be positive",
-                    "correct the value, or leave a third or later daughter cell empty if that daughter is absent",
-                    "nonpositive_size")
+            out.add(
+                "fatal",
+                rows[i],
+                col,
+                f"the {role} size is {_fmt(values[i])}; sizes must be positive",
+                "correct the value, or leave a third or later daughter cell empty if that daughter is absent",
+                "nonpositive_size",
+            )
         sizes[:, j] = values
     return sizes
 
 
-def _parse_se(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping,
-              sizes: np.ndarray, out: _Collector) -> np.ndarray:
+def _parse_se(
+    raw: RawTable,
+    sub: pd.DataFrame,
+    rows: np.ndarray,
+    mapping: ColumnMapping,
+    sizes: np.ndarray,
+    out: _Collector,
+) -> np.ndarray:
     """Standard errors aligned with ``sizes`` (NaN where not given or where the size is absent)."""
     se = np.full(sizes.shape, np.nan)
     if not mapping.se:
@@ -271,8 +310,14 @@ def _parse_se(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: Colum
     for j, col in enumerate(mapping.se):
         values, _ = _parse_column(sub[col], rows, col, "se", raw.decimal, out)
         for i in np.flatnonzero(values < 0):
-            out.add("fatal", rows[i], col, f"standard error {_fmt(values[i])} is negative",
-                    "write standard errors as finite non-negative numbers", "bad_se")
+            out.add(
+                "fatal",
+                rows[i],
+                col,
+                f"standard error {_fmt(values[i])} is negative",
+                "write standard errors as finite non-negative numbers",
+                "bad_se",
+            )
         if len(mapping.se) == 1:
             se[:] = values[:, None]
         else:
@@ -280,32 +325,56 @@ def _parse_se(raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: Colum
     present = ~np.isnan(sizes)
     for i, j in zip(*np.nonzero(present & np.isnan(se)), strict=True):
         col = mapping.se[0] if len(mapping.se) == 1 else mapping.se[j]
-        out.add("flag", rows[i], col, f"no standard error for {mapping.size_columns[j]!r}",
-                "kept; the model will treat this reading's absolute error as unknown", "se_missing")
+        out.add(
+            "flag",
+            rows[i],
+            col,
+            f"no standard error for {mapping.size_columns[j]!r}",
+            "kept; the model will treat this reading's absolute error as unknown",
+            "se_missing",
+        )
     if len(mapping.se) > 1:
         for i, j in zip(*np.nonzero(~present & ~np.isnan(se)), strict=True):
-            out.add("flag", rows[i], mapping.se[j],
-                    f"a standard error is given but {mapping.size_columns[j]!r} is empty",
-                    "kept, but this standard error is not used; check the row", "se_without_size")
+            out.add(
+                "flag",
+                rows[i],
+                mapping.se[j],
+                f"a standard error is given but {mapping.size_columns[j]!r} is empty",
+                "kept, but this standard error is not used; check the row",
+                "se_without_size",
+            )
     se[~present] = np.nan
     return se
 
 
-def _labels(sub: pd.DataFrame, col: str | None, rows: np.ndarray, default: list[str], role: str,
-            out: _Collector) -> list[str]:
+def _labels(
+    sub: pd.DataFrame, col: str | None, rows: np.ndarray, default: list[str], role: str, out: _Collector
+) -> list[str]:
     """Labels of a grouping column as text, or ``default`` when the column is not mapped."""
     if col is None:
         return default
     labels = [_label(v) for v in sub[col].tolist()]
     for i, lab in enumerate(labels):
         if lab is None:
-            out.add("fatal", rows[i], col, f"the {role} label is missing",
-                    f"fill in the {role} for this row", "missing_label")
+            out.add(
+                "fatal",
+                rows[i],
+                col,
+                f"the {role} label is missing",
+                f"fill in the {role} for this row",
+                "missing_label",
+            )
     return [lab if lab is not None else "" for lab in labels]
 
 
-def _check_groups(taxon: list[str], specimen: list[str], junction: list[str], rows: np.ndarray,
-                  mapping: ColumnMapping, out: _Collector) -> None:
+def _check_groups(
+    taxon: list[str],
+    specimen: list[str],
+    junction: list[str],
+    rows: np.ndarray,
+    mapping: ColumnMapping,
+    out: _Collector,
+) -> None:
     if mapping.specimen is not None:
         taxa_of: dict[str, dict[str, list[int]]] = defaultdict(lambda: defaultdict(list))
         for t, s, r in zip(taxon, specimen, rows, strict=True):
@@ -313,13 +382,19 @@ def _check_groups(taxon: list[str], specimen: list[str], junction: list[str], ro
                 taxa_of[s][t].append(int(r))
         for s, by_taxon in taxa_of.items():
             if len(by_taxon) > 1:
-                where = "; ".join(f"'{t}' (rows {', '.join(map(str, rs[:5]))}{', ...' if len(rs) > 5 else ''})"
-                                  for t, rs in by_taxon.items())
+                where = "; ".join(
+                    f"'{t}' (rows {', '.join(map(str, rs[:5]))}{', ...' if len(rs) > 5 else ''})"
+                    for t, rs in by_taxon.items()
+                )
                 second = list(by_taxon.values())[1][0]
-                out.add("fatal", second, mapping.specimen,
-                        f"specimen '{s}' is listed under more than one taxon: {where}",
-                        "a specimen belongs to one taxon; correct the taxon or give the specimens distinct labels",
-                        "specimen_in_two_taxa")
+                out.add(
+                    "fatal",
+                    second,
+                    mapping.specimen,
+                    f"specimen '{s}' is listed under more than one taxon: {where}",
+                    "a specimen belongs to one taxon; correct the taxon or give the specimens distinct labels",
+                    "specimen_in_two_taxa",
+                )
     if mapping.junction is not None:
         seen: dict[tuple[str, str, str], list[int]] = defaultdict(list)
         for t, s, j, r in zip(taxon, specimen, junction, rows, strict=True):
@@ -327,14 +402,19 @@ def _check_groups(taxon: list[str], specimen: list[str], junction: list[str], ro
                 seen[(t, s, j)].append(int(r))
         for (_, s, j), rs in seen.items():
             if len(rs) > 1:
-                out.add("fatal", rs[1], mapping.junction,
-                        f"junction '{j}' appears more than once in specimen '{s}' (rows {', '.join(map(str, rs))})",
-                        "junction labels must be unique within a specimen; correct the label or remove the duplicate",
-                        "duplicate_junction")
+                out.add(
+                    "fatal",
+                    rs[1],
+                    mapping.junction,
+                    f"junction '{j}' appears more than once in specimen '{s}' (rows {', '.join(map(str, rs))})",
+                    "junction labels must be unique within a specimen; correct the label or remove the duplicate",
+                    "duplicate_junction",
+                )
 
 
-def _flag_geometry(radii: np.ndarray, raw_sizes: np.ndarray, rows: np.ndarray, mapping: ColumnMapping,
-                   out: _Collector) -> None:
+def _flag_geometry(
+    radii: np.ndarray, raw_sizes: np.ndarray, rows: np.ndarray, mapping: ColumnMapping, out: _Collector
+) -> None:
     """Flag daughters at least as large as the parent, and extreme size ratios (rows kept)."""
     parent = radii[:, 0]
     daughters = radii[:, 1:]
@@ -342,19 +422,33 @@ def _flag_geometry(radii: np.ndarray, raw_sizes: np.ndarray, rows: np.ndarray, m
         ratio = daughters / parent[:, None]
         sibling = np.nanmin(daughters, axis=1) / np.nanmax(daughters, axis=1)
     for i, k in zip(*np.nonzero(ratio >= 1), strict=True):
-        out.add("flag", rows[i], mapping.daughters[k],
-                f"daughter size {_fmt(raw_sizes[i, k + 1])} is not smaller than the parent's {_fmt(raw_sizes[i, 0])}",
-                "kept; no branching exponent exists for this junction on its own (check the measurement)",
-                "daughter_ge_parent")
+        out.add(
+            "flag",
+            rows[i],
+            mapping.daughters[k],
+            f"daughter size {_fmt(raw_sizes[i, k + 1])} is not smaller than the parent's {_fmt(raw_sizes[i, 0])}",
+            "kept; no branching exponent exists for this junction on its own (check the measurement)",
+            "daughter_ge_parent",
+        )
     for i, k in zip(*np.nonzero(ratio < MIN_DAUGHTER_PARENT_RATIO), strict=True):
-        out.add("flag", rows[i], mapping.daughters[k],
-                f"daughter/parent ratio {ratio[i, k]:.3g} is below {MIN_DAUGHTER_PARENT_RATIO:g}",
-                "kept; check the measurement or that this is a true daughter of the parent", "extreme_ratio")
+        out.add(
+            "flag",
+            rows[i],
+            mapping.daughters[k],
+            f"daughter/parent ratio {ratio[i, k]:.3g} is below {MIN_DAUGHTER_PARENT_RATIO:g}",
+            "kept; check the measurement or that this is a true daughter of the parent",
+            "extreme_ratio",
+        )
     for i in np.flatnonzero(sibling < MIN_SIBLING_RATIO):
         k = int(np.nanargmin(daughters[i]))
-        out.add("flag", rows[i], mapping.daughters[k],
-                f"smallest daughter is {1 / sibling[i]:.3g} times smaller than its largest sibling",
-                "kept; check the measurement or that this is a true daughter of the parent", "extreme_ratio")
+        out.add(
+            "flag",
+            rows[i],
+            mapping.daughters[k],
+            f"smallest daughter is {1 / sibling[i]:.3g} times smaller than its largest sibling",
+            "kept; check the measurement or that this is a true daughter of the parent",
+            "extreme_ratio",
+        )
 
 
 def _compact(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -363,7 +457,9 @@ def _compact(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.take_along_axis(values, order, axis=1), order
 
 
-def build_junction_table(raw: RawTable, mapping: ColumnMapping, repeats: RawTable | None = None) -> JunctionTable:
+def build_junction_table(
+    raw: RawTable, mapping: ColumnMapping, repeats: RawTable | None = None
+) -> JunctionTable:
     """Validate a raw table against a mapping and build the junction table.
 
     Parameters
@@ -390,10 +486,23 @@ def build_junction_table(raw: RawTable, mapping: ColumnMapping, repeats: RawTabl
     out = _Collector(raw.label)
     blank = _blank_rows(raw.frame)
     for r in raw.rows[blank]:
-        out.add("excluded", r, None, "blank row", "not used; delete it if the row was meant to be empty", "blank_row")
+        out.add(
+            "excluded",
+            r,
+            None,
+            "blank row",
+            "not used; delete it if the row was meant to be empty",
+            "blank_row",
+        )
     if blank.all():
-        out.add("fatal", None, None, "the table has no data rows (only blank rows)",
-                "add one row per junction below the header", "empty_table")
+        out.add(
+            "fatal",
+            None,
+            None,
+            "the table has no data rows (only blank rows)",
+            "add one row per junction below the header",
+            "empty_table",
+        )
         raise InputError(out.fatal + out.other)
     sub = raw.frame.loc[~blank]
     rows = raw.rows[~blank]
@@ -415,10 +524,16 @@ def build_junction_table(raw: RawTable, mapping: ColumnMapping, repeats: RawTabl
     se_daughters = np.take_along_axis(se[:, 1:], order, axis=1)
     n_daughters = (~np.isnan(daughters)).sum(axis=1)
     k_max = int(n_daughters.max())
-    data = pd.DataFrame({
-        "taxon": taxon, "specimen": specimen, "junction": junction,
-        "source_row": rows.astype(int), "n_daughters": n_daughters.astype(int), "parent": radii[:, 0],
-    })
+    data = pd.DataFrame(
+        {
+            "taxon": taxon,
+            "specimen": specimen,
+            "junction": junction,
+            "source_row": rows.astype(int),
+            "n_daughters": n_daughters.astype(int),
+            "parent": radii[:, 0],
+        }
+    )
     for k in range(k_max):
         data[f"d{k + 1}"] = daughters[:, k]
     data["se_parent"] = se[:, 0]
@@ -431,6 +546,7 @@ def build_junction_table(raw: RawTable, mapping: ColumnMapping, repeats: RawTabl
         repeat_frame, rep_out = _build_repeats(repeats, mapping, data, slot, ~np.isnan(radii[:, 1:]), factor)
         out.fatal += rep_out.fatal
         out.other += rep_out.other
+
     def order_key(p: Problem) -> tuple[bool, int]:
         return (p.file != raw.label, p.row or 0)
 
@@ -441,21 +557,40 @@ def build_junction_table(raw: RawTable, mapping: ColumnMapping, repeats: RawTabl
 
 
 # -- repeat readings ---------------------------------------------------------------------------------------
-def _build_repeats(raw: RawTable, mapping: ColumnMapping, data: pd.DataFrame, slot: np.ndarray,
-                   present: np.ndarray, factor: float) -> tuple[pd.DataFrame, _Collector]:
+def _build_repeats(
+    raw: RawTable,
+    mapping: ColumnMapping,
+    data: pd.DataFrame,
+    slot: np.ndarray,
+    present: np.ndarray,
+    factor: float,
+) -> tuple[pd.DataFrame, _Collector]:
     out = _Collector(raw.label)
     columns = [str(c) for c in raw.frame.columns]
     needed = [c for c in REPEAT_COLUMNS if not (c == "specimen" and mapping.specimen is None)]
     missing = [c for c in needed if c not in columns]
     if missing:
         for c in missing:
-            out.add("fatal", 1, c, f"the repeat-readings table has no '{c}' column; its columns are: "
-                    + ", ".join(repr(c) for c in columns),
-                    f"name the columns {', '.join(REPEAT_COLUMNS)} (one row per repeat reading)", "missing_column")
+            out.add(
+                "fatal",
+                1,
+                c,
+                f"the repeat-readings table has no '{c}' column; its columns are: "
+                + ", ".join(repr(c) for c in columns),
+                f"name the columns {', '.join(REPEAT_COLUMNS)} (one row per repeat reading)",
+                "missing_column",
+            )
         return pd.DataFrame(columns=list(REPEAT_COLUMNS)), out
     blank = _blank_rows(raw.frame)
     for r in raw.rows[blank]:
-        out.add("excluded", r, None, "blank row", "not used; delete it if the row was meant to be empty", "blank_row")
+        out.add(
+            "excluded",
+            r,
+            None,
+            "blank row",
+            "not used; delete it if the row was meant to be empty",
+            "blank_row",
+        )
     sub = raw.frame.loc[~blank]
     rows = raw.rows[~blank]
 
@@ -477,43 +612,87 @@ def _build_repeats(raw: RawTable, mapping: ColumnMapping, data: pd.DataFrame, sl
         value = values[i]
         if not bad[i] and not value > 0:
             what = "missing" if np.isnan(value) else f"{_fmt(value)}"
-            out.add("fatal", row, "value", f"the repeat reading is {what}; readings must be positive numbers",
-                    "correct the value or remove the row", "bad_repeat")
+            out.add(
+                "fatal",
+                row,
+                "value",
+                f"the repeat reading is {what}; readings must be positive numbers",
+                "correct the value or remove the row",
+                "bad_repeat",
+            )
         s, j, seg = specimens[i], junctions[i], segments[i]
         if j is None or (has_specimen and s is None):
-            out.add("fatal", row, "junction" if j is None else "specimen", "the label is missing",
-                    "fill in which junction this reading belongs to", "missing_label")
+            out.add(
+                "fatal",
+                row,
+                "junction" if j is None else "specimen",
+                "the label is missing",
+                "fill in which junction this reading belongs to",
+                "missing_label",
+            )
             continue
         if has_specimen:
             target = index.get((s, j))
             if target is None:
-                out.add("fatal", row, "junction", f"there is no junction '{j}' in specimen '{s}' in the junction table",
-                        "check the specimen and junction labels against the junction table", "unknown_junction")
+                out.add(
+                    "fatal",
+                    row,
+                    "junction",
+                    f"there is no junction '{j}' in specimen '{s}' in the junction table",
+                    "check the specimen and junction labels against the junction table",
+                    "unknown_junction",
+                )
                 continue
         else:
             matches = by_junction.get(j, [])
             if len(matches) != 1:
                 problem = "no" if not matches else "more than one"
-                out.add("fatal", row, "junction", f"{problem} junction '{j}' in the junction table",
-                        "check the label; add a 'specimen' column when junction labels repeat across specimens",
-                        "unknown_junction")
+                out.add(
+                    "fatal",
+                    row,
+                    "junction",
+                    f"{problem} junction '{j}' in the junction table",
+                    "check the label; add a 'specimen' column when junction labels repeat across specimens",
+                    "unknown_junction",
+                )
                 continue
             target = matches[0]
         if seg is None:
-            out.add("fatal", row, "segment", "the segment is missing", f"use one of: {allowed}", "missing_label")
+            out.add(
+                "fatal", row, "segment", "the segment is missing", f"use one of: {allowed}", "missing_label"
+            )
             continue
         if seg in ("parent", mapping.parent):
             segment = "parent"
         elif seg in daughters_named:
             k = daughters_named[seg]
             if not present[target, k]:
-                out.add("fatal", row, "segment", f"junction '{j}' has no value in column '{seg}'",
-                        "a repeat reading must refer to a segment measured in the junction table", "unknown_segment")
+                out.add(
+                    "fatal",
+                    row,
+                    "segment",
+                    f"junction '{j}' has no value in column '{seg}'",
+                    "a repeat reading must refer to a segment measured in the junction table",
+                    "unknown_segment",
+                )
                 continue
             segment = f"d{slot[target, k] + 1}"
         else:
-            out.add("fatal", row, "segment", f"unknown segment {seg!r}", f"use one of: {allowed}", "unknown_segment")
+            out.add(
+                "fatal",
+                row,
+                "segment",
+                f"unknown segment {seg!r}",
+                f"use one of: {allowed}",
+                "unknown_segment",
+            )
             continue
-        out_rows.append({"specimen": data["specimen"].iat[target], "junction": j, "segment": segment,
-                         "value": value * factor})
+        out_rows.append(
+            {
+                "specimen": data["specimen"].iat[target],
+                "junction": j,
+                "segment": segment,
+                "value": value * factor,
+            }
+        )
     return pd.DataFrame(out_rows, columns=list(REPEAT_COLUMNS)), out

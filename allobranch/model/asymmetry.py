@@ -35,7 +35,7 @@ def estimate_sigma_asym(data: ModelData, srel: float) -> np.ndarray:
         rows = data.taxon_idx == t
         Y, M, V = data.log_daughters[rows], data.mask[rows], data.var_abs_daughters[rows]
 
-        def negll(log_s: float) -> float:
+        def negll(log_s: float, Y=Y, M=M, V=V) -> float:
             return -daughter_loglik(Y, M, V, srel, float(np.exp(log_s)))
 
         res = minimize_scalar(negll, bounds=(lo, hi), method="bounded", options={"xatol": 1e-6})

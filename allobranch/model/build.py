@@ -31,7 +31,14 @@ from allobranch.model.data import ModelData
 from allobranch.model.ops import JunctionLoglik
 from allobranch.model.spec import ModelSpec
 from allobranch.model.structure import (  # noqa: F401 - re-exported for callers of this module
-    A_FLOOR, HYPER_PARAMETERS, BuiltModel, GroupLayout, data_arrays, group_layout, model_form, resolve_levels,
+    A_FLOOR,
+    HYPER_PARAMETERS,
+    BuiltModel,
+    GroupLayout,
+    data_arrays,
+    group_layout,
+    model_form,
+    resolve_levels,
 )
 
 #: Stand-in for log(0) in the log-sum-exp over absent daughters (latent form).
@@ -96,7 +103,9 @@ def _student_constant(nu, n: int):
     return n * (pt.gammaln((nu + 1) / 2) - pt.gammaln(nu / 2) - 0.5 * pt.log(nu * np.pi))
 
 
-def build_model(data: ModelData, spec: ModelSpec | None = None, layout: GroupLayout | None = None) -> BuiltModel:
+def build_model(
+    data: ModelData, spec: ModelSpec | None = None, layout: GroupLayout | None = None
+) -> BuiltModel:
     """Build the PyMC model for a junction table.
 
     Parameters
@@ -134,15 +143,33 @@ def build_model(data: ModelData, spec: ModelSpec | None = None, layout: GroupLay
         student = spec.deviation == "student_t"
         if form == "fast":
             ll, _ = JunctionLoglik("fast", student)(
-                a_spec, sigma_dev, nu, sh["log_parent_obs"], sh["mu_post"], sh["g_post"], sh["c_post"],
-                sh["ybar"], sh["daughter_mask"], sh["s0sq"], sh["ll_daughters"], sh["specimen_idx"],
+                a_spec,
+                sigma_dev,
+                nu,
+                sh["log_parent_obs"],
+                sh["mu_post"],
+                sh["g_post"],
+                sh["c_post"],
+                sh["ybar"],
+                sh["daughter_mask"],
+                sh["s0sq"],
+                sh["ll_daughters"],
+                sh["specimen_idx"],
             )
         elif form == "full":
             sigma_asym = pm.HalfNormal("sigma_asym", spec.priors.sigma_asym)
             ll, _ = JunctionLoglik("full", student, srel_free=not isinstance(sigma_rel, float))(
-                a_spec, sigma_dev, pt.as_tensor_variable(sigma_rel), sigma_asym, nu, sh["log_parent_obs"],
-                sh["log_daughters_obs"], sh["daughter_mask"], sh["var_abs_parent"],
-                sh["var_abs_daughters"], sh["specimen_idx"],
+                a_spec,
+                sigma_dev,
+                pt.as_tensor_variable(sigma_rel),
+                sigma_asym,
+                nu,
+                sh["log_parent_obs"],
+                sh["log_daughters_obs"],
+                sh["daughter_mask"],
+                sh["var_abs_parent"],
+                sh["var_abs_daughters"],
+                sh["specimen_idx"],
             )
         if form in ("fast", "full"):
             total = ll
@@ -151,8 +178,9 @@ def build_model(data: ModelData, spec: ModelSpec | None = None, layout: GroupLay
             pm.Potential("junction_loglik", total)
         else:
             _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu)
-    return BuiltModel(model=model, data=data, spec=spec, form=form, sigma_asym=sigma_asym_taxa, arrays=arrays,
-                      layout=layout)
+    return BuiltModel(
+        model=model, data=data, spec=spec, form=form, sigma_asym=sigma_asym_taxa, arrays=arrays, layout=layout
+    )
 
 
 def _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu) -> None:

@@ -115,7 +115,9 @@ def model_data(table: JunctionTable) -> ModelData:
     log_d = np.where(mask, np.log(np.where(mask, daughters, 1.0)), 0.0)
     se = table.se
     with np.errstate(invalid="ignore"):
-        rel_abs = np.where(np.isfinite(se), se / np.column_stack([parent, np.where(mask, daughters, 1.0)]), 0.0)
+        rel_abs = np.where(
+            np.isfinite(se), se / np.column_stack([parent, np.where(mask, daughters, 1.0)]), 0.0
+        )
     var_abs = rel_abs**2
     var_abs[:, 1:] = np.where(mask, var_abs[:, 1:], 0.0)
 

@@ -65,12 +65,17 @@ def fast_arrays(data, sigma_asym_taxa: np.ndarray) -> dict[str, np.ndarray]:
     """
     srel = float(data.rel_error or 0.0)
     tau_j = np.asarray(sigma_asym_taxa)[data.taxon_idx] ** 2
-    mu, g, c, ybar, lld = kernel.precompute(data.log_daughters, data.mask, data.var_abs_daughters, srel, tau_j)
+    mu, g, c, ybar, lld = kernel.precompute(
+        data.log_daughters, data.mask, data.var_abs_daughters, srel, tau_j
+    )
     return {
         "log_parent_obs": data.log_parent,
         "daughter_mask": data.mask.astype(float),
         "specimen_idx": data.specimen_idx.astype(np.int64),
-        "mu_post": mu, "g_post": g, "c_post": c, "ybar": ybar,
+        "mu_post": mu,
+        "g_post": g,
+        "c_post": c,
+        "ybar": ybar,
         "s0sq": srel**2 + data.var_abs_parent + kernel.S2_FLOOR,
         "ll_daughters": lld,
     }
@@ -127,15 +132,28 @@ class FastDensity:
         values, pos = {}, 0
         for name, shape in zip(self.layout.out_names, self.layout.out_shapes):
             size = int(np.prod(shape)) if shape else 1
-            values[name] = out[pos:pos + size].reshape(shape)
+            values[name] = out[pos : pos + size].reshape(shape)
             pos += size
         return values
 
 
-def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_level: bool,
-         specimen_level: bool, student: bool, priors, fixed_exponent: float | None,
-         fixed_taxa_mask: np.ndarray, fixed_taxa_values: np.ndarray, w_taxon: np.ndarray,
-         w_specimen: np.ndarray, condition_mu: bool = False, whiten: tuple | None = None) -> FastDensity:
+def pack(
+    arrays: dict,
+    *,
+    specimen_taxon_idx: np.ndarray,
+    n_taxa: int,
+    taxon_level: bool,
+    specimen_level: bool,
+    student: bool,
+    priors,
+    fixed_exponent: float | None,
+    fixed_taxa_mask: np.ndarray,
+    fixed_taxa_values: np.ndarray,
+    w_taxon: np.ndarray,
+    w_specimen: np.ndarray,
+    condition_mu: bool = False,
+    whiten: tuple | None = None,
+) -> FastDensity:
     """Pack a fast-form model for the compiled density.
 
     Parameters
@@ -184,44 +202,93 @@ def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_lev
 
     names, shapes = [], []
     if mu_free:
-        names.append("mu_z" if (condition_mu or white) else "mu"); shapes.append(())  # noqa: E702
+        names.append("mu_z" if (condition_mu or white) else "mu")
+        shapes.append(())  # noqa: E702
     if taxon_level:
-        names += ["tau_taxon_log__", "r_taxon"]; shapes += [(), (n_taxa,)]  # noqa: E702
+        names += ["tau_taxon_log__", "r_taxon"]
+        shapes += [(), (n_taxa,)]  # noqa: E702
     if specimen_level:
-        names += ["tau_specimen_log__", "r_specimen"]; shapes += [(), (n_spec,)]  # noqa: E702
-    names.append("sigma_dev_log__"); shapes.append(())  # noqa: E702
+        names += ["tau_specimen_log__", "r_specimen"]
+        shapes += [(), (n_spec,)]  # noqa: E702
+    names.append("sigma_dev_log__")
+    shapes.append(())  # noqa: E702
     if student:
-        names.append("nu_log__"); shapes.append(())  # noqa: E702
+        names.append("nu_log__")
+        shapes.append(())  # noqa: E702
     slices, pos = [], 0
     for s in shapes:
         size = int(np.prod(s)) if s else 1
         slices.append(slice(pos, pos + size))
         pos += size
-    out_names = ["mu"] + (["tau_taxon"] if taxon_level else []) + ["a_taxon"] + \
-        (["tau_specimen"] if specimen_level else []) + ["a_specimen", "sigma_dev"] + (["nu"] if student else [])
+    out_names = (
+        ["mu"]
+        + (["tau_taxon"] if taxon_level else [])
+        + ["a_taxon"]
+        + (["tau_specimen"] if specimen_level else [])
+        + ["a_specimen", "sigma_dev"]
+        + (["nu"] if student else [])
+    )
     out_shapes = [{"a_taxon": (n_taxa,), "a_specimen": (n_spec,)}.get(name, ()) for name in out_names]
-    layout = DensityLayout(names, slices, shapes, out_names, out_shapes,
-                           {"a_taxon": ("taxon",), "a_specimen": ("specimen",)})
+    layout = DensityLayout(
+        names, slices, shapes, out_names, out_shapes, {"a_taxon": ("taxon",), "a_specimen": ("specimen",)}
+    )
 
     head = np.zeros(_HEAD, dtype=np.int64)
     head[[_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP, _MU_COND, _WHITE]] = [
-        n, K, n_taxa, n_spec, mu_free, taxon_level, specimen_level, student, layout.ndim, layout.n_expanded,
-        condition_mu, white]
-    ints = np.concatenate([head, np.asarray(arrays["specimen_idx"], dtype=np.int64), spec_taxon,
-                           fixed_t.astype(np.int64), pinned.astype(np.int64)])
+        n,
+        K,
+        n_taxa,
+        n_spec,
+        mu_free,
+        taxon_level,
+        specimen_level,
+        student,
+        layout.ndim,
+        layout.n_expanded,
+        condition_mu,
+        white,
+    ]
+    ints = np.concatenate(
+        [
+            head,
+            np.asarray(arrays["specimen_idx"], dtype=np.int64),
+            spec_taxon,
+            fixed_t.astype(np.int64),
+            pinned.astype(np.int64),
+        ]
+    )
     fhead = np.zeros(_FHEAD)
     fhead[[_MU_MEAN, _MU_SD, _TT_SCALE, _TS_SCALE, _SD_SCALE, _NU_A, _NU_B, _MU_FIXED]] = [
-        priors.mu_mean, priors.mu_sd, priors.tau_taxon, priors.tau_specimen, priors.sigma_dev,
-        priors.nu_alpha, priors.nu_beta, 0.0 if mu_free else float(fixed_exponent)]
-    fixed_vals = np.where(fixed_t, np.asarray(fixed_taxa_values, dtype=float) if len(fixed_taxa_values)
-                          else 0.0, 0.0)
-    floats = np.concatenate([
-        fhead, arrays["log_parent_obs"], arrays["mu_post"].ravel(), arrays["g_post"].ravel(), arrays["c_post"],
-        arrays["ybar"], arrays["daughter_mask"].ravel(), arrays["s0sq"], arrays["ll_daughters"], w_t, w_s,
-        fixed_vals,
-        np.nan_to_num(np.asarray(whiten[0], dtype=float)) if white else np.zeros(n_spec),
-        np.nan_to_num(np.asarray(whiten[1], dtype=float)) if white else np.zeros(n_spec),
-    ])
+        priors.mu_mean,
+        priors.mu_sd,
+        priors.tau_taxon,
+        priors.tau_specimen,
+        priors.sigma_dev,
+        priors.nu_alpha,
+        priors.nu_beta,
+        0.0 if mu_free else float(fixed_exponent),
+    ]
+    fixed_vals = np.where(
+        fixed_t, np.asarray(fixed_taxa_values, dtype=float) if len(fixed_taxa_values) else 0.0, 0.0
+    )
+    floats = np.concatenate(
+        [
+            fhead,
+            arrays["log_parent_obs"],
+            arrays["mu_post"].ravel(),
+            arrays["g_post"].ravel(),
+            arrays["c_post"],
+            arrays["ybar"],
+            arrays["daughter_mask"].ravel(),
+            arrays["s0sq"],
+            arrays["ll_daughters"],
+            w_t,
+            w_s,
+            fixed_vals,
+            np.nan_to_num(np.asarray(whiten[0], dtype=float)) if white else np.zeros(n_spec),
+            np.nan_to_num(np.asarray(whiten[1], dtype=float)) if white else np.zeros(n_spec),
+        ]
+    )
     return FastDensity(ints=ints, floats=floats, layout=layout)
 
 
@@ -229,22 +296,35 @@ def pack(arrays: dict, *, specimen_taxon_idx: np.ndarray, n_taxa: int, taxon_lev
 def _views(ints, floats):
     n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
     p = _HEAD
-    spec_idx = ints[p:p + n]; p += n  # noqa: E702
-    spec_taxon = ints[p:p + ns]; p += ns  # noqa: E702
-    fixed_t = ints[p:p + nt]; p += nt  # noqa: E702
-    pinned = ints[p:p + ns]
+    spec_idx = ints[p : p + n]
+    p += n  # noqa: E702
+    spec_taxon = ints[p : p + ns]
+    p += ns  # noqa: E702
+    fixed_t = ints[p : p + nt]
+    p += nt  # noqa: E702
+    pinned = ints[p : p + ns]
     q = _FHEAD
-    y0 = floats[q:q + n]; q += n  # noqa: E702
-    mu = floats[q:q + n * K].reshape((n, K)); q += n * K  # noqa: E702
-    g = floats[q:q + n * K].reshape((n, K)); q += n * K  # noqa: E702
-    c = floats[q:q + n]; q += n  # noqa: E702
-    ybar = floats[q:q + n]; q += n  # noqa: E702
-    M = floats[q:q + n * K].reshape((n, K)); q += n * K  # noqa: E702
-    s0sq = floats[q:q + n]; q += n  # noqa: E702
-    lld = floats[q:q + n]; q += n  # noqa: E702
-    w_t = floats[q:q + nt]; q += nt  # noqa: E702
-    w_s = floats[q:q + ns]; q += ns  # noqa: E702
-    fixed_vals = floats[q:q + nt]
+    y0 = floats[q : q + n]
+    q += n  # noqa: E702
+    mu = floats[q : q + n * K].reshape((n, K))
+    q += n * K  # noqa: E702
+    g = floats[q : q + n * K].reshape((n, K))
+    q += n * K  # noqa: E702
+    c = floats[q : q + n]
+    q += n  # noqa: E702
+    ybar = floats[q : q + n]
+    q += n  # noqa: E702
+    M = floats[q : q + n * K].reshape((n, K))
+    q += n * K  # noqa: E702
+    s0sq = floats[q : q + n]
+    q += n  # noqa: E702
+    lld = floats[q : q + n]
+    q += n  # noqa: E702
+    w_t = floats[q : q + nt]
+    q += nt  # noqa: E702
+    w_s = floats[q : q + ns]
+    q += ns  # noqa: E702
+    fixed_vals = floats[q : q + nt]
     return spec_idx, spec_taxon, fixed_t, pinned, y0, mu, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals
 
 
@@ -252,7 +332,7 @@ def _views(ints, floats):
 def _pilot_views(ints, floats):
     n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
     q = _FHEAD + n * (5 + 3 * K) + 2 * nt + ns
-    return floats[q:q + ns], floats[q + ns:q + 2 * ns]
+    return floats[q : q + ns], floats[q + ns : q + 2 * ns]
 
 
 @nb.njit(cache=True, nogil=True)
@@ -264,8 +344,13 @@ def _digamma(x):
         x += 1.0
     inv = 1.0 / x
     inv2 = inv * inv
-    return acc + math.log(x) - 0.5 * inv - inv2 * (1.0 / 12 - inv2 * (1.0 / 120 - inv2 * (
-        1.0 / 252 - inv2 * (1.0 / 240 - inv2 * (1.0 / 132)))))
+    return (
+        acc
+        + math.log(x)
+        - 0.5 * inv
+        - inv2
+        * (1.0 / 12 - inv2 * (1.0 / 120 - inv2 * (1.0 / 252 - inv2 * (1.0 / 240 - inv2 * (1.0 / 132)))))
+    )
 
 
 @nb.njit(cache=True, nogil=True)
@@ -273,7 +358,7 @@ def _group_level(r, parent, log_tau, w, fixed, fixed_vals, use_fixed):
     """Partially centred group exponents: values, prior log density of the raw values, and the pieces of
     the chain rule (d a / d r, d a / d parent, d a / d log tau, and the prior's derivatives)."""
     m = r.shape[0]
-    tau = math.exp(log_tau)
+    math.exp(log_tau)
     a = np.empty(m)
     da_dr = np.empty(m)
     da_dp = np.empty(m)
@@ -324,19 +409,23 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxo
         mu = floats[_MU_FIXED]
     if ints[_TAXON]:
         lt_t = x[p]
-        r_t = x[p + 1:p + 1 + nt]
+        r_t = x[p + 1 : p + 1 + nt]
         p += 1 + nt
         par = np.full(nt, mu)
-        a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt = _group_level(r_t, par, lt_t, w_t, fixed_t,
-                                                                           fixed_vals, True)
+        a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt = _group_level(
+            r_t, par, lt_t, w_t, fixed_t, fixed_vals, True
+        )
     else:
         lt_t = 0.0
         a_t = np.empty(nt)
         for i in range(nt):
             a_t[i] = fixed_vals[i] if fixed_t[i] else mu
         lp_t = 0.0
-        t_dr = np.zeros(nt); t_lpr = np.zeros(nt); t_lplt = 0.0  # noqa: E702
-        t_dlt = np.zeros(nt); t_lpp = np.zeros(nt)  # noqa: E702
+        t_dr = np.zeros(nt)
+        t_lpr = np.zeros(nt)
+        t_lplt = 0.0  # noqa: E702
+        t_dlt = np.zeros(nt)
+        t_lpp = np.zeros(nt)  # noqa: E702
         t_dp = np.empty(nt)
         for i in range(nt):
             t_dp[i] = 0.0 if fixed_t[i] else 1.0
@@ -345,10 +434,11 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxo
         par_s[s] = a_t[spec_taxon[s]]
     if ints[_SPEC]:
         lt_s = x[p]
-        r_s = x[p + 1:p + 1 + ns]
+        r_s = x[p + 1 : p + 1 + ns]
         p += 1 + ns
-        a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt = _group_level(r_s, par_s, lt_s, w_s, pinned,
-                                                                           par_s, True)
+        a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt = _group_level(
+            r_s, par_s, lt_s, w_s, pinned, par_s, True
+        )
         for s in range(ns):  # a pinned specimen follows its (fixed) taxon
             if pinned[s]:
                 s_dp[s] = 1.0
@@ -356,11 +446,34 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxo
         lt_s = 0.0
         a_s = par_s.copy()
         lp_s = 0.0
-        s_dr = np.zeros(ns); s_lpr = np.zeros(ns); s_lplt = 0.0  # noqa: E702
-        s_dlt = np.zeros(ns); s_lpp = np.zeros(ns)  # noqa: E702
+        s_dr = np.zeros(ns)
+        s_lpr = np.zeros(ns)
+        s_lplt = 0.0  # noqa: E702
+        s_dlt = np.zeros(ns)
+        s_lpp = np.zeros(ns)  # noqa: E702
         s_dp = np.ones(ns)
-    return (mu, lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt,
-            lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt, p)
+    return (
+        mu,
+        lt_t,
+        a_t,
+        lp_t,
+        t_dr,
+        t_dp,
+        t_dlt,
+        t_lpr,
+        t_lpp,
+        t_lplt,
+        lt_s,
+        a_s,
+        lp_s,
+        s_dr,
+        s_dp,
+        s_dlt,
+        s_lpr,
+        s_lpp,
+        s_lplt,
+        p,
+    )
 
 
 @nb.njit(cache=True, nogil=True)
@@ -370,9 +483,9 @@ def _conditioned_mu(x, ints, floats):
     nt, ns = ints[_NT], ints[_NS]
     p = _HEAD + ints[_N] + ns
     if ints[_TAXON]:
-        m, skip = nt, ints[p:p + nt]  # fixed taxa
+        m, skip = nt, ints[p : p + nt]  # fixed taxa
     else:
-        m, skip = ns, ints[p + nt:p + nt + ns]  # pinned specimens
+        m, skip = ns, ints[p + nt : p + nt + ns]  # pinned specimens
     T = math.exp(2.0 * x[1])
     s0sq = floats[_MU_SD] ** 2
     n = 0
@@ -388,7 +501,7 @@ def _conditioned_mu(x, ints, floats):
     dmean_dr = (1.0 / T) / P
     # derivatives in log tau (d/dlog tau = 2 T d/dT)
     dmean_dlt = 2.0 * T * (n * mean - total) / (T * T * P)
-    dsd_dlt = 2.0 * T * 0.5 * P ** -1.5 * n / (T * T)
+    dsd_dlt = 2.0 * T * 0.5 * P**-1.5 * n / (T * T)
     dlogsd_dlt = 2.0 * T * n / (2.0 * T * T * P)
     return mu, sd, dmean_dr, dmean_dlt, dsd_dlt, dlogsd_dlt, m, skip
 
@@ -399,13 +512,15 @@ def _junction_likelihood(ints, floats, a_s, sdev, nu):
     with its derivatives in the specimen exponents, the deviation scale and ``nu``."""
     n, ns = ints[_N], ints[_NS]
     student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
-     fixed_vals) = _views(ints, floats)
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
+        _views(ints, floats)
+    )
     a_eff = np.empty(ns)
     for s in range(ns):
         a_eff[s] = a_s[s] if a_s[s] > A_FLOOR else A_FLOOR
-    ll, dll, _, _ = kernel.fast_terms(y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu,
-                                      student)
+    ll, dll, _, _ = kernel.fast_terms(
+        y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu, student
+    )
     total = 0.0
     d_as = np.zeros(ns)
     d_sdev = 0.0
@@ -456,8 +571,9 @@ def _white_hierarchy(x, ints, floats):
     population exponent and the taxon exponents.
     """
     nt, ns = ints[_NT], ints[_NS]
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
-     fixed_vals) = _views(ints, floats)
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
+        _views(ints, floats)
+    )
     ahat, prec = _pilot_views(ints, floats)
     taxon_level = ints[_TAXON] != 0
     spec_level = ints[_SPEC] != 0
@@ -467,13 +583,13 @@ def _white_hierarchy(x, ints, floats):
     lp = 0.0 + 0.0j
     if taxon_level:
         lt_t = x[p]
-        z_t = x[p + 1:p + 1 + nt]
+        z_t = x[p + 1 : p + 1 + nt]
         p += 1 + nt
         T_t = np.exp(2.0 * lt_t)
         lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TT_SCALE]) - 0.5 * T_t / floats[_TT_SCALE] ** 2 + lt_t
     if spec_level:
         lt_s = x[p]
-        z_s = x[p + 1:p + 1 + ns]
+        z_s = x[p + 1 : p + 1 + ns]
         T_s = np.exp(2.0 * lt_s)
         lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TS_SCALE]) - 0.5 * T_s / floats[_TS_SCALE] ** 2 + lt_s
     # messages up: each free specimen's marginal about its parent
@@ -538,10 +654,11 @@ def _white_hierarchy(x, ints, floats):
 def _logp_grad_white(x, ints, floats, grad):
     """Log density and gradient of the whitened form: complex-step derivatives of the hierarchy (exact
     to rounding, Squire & Trapp 1998) chained with the kernel's analytic derivatives."""
-    n, ns = ints[_N], ints[_NS]
+    _n, ns = ints[_N], ints[_NS]
     student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
-     fixed_vals) = _views(ints, floats)
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
+        _views(ints, floats)
+    )
     ndim = x.shape[0]
     n_h = ndim - (2 if student else 1)  # hierarchy coordinates come first
     xc = x[:n_h].astype(np.complex128)
@@ -602,13 +719,33 @@ def _logp_grad(x, ints, floats, grad):
 @nb.njit(cache=True, nogil=True)
 def _logp_grad_plain(x, ints, floats, grad):
     """Log density and gradient with ``x[0]`` the population exponent itself (when it is free)."""
-    n, nt, ns = ints[_N], ints[_NT], ints[_NS]
+    _n, nt, ns = ints[_N], ints[_NT], ints[_NS]
     student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
-     fixed_vals) = _views(ints, floats)
-    (mu, lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt,
-     lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt, p) = _hierarchy(
-        x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
+        _views(ints, floats)
+    )
+    (
+        mu,
+        lt_t,
+        a_t,
+        lp_t,
+        t_dr,
+        t_dp,
+        t_dlt,
+        t_lpr,
+        t_lpp,
+        t_lplt,
+        lt_s,
+        a_s,
+        lp_s,
+        s_dr,
+        s_dp,
+        s_dlt,
+        s_lpr,
+        s_lpp,
+        s_lplt,
+        p,
+    ) = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
     sdev = math.exp(x[p])
     nu = math.exp(x[p + 1]) if student else 30.0
     total, d_as, d_sdev, d_nu = _junction_likelihood(ints, floats, a_s, sdev, nu)
@@ -685,11 +822,31 @@ def _expand(x, ints, floats, out):
     if ints[_MU_COND]:
         x = x.copy()
         x[0] = _conditioned_mu(x, ints, floats)[0]
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s,
-     fixed_vals) = _views(ints, floats)
-    (mu, lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt,
-     lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt, p) = _hierarchy(
-        x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
+    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
+        _views(ints, floats)
+    )
+    (
+        mu,
+        lt_t,
+        a_t,
+        lp_t,
+        t_dr,
+        t_dp,
+        t_dlt,
+        t_lpr,
+        t_lpp,
+        t_lplt,
+        lt_s,
+        a_s,
+        lp_s,
+        s_dr,
+        s_dp,
+        s_dlt,
+        s_lpr,
+        s_lpp,
+        s_lplt,
+        p,
+    ) = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
     k = 0
     out[k] = mu
     k += 1
@@ -733,10 +890,16 @@ def _unpack(user_data):
     return ints, floats
 
 
-_LOGP_SIG = types.int64(types.uint64, types.CPointer(types.double), types.CPointer(types.double),
-                        types.CPointer(types.double), types.voidptr)
-_EXPAND_SIG = types.int64(types.uint64, types.uint64, types.CPointer(types.double),
-                          types.CPointer(types.double), types.voidptr)
+_LOGP_SIG = types.int64(
+    types.uint64,
+    types.CPointer(types.double),
+    types.CPointer(types.double),
+    types.CPointer(types.double),
+    types.voidptr,
+)
+_EXPAND_SIG = types.int64(
+    types.uint64, types.uint64, types.CPointer(types.double), types.CPointer(types.double), types.voidptr
+)
 
 
 @nb.cfunc(_LOGP_SIG, cache=True, nogil=True)

@@ -159,9 +159,20 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
     for j in range(n):
         base = (a_spec[spec_idx[j]], sdev, srel, sasym, nu)
         val, m, v = _one(
-            y0[j], Y[j], M[j], V0[j], V[j],
-            complex(base[0]), complex(base[1]), complex(base[2]), complex(base[3]), complex(base[4]),
-            student, mu_buf, g_buf, s2_buf,
+            y0[j],
+            Y[j],
+            M[j],
+            V0[j],
+            V[j],
+            complex(base[0]),
+            complex(base[1]),
+            complex(base[2]),
+            complex(base[3]),
+            complex(base[4]),
+            student,
+            mu_buf,
+            g_buf,
+            s2_buf,
         )
         ll[j] = val.real
         mean[j] = m.real
@@ -172,9 +183,20 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
             e = np.zeros(5, dtype=np.complex128)
             e[d] = 1j * H
             vd, _, _ = _one(
-                y0[j], Y[j], M[j], V0[j], V[j],
-                base[0] + e[0], base[1] + e[1], base[2] + e[2], base[3] + e[3], base[4] + e[4],
-                student, mu_buf, g_buf, s2_buf,
+                y0[j],
+                Y[j],
+                M[j],
+                V0[j],
+                V[j],
+                base[0] + e[0],
+                base[1] + e[1],
+                base[2] + e[2],
+                base[3] + e[3],
+                base[4] + e[4],
+                student,
+                mu_buf,
+                g_buf,
+                s2_buf,
             )
             dll[j, d] = vd.imag / H
     return ll, dll, mean, var
@@ -228,8 +250,13 @@ def precompute(Y, M, V, srel, tau_j):
                 bmu += yc / s2 * mu[j, i]
         c[j] = cj
         ybar[j] = yb
-        lld[j] = (-0.5 * sls2 - 0.5 * (k - 1) * (_LOG2PI + math.log(tau)) + 0.5 * slg
-                  - 0.5 * math.log(cj / (k * tau)) - 0.5 * (yy - bmu))
+        lld[j] = (
+            -0.5 * sls2
+            - 0.5 * (k - 1) * (_LOG2PI + math.log(tau))
+            + 0.5 * slg
+            - 0.5 * math.log(cj / (k * tau))
+            - 0.5 * (yy - bmu)
+        )
     return mu, g, c, ybar, lld
 
 

@@ -117,13 +117,24 @@ def _register_numba() -> None:
         @numba_njit
         def full(a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx):
             ll, dll, _, _ = kernel.junction_terms(
-                y0, Y, M, V0, V, spec_idx, a_spec, sdev.item(), srel.item(), sasym.item(), nu.item(),
-                student, skip,
+                y0,
+                Y,
+                M,
+                V0,
+                V,
+                spec_idx,
+                a_spec,
+                sdev.item(),
+                srel.item(),
+                sasym.item(),
+                nu.item(),
+                student,
+                skip,
             )
             da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, spec_idx, a_spec.shape[0])
             out = np.empty(a_spec.shape[0] + 4)
             out[: a_spec.shape[0]] = da
-            out[a_spec.shape[0]:] = ds
+            out[a_spec.shape[0] :] = ds
             return np.asarray(ll.sum()), out
 
         return full

@@ -70,6 +70,7 @@ class PilotEstimate:
 
     def describe(self, w_taxon: np.ndarray | None = None, w_specimen: np.ndarray | None = None) -> str:
         """One line for provenance and reports (the weights used, default the pilot's own)."""
+
         def share(w: np.ndarray) -> str:
             if w.size == 0:
                 return "absent"
@@ -77,17 +78,30 @@ class PilotEstimate:
 
         w_t = self.w_taxon if w_taxon is None else w_taxon
         w_s = self.w_specimen if w_specimen is None else w_specimen
-        return (f"partial centring from a pilot: taxon level {share(w_t)}, specimen level "
-                f"{share(w_s)}; 1 = centred, 0 = non-centred")
+        return (
+            f"partial centring from a pilot: taxon level {share(w_t)}, specimen level "
+            f"{share(w_s)}; 1 = centred, 0 = non-centred"
+        )
 
 
-def _specimen_loglik(arrays: dict, spec_idx: np.ndarray, n_spec: int, a_spec: np.ndarray, sdev: float,
-                     student: bool) -> tuple[np.ndarray, np.ndarray]:
+def _specimen_loglik(
+    arrays: dict, spec_idx: np.ndarray, n_spec: int, a_spec: np.ndarray, sdev: float, student: bool
+) -> tuple[np.ndarray, np.ndarray]:
     """Per-specimen log-likelihood and its derivative in the specimen's exponent (normal deviation)."""
     a = np.clip(a_spec, *PILOT_BOUNDS)
     ll, dll, _, _ = kernel.fast_terms(
-        arrays["log_parent_obs"], arrays["mu_post"], arrays["g_post"], arrays["c_post"], arrays["ybar"],
-        arrays["daughter_mask"], arrays["s0sq"], arrays["ll_daughters"], spec_idx, a, float(sdev), 30.0,
+        arrays["log_parent_obs"],
+        arrays["mu_post"],
+        arrays["g_post"],
+        arrays["c_post"],
+        arrays["ybar"],
+        arrays["daughter_mask"],
+        arrays["s0sq"],
+        arrays["ll_daughters"],
+        spec_idx,
+        a,
+        float(sdev),
+        30.0,
         student,
     )
     return (np.bincount(spec_idx, ll, minlength=n_spec), np.bincount(spec_idx, dll[:, 0], minlength=n_spec))
@@ -106,13 +120,21 @@ def _pilot_specimens(arrays: dict, spec_idx: np.ndarray, n_spec: int) -> tuple[n
     # joint (a, sigma_dev) with one exponent: profile over a on a coarse grid, then refine each
     best = None
     for log_s in np.log([0.01, 0.03, 0.1, 0.3]):
-        res = minimize_scalar(lambda a: common_negll(np.array([a, log_s])), bounds=PILOT_BOUNDS,
-                              method="bounded", options={"xatol": 1e-3})
+        res = minimize_scalar(
+            lambda a, log_s=log_s: common_negll(np.array([a, log_s])),
+            bounds=PILOT_BOUNDS,
+            method="bounded",
+            options={"xatol": 1e-3},
+        )
         if best is None or res.fun < best[0]:
             best = (res.fun, res.x, log_s)
     a0 = float(best[1])
-    res = minimize_scalar(lambda ls: common_negll(np.array([a0, ls])), bounds=(np.log(1e-3), np.log(1.0)),
-                          method="bounded", options={"xatol": 1e-3})
+    res = minimize_scalar(
+        lambda ls: common_negll(np.array([a0, ls])),
+        bounds=(np.log(1e-3), np.log(1.0)),
+        method="bounded",
+        options={"xatol": 1e-3},
+    )
     sdev = float(np.exp(res.x))
 
     a = np.full(n_spec, a0)
@@ -158,8 +180,9 @@ def _spread(estimates: np.ndarray, sds: np.ndarray, groups: np.ndarray, prior_sc
     return float(np.interp(0.5, cdf, taus))
 
 
-def _pool(estimates: np.ndarray, sds: np.ndarray, tau: float, groups: np.ndarray, n_groups: int
-          ) -> tuple[np.ndarray, np.ndarray]:
+def _pool(
+    estimates: np.ndarray, sds: np.ndarray, tau: float, groups: np.ndarray, n_groups: int
+) -> tuple[np.ndarray, np.ndarray]:
     """Precision-weighted group means of ``estimates`` and their SDs given the spread ``tau``."""
     with np.errstate(divide="ignore"):
         prec = np.where(np.isfinite(sds), 1.0 / (sds**2 + tau**2), 0.0)
@@ -178,9 +201,16 @@ def weights(tau: float, sds: np.ndarray) -> np.ndarray:
     return np.where(np.isfinite(sds), np.nan_to_num(w, nan=0.0), 0.0)
 
 
-def pilot(arrays: dict, specimen_idx: np.ndarray, specimen_taxon_idx: np.ndarray, n_taxa: int,
-          tau_taxon_prior: float, tau_specimen_prior: float, taxon_level: bool, specimen_level: bool
-          ) -> PilotEstimate:
+def pilot(
+    arrays: dict,
+    specimen_idx: np.ndarray,
+    specimen_taxon_idx: np.ndarray,
+    n_taxa: int,
+    tau_taxon_prior: float,
+    tau_specimen_prior: float,
+    taxon_level: bool,
+    specimen_level: bool,
+) -> PilotEstimate:
     """Run the pilot on the fast-form arrays (see :func:`allobranch.model.density.fast_arrays`).
 
     Parameters
@@ -206,8 +236,14 @@ def pilot(arrays: dict, specimen_idx: np.ndarray, specimen_taxon_idx: np.ndarray
     tau_t = _spread(a_t, sd_t, np.zeros(n_taxa, dtype=int), tau_taxon_prior) if taxon_level else 0.0
     mu, _ = _pool(a_t, sd_t, tau_t, np.zeros(n_taxa, dtype=int), 1)
     return PilotEstimate(
-        a_specimen=a_s, sd_specimen=sd_s, a_taxon=a_t, sd_taxon=sd_t, mu=float(mu[0]), sigma_dev=sdev,
-        tau_specimen=tau_s if specimen_level else float("nan"), tau_taxon=tau_t if taxon_level else float("nan"),
+        a_specimen=a_s,
+        sd_specimen=sd_s,
+        a_taxon=a_t,
+        sd_taxon=sd_t,
+        mu=float(mu[0]),
+        sigma_dev=sdev,
+        tau_specimen=tau_s if specimen_level else float("nan"),
+        tau_taxon=tau_t if taxon_level else float("nan"),
         w_specimen=weights(tau_s, sd_s) if specimen_level else np.zeros(0),
         w_taxon=weights(tau_t, sd_t) if taxon_level else np.zeros(0),
     )

@@ -15,7 +15,6 @@ import pandas as pd
 
 from allobranch.intake.mapping import ColumnMapping
 
-
 #: Kinds of daughter split the simulator knows (see :func:`simulate_junctions`).
 SPLITS: tuple[str, ...] = ("dirichlet", "uniform", "lognormal", "side_branch")
 
@@ -114,7 +113,9 @@ def simulate_junctions(
     if split not in SPLITS:
         raise ValueError(f"split must be one of {', '.join(SPLITS)}; got {split!r}")
     rng = np.random.default_rng(seed)
-    names = [f"T{i + 1}" for i in range(taxa)] if isinstance(taxa, (int, np.integer)) else [str(t) for t in taxa]
+    names = (
+        [f"T{i + 1}" for i in range(taxa)] if isinstance(taxa, (int, np.integer)) else [str(t) for t in taxa]
+    )
     n_spec = _per_group(specimens_per_taxon, len(names), "specimens_per_taxon")
     if taxon_exponents is not None:
         a_taxon = {t: float(taxon_exponents[t]) for t in names}
@@ -181,7 +182,9 @@ def _shares(kind: str, k: int, concentration: float, a: float, rng: np.random.Ge
     return rng.permutation(np.concatenate([[main], rest]))
 
 
-def _observe(true_vals: np.ndarray, rel_error: float, abs_error: float, rng: np.random.Generator) -> np.ndarray:
+def _observe(
+    true_vals: np.ndarray, rel_error: float, abs_error: float, rng: np.random.Generator
+) -> np.ndarray:
     """Readings of true radii with relative and absolute error, redrawn until positive."""
     out = true_vals * np.exp(rel_error * rng.standard_normal(true_vals.shape))
     if abs_error > 0:

@@ -6,8 +6,9 @@ it and a junction table into a PyMC model in one place.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field, replace
-from typing import Any, Mapping
+from typing import Any
 
 #: Allowed likelihood forms.
 LIKELIHOODS: tuple[str, ...] = ("marginal", "latent")
@@ -130,7 +131,7 @@ class ModelSpec:
                 raise ValueError(f"fixed exponent for {label!r} must lie in (0, 20), got {value!r}")
         object.__setattr__(self, "fixed_taxa", {str(k): float(v) for k, v in dict(self.fixed_taxa).items()})
 
-    def with_(self, **changes: Any) -> "ModelSpec":
+    def with_(self, **changes: Any) -> ModelSpec:
         """Return a copy with some fields changed."""
         return replace(self, **changes)
 
@@ -141,7 +142,7 @@ class ModelSpec:
         return out
 
     @classmethod
-    def from_dict(cls, data: Mapping[str, Any]) -> "ModelSpec":
+    def from_dict(cls, data: Mapping[str, Any]) -> ModelSpec:
         """Inverse of :meth:`to_dict`."""
         data = dict(data)
         data["priors"] = Priors(**data.get("priors", {}))

@@ -60,22 +60,32 @@ class GroupLayout:
     def describe(self) -> str:
         """One line for provenance, ``summary.md`` and the report."""
         if self.whiten:
-            return ("whitened hierarchy: every exponent sampled as its conditional mean plus a standardised "
-                    "deviation given the spreads, from the pilot's normal approximation of each specimen")
+            return (
+                "whitened hierarchy: every exponent sampled as its conditional mean plus a standardised "
+                "deviation given the spreads, from the pilot's normal approximation of each specimen"
+            )
         cond = "; population exponent sampled given the groups under it" if self.condition_mu else ""
         if self.parametrization == "auto" and self.pilot is not None:
             return self.pilot.describe(self.w_taxon, self.w_specimen) + cond
-        kind = {"centered": "centred", "noncentered": "non-centred"}.get(self.parametrization, self.parametrization)
+        kind = {"centered": "centred", "noncentered": "non-centred"}.get(
+            self.parametrization, self.parametrization
+        )
         return f"{kind} at every level{cond}"
 
-    def with_weights(self, parametrization: str) -> "GroupLayout":
+    def with_weights(self, parametrization: str) -> GroupLayout:
         """The same layout with every free group centred or non-centred (fixed groups stay non-centred)."""
         value = {"centered": 1.0, "noncentered": 0.0}[parametrization]
         return GroupLayout(
-            self.taxon_level, self.specimen_level, self.fixed_taxa, self.fixed_values, self.pinned,
+            self.taxon_level,
+            self.specimen_level,
+            self.fixed_taxa,
+            self.fixed_values,
+            self.pinned,
             np.where(self.fixed_taxa, 0.0, value) if self.taxon_level else np.zeros(0),
             np.where(self.pinned, 0.0, value) if self.specimen_level else np.zeros(0),
-            parametrization, self.pilot, condition_mu=value == 1.0 and self.has_top_groups,
+            parametrization,
+            self.pilot,
+            condition_mu=value == 1.0 and self.has_top_groups,
         )
 
     @property
@@ -123,33 +133,71 @@ def group_layout(data: ModelData, spec: ModelSpec, arrays: dict | None = None) -
             srel = float(data.rel_error) if data.rel_error else PILOT_REL_ERROR
             probe = replace(data, rel_error=srel)
             arrays = fast_arrays(probe, estimate_sigma_asym(probe, srel))
-        est = pilot(arrays, data.specimen_idx, data.specimen_taxon_idx, len(data.taxa), spec.priors.tau_taxon,
-                    spec.priors.tau_specimen, taxon_level, specimen_level)
-    layout = GroupLayout(taxon_level, specimen_level, fixed, values, pinned,
-                         est.w_taxon if (est is not None and taxon_level) else np.zeros(len(data.taxa) * taxon_level),
-                         est.w_specimen if (est is not None and specimen_level)
-                         else np.zeros(len(data.specimens) * specimen_level),
-                         spec.parametrization, est)
+        est = pilot(
+            arrays,
+            data.specimen_idx,
+            data.specimen_taxon_idx,
+            len(data.taxa),
+            spec.priors.tau_taxon,
+            spec.priors.tau_specimen,
+            taxon_level,
+            specimen_level,
+        )
+    layout = GroupLayout(
+        taxon_level,
+        specimen_level,
+        fixed,
+        values,
+        pinned,
+        est.w_taxon if (est is not None and taxon_level) else np.zeros(len(data.taxa) * taxon_level),
+        est.w_specimen
+        if (est is not None and specimen_level)
+        else np.zeros(len(data.specimens) * specimen_level),
+        spec.parametrization,
+        est,
+    )
     if spec.parametrization != "auto":
         return layout.with_weights(spec.parametrization)
     w_t = np.where(fixed, 0.0, layout.w_taxon) if taxon_level else layout.w_taxon
     w_s = np.where(pinned, 0.0, layout.w_specimen) if specimen_level else layout.w_specimen
-    auto = GroupLayout(taxon_level, specimen_level, fixed, values, pinned, w_t, w_s, "auto", est,
-                       whiten=spec.fixed_exponent is None and (taxon_level or specimen_level))
-    if spec.fixed_exponent is None and auto.has_top_groups and auto.top_weights().size \
-            and float(np.mean(auto.top_weights())) >= CONDITION_MU_ABOVE:
+    auto = GroupLayout(
+        taxon_level,
+        specimen_level,
+        fixed,
+        values,
+        pinned,
+        w_t,
+        w_s,
+        "auto",
+        est,
+        whiten=spec.fixed_exponent is None and (taxon_level or specimen_level),
+    )
+    if (
+        spec.fixed_exponent is None
+        and auto.has_top_groups
+        and auto.top_weights().size
+        and float(np.mean(auto.top_weights())) >= CONDITION_MU_ABOVE
+    ):
         # well-measured groups under mu: centre them and condition mu on them (removes the mu-tau funnel)
         if taxon_level:
             w_t = np.where(fixed, 0.0, 1.0)
         else:
             w_s = np.where(pinned, 0.0, 1.0)
-        return GroupLayout(taxon_level, specimen_level, fixed, values, pinned, w_t, w_s, "auto", est, True,
-                           auto.whiten)
+        return GroupLayout(
+            taxon_level, specimen_level, fixed, values, pinned, w_t, w_s, "auto", est, True, auto.whiten
+        )
     return auto
+
 
 #: Hyper-parameters (besides exponents) that diagnostics always report when present.
 HYPER_PARAMETERS: tuple[str, ...] = (
-    "mu", "tau_taxon", "tau_specimen", "sigma_dev", "sigma_meas", "sigma_asym", "nu",
+    "mu",
+    "tau_taxon",
+    "tau_specimen",
+    "sigma_dev",
+    "sigma_meas",
+    "sigma_asym",
+    "nu",
 )
 
 
@@ -186,8 +234,12 @@ class BuiltModel:
         return self.spec.deviation == "student_t"
 
     def pointwise(
-        self, a_spec: np.ndarray, sigma_dev: float, sigma_rel: float | None = None,
-        sigma_asym: float | None = None, nu: float = 30.0,
+        self,
+        a_spec: np.ndarray,
+        sigma_dev: float,
+        sigma_rel: float | None = None,
+        sigma_asym: float | None = None,
+        nu: float = 30.0,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per-junction log-likelihood and the log parent's predictive mean and variance for one draw.
 
@@ -199,17 +251,37 @@ class BuiltModel:
         if self.form == "fast":
             A = self.arrays
             ll, _, mean, var = kernel.fast_terms(
-                A["log_parent_obs"], A["mu_post"], A["g_post"], A["c_post"], A["ybar"],
-                A["daughter_mask"], A["s0sq"], A["ll_daughters"], d.specimen_idx, a_spec,
-                float(sigma_dev), float(nu), self.student,
+                A["log_parent_obs"],
+                A["mu_post"],
+                A["g_post"],
+                A["c_post"],
+                A["ybar"],
+                A["daughter_mask"],
+                A["s0sq"],
+                A["ll_daughters"],
+                d.specimen_idx,
+                a_spec,
+                float(sigma_dev),
+                float(nu),
+                self.student,
             )
         else:
             srel = float(d.rel_error or 0.0) if sigma_rel is None else float(sigma_rel)
             skip = np.ones(5, dtype=bool)
             ll, _, mean, var = kernel.junction_terms(
-                d.log_parent, d.log_daughters, d.mask.astype(float), d.var_abs_parent,
-                d.var_abs_daughters, d.specimen_idx, a_spec, float(sigma_dev), srel,
-                float(sigma_asym), float(nu), self.student, skip,
+                d.log_parent,
+                d.log_daughters,
+                d.mask.astype(float),
+                d.var_abs_parent,
+                d.var_abs_daughters,
+                d.specimen_idx,
+                a_spec,
+                float(sigma_dev),
+                srel,
+                float(sigma_asym),
+                float(nu),
+                self.student,
+                skip,
             )
         if self.student:
             ll = ll + (gammaln((nu + 1) / 2) - gammaln(nu / 2) - 0.5 * np.log(nu * np.pi))

@@ -13,8 +13,15 @@ from collections.abc import Mapping
 import pandas as pd
 
 #: Keys of one attempt, in the order of the table's columns (after ``attempt``).
-ATTEMPT_KEYS: tuple[str, ...] = ("parametrization", "target_accept", "divergences", "max_r_hat", "min_ess_bulk",
-                                 "seconds", "kept")
+ATTEMPT_KEYS: tuple[str, ...] = (
+    "parametrization",
+    "target_accept",
+    "divergences",
+    "max_r_hat",
+    "min_ess_bulk",
+    "seconds",
+    "kept",
+)
 #: Decimals shown for the numeric keys (R-hat to the third decimal, as its 1.01 threshold needs).
 DECIMALS: dict[str, int] = {"max_r_hat": 3, "min_ess_bulk": 0, "seconds": 2}
 
@@ -68,7 +75,9 @@ def _how(attempt: Mapping) -> str:
 
 def _outcome(attempt: Mapping) -> str:
     div = attempt.get("divergences")
-    text = f"{int(div)} divergence{'' if int(div) == 1 else 's'}" if div is not None else "no divergence count"
+    text = (
+        f"{int(div)} divergence{'' if int(div) == 1 else 's'}" if div is not None else "no divergence count"
+    )
     if attempt.get("max_r_hat") is not None:
         text += f", max R-hat {float(attempt['max_r_hat']):.3f}"
     if attempt.get("min_ess_bulk") is not None:

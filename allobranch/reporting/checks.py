@@ -41,7 +41,10 @@ SOURCES: tuple[str, ...] = ("observed", "replicated")
 PPC_DRAWS = 50
 #: Statistics compared per check and taxon: ``corr_split`` is the correlation of the law residual with the
 #: log split ratio (zero on average when the exponent and the law fit every kind of junction).
-STATISTICS: dict[str, tuple[str, ...]] = {"law_residual": ("mean", "sd", "corr_split"), "split": ("mean", "sd")}
+STATISTICS: dict[str, tuple[str, ...]] = {
+    "law_residual": ("mean", "sd", "corr_split"),
+    "split": ("mean", "sd"),
+}
 #: A check is marked as failing when its p-value is below this or above one minus this (two-sided 5 %;
 #: common practice for posterior predictive p-values, no single source).
 PPP_TAIL = 0.025
@@ -61,7 +64,9 @@ def _asymmetry_scale(result, post, c: int, d: int, taxon_idx: np.ndarray, taxa: 
     empirical = result.settings.get("sigma_asym_empirical") or {}
     missing = [t for t in taxa if t not in empirical]
     if missing:
-        raise ValueError(f"the fit records no asymmetry scale for taxa {missing} (neither sampled nor empirical)")
+        raise ValueError(
+            f"the fit records no asymmetry scale for taxa {missing} (neither sampled nor empirical)"
+        )
     return np.array([float(empirical[t]) for t in taxa])[taxon_idx]
 
 
@@ -137,8 +142,14 @@ def ppc_checks(result, n_draws: int = PPC_DRAWS, seed: int = 0) -> pd.DataFrame:
         sasym = _asymmetry_scale(result, post, c, d, data.taxon_idx, taxa)
         rep_p, rep_d = _replicate(data, a, float(post["sigma_dev"].values[c, d]), srel, sasym, nu, rng)
         frames += [
-            _frame("law_residual", taxon, junction, "observed", k,
-                   data.log_parent - _law(data.log_daughters, data.mask, a)),
+            _frame(
+                "law_residual",
+                taxon,
+                junction,
+                "observed",
+                k,
+                data.log_parent - _law(data.log_daughters, data.mask, a),
+            ),
             _frame("law_residual", taxon, junction, "replicated", k, rep_p - _law(rep_d, data.mask, a)),
             _frame("split", taxon, junction, "replicated", k, _split(rep_d, data.mask)),
         ]
@@ -148,8 +159,16 @@ def ppc_checks(result, n_draws: int = PPC_DRAWS, seed: int = 0) -> pd.DataFrame:
 
 
 def _frame(check: str, taxon, junction, source: str, draw: int, values: np.ndarray) -> pd.DataFrame:
-    return pd.DataFrame({"check": check, "taxon": taxon, "junction": junction, "source": source, "draw": draw,
-                         "value": values})
+    return pd.DataFrame(
+        {
+            "check": check,
+            "taxon": taxon,
+            "junction": junction,
+            "source": source,
+            "draw": draw,
+            "value": values,
+        }
+    )
 
 
 def _statistics(values: pd.DataFrame) -> pd.DataFrame:
@@ -173,8 +192,16 @@ def _split_correlations(checks: pd.DataFrame) -> pd.DataFrame:
             ratio = rep.reindex(group["junction"]).to_numpy()
         x, y = np.log(ratio), group["value"].to_numpy()
         r = np.corrcoef(x, y)[0, 1] if len(x) > 2 and np.ptp(x) > 0 and np.ptp(y) > 0 else np.nan
-        rows.append({"check": "law_residual", "taxon": taxon, "source": source, "draw": draw,
-                     "statistic": "corr_split", "stat": r})
+        rows.append(
+            {
+                "check": "law_residual",
+                "taxon": taxon,
+                "source": source,
+                "draw": draw,
+                "statistic": "corr_split",
+                "stat": r,
+            }
+        )
     return pd.DataFrame(rows, columns=["check", "taxon", "source", "draw", "statistic", "stat"])
 
 
@@ -201,19 +228,32 @@ def ppc_pvalues(checks: pd.DataFrame) -> pd.DataFrame:
     for (check, taxon, statistic), group in stats.groupby(["check", "taxon", "statistic"], sort=False):
         rep = group[group["source"] == "replicated"].set_index("draw")["stat"]
         obs = group[group["source"] == "observed"].set_index("draw")["stat"]
-        observed = obs.reindex(rep.index) if (obs.index >= 0).all() else pd.Series(float(obs.iloc[0]), rep.index)
+        observed = (
+            obs.reindex(rep.index) if (obs.index >= 0).all() else pd.Series(float(obs.iloc[0]), rep.index)
+        )
         valid = rep.notna() & observed.notna()
         p = float((rep[valid] >= observed[valid]).mean()) if valid.any() else np.nan
-        rows.append({"check": check, "taxon": taxon, "statistic": statistic, "observed": float(observed.mean()),
-                     "replicated": float(rep.mean()), "p_value": p,
-                     "fails": bool(np.isfinite(p) and (p < PPP_TAIL or p > 1 - PPP_TAIL)),
-                     "n_draws": int(valid.sum())})
-    out = pd.DataFrame(rows, columns=["check", "taxon", "statistic", "observed", "replicated", "p_value", "fails",
-                                      "n_draws"])
+        rows.append(
+            {
+                "check": check,
+                "taxon": taxon,
+                "statistic": statistic,
+                "observed": float(observed.mean()),
+                "replicated": float(rep.mean()),
+                "p_value": p,
+                "fails": bool(np.isfinite(p) and (p < PPP_TAIL or p > 1 - PPP_TAIL)),
+                "n_draws": int(valid.sum()),
+            }
+        )
+    out = pd.DataFrame(
+        rows, columns=["check", "taxon", "statistic", "observed", "replicated", "p_value", "fails", "n_draws"]
+    )
     taxa = {t: i for i, t in enumerate(dict.fromkeys(checks["taxon"]))}
     stat_order = {s: i for s, i in zip(("mean", "sd", "corr_split"), range(3))}
-    keys = [(order.get(c, len(order)), taxa[t], stat_order[s]) for c, t, s in
-            zip(out["check"], out["taxon"], out["statistic"])]
+    keys = [
+        (order.get(c, len(order)), taxa[t], stat_order[s])
+        for c, t, s in zip(out["check"], out["taxon"], out["statistic"])
+    ]
     return out.iloc[sorted(range(len(out)), key=keys.__getitem__)].reset_index(drop=True)
 
 
@@ -232,9 +272,14 @@ def ppc_warnings(pvalues: pd.DataFrame) -> list[str]:
     out = []
     failing = pvalues[pvalues["fails"]]
     for (check, taxon), group in failing.groupby(["check", "taxon"], sort=False):
-        stats = ", ".join(f"{s} (observed {o:.3g}, replicated {r:.3g}, p = {p:.2f})"
-                          for s, o, r, p in group[["statistic", "observed", "replicated", "p_value"]].itertuples(
-                              index=False))
-        out.append(f"posterior predictive check of the {CHECKS[check]} fails in taxon {taxon}: {stats}. The "
-                   "model does not reproduce this feature of the data; read the exponent with care.")
+        stats = ", ".join(
+            f"{s} (observed {o:.3g}, replicated {r:.3g}, p = {p:.2f})"
+            for s, o, r, p in group[["statistic", "observed", "replicated", "p_value"]].itertuples(
+                index=False
+            )
+        )
+        out.append(
+            f"posterior predictive check of the {CHECKS[check]} fails in taxon {taxon}: {stats}. The "
+            "model does not reproduce this feature of the data; read the exponent with care."
+        )
     return out

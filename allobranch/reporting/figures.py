@@ -21,8 +21,15 @@ from allobranch.reporting.plots import (
 from allobranch.reporting.style import figure, house_style, save_figure
 
 #: Figure files written by :func:`write_figures`, by name (without suffix).
-FIGURE_NAMES = ("exponents", "ratio_plane", "naive_vs_model", "ppc_residual", "ppc_split", "law_comparison",
-                "diagnostics")
+FIGURE_NAMES = (
+    "exponents",
+    "ratio_plane",
+    "naive_vs_model",
+    "ppc_residual",
+    "ppc_split",
+    "law_comparison",
+    "diagnostics",
+)
 
 
 #: Short display names of the classic laws in figures.
@@ -49,8 +56,14 @@ def display_names(laws_table: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def make_figures(result, laws_table: pd.DataFrame | None = None, *, width: str = "single",
-                 checks: pd.DataFrame | None = None, pvalues: pd.DataFrame | None = None) -> dict:
+def make_figures(
+    result,
+    laws_table: pd.DataFrame | None = None,
+    *,
+    width: str = "single",
+    checks: pd.DataFrame | None = None,
+    pvalues: pd.DataFrame | None = None,
+) -> dict:
     """Draw every figure for ``result`` (a FitResult); returns name -> matplotlib Figure.
 
     Parameters
@@ -111,8 +124,14 @@ def read_laws_table(fit_dir: str | os.PathLike) -> pd.DataFrame | None:
     return pd.read_csv(path) if path.is_file() else None
 
 
-def write_figures(result, folder: str | os.PathLike, *, laws_table: pd.DataFrame | None = None,
-                  formats: tuple[str, ...] = ("pdf", "svg", "png"), width: str = "single") -> list[Path]:
+def write_figures(
+    result,
+    folder: str | os.PathLike,
+    *,
+    laws_table: pd.DataFrame | None = None,
+    formats: tuple[str, ...] = ("pdf", "svg", "png"),
+    width: str = "single",
+) -> list[Path]:
     """Draw and save every figure into ``folder`` (created if needed); returns the files written."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)

@@ -46,8 +46,12 @@ METHODS_NOTE = (
 
 #: Image types accepted as figure files, by suffix.
 IMAGE_TYPES: dict[str, str] = {
-    ".png": "image/png", ".jpg": "image/jpeg", ".jpeg": "image/jpeg", ".gif": "image/gif",
-    ".svg": "image/svg+xml", ".webp": "image/webp",
+    ".png": "image/png",
+    ".jpg": "image/jpeg",
+    ".jpeg": "image/jpeg",
+    ".gif": "image/gif",
+    ".svg": "image/svg+xml",
+    ".webp": "image/webp",
 }
 
 #: Resolution of matplotlib figures rendered into the report.
@@ -131,7 +135,9 @@ def format_cell(value: object) -> tuple[str, bool]:
     return str(value), False
 
 
-def table_view(table: Table | None, *, scroll: bool = False, wide: bool = False, id: str = "") -> TableView | None:
+def table_view(
+    table: Table | None, *, scroll: bool = False, wide: bool = False, id: str = ""
+) -> TableView | None:
     """A :class:`TableView` of a DataFrame, or of a mapping as two columns (item, value); None for None.
 
     Parameters
@@ -239,8 +245,11 @@ def status_line(groups: Sequence[WarningGroup]) -> dict[str, object]:
         return {"ok": True, "text": "No warnings: every diagnostic passed."}
     n = sum(g.count for g in groups)
     kinds = ", ".join(g.kind for g in groups[:4]) + (", ..." if len(groups) > 4 else "")
-    return {"ok": False, "text": f"{n} warning{'s' if n != 1 else ''} of {len(groups)} kind"
-                                 f"{'s' if len(groups) != 1 else ''} ({kinds})."}
+    return {
+        "ok": False,
+        "text": f"{n} warning{'s' if n != 1 else ''} of {len(groups)} kind"
+        f"{'s' if len(groups) != 1 else ''} ({kinds}).",
+    }
 
 
 @dataclass
@@ -307,29 +316,50 @@ def render_report(parts: ReportParts) -> str:
         "status": status_line(groups),
         "caution_short": CAUTION_SHORT,
         "toc": SECTIONS,
-        "answer": {"heading": parts.answer_heading, "table": table_view(parts.answer, id="answer-table"),
-                   "notes": _paragraphs(parts.answer_notes),
-                   "figure": next(iter(figure_views(parts.answer_figure)), None)},
+        "answer": {
+            "heading": parts.answer_heading,
+            "table": table_view(parts.answer, id="answer-table"),
+            "notes": _paragraphs(parts.answer_notes),
+            "figure": next(iter(figure_views(parts.answer_figure)), None),
+        },
         "evidence": {
-            "laws": table_view(parts.laws), "all_scopes": table_view(parts.laws_all_scopes, scroll=True),
-            "verdicts": table_view(parts.verdicts, wide=True), "rule": parts.verdict_rule,
-            "law_figures": figure_views(parts.law_figures), "no_laws": parts.no_laws,
-            "checks": table_view(parts.checks), "checks_text": _paragraphs(parts.checks_text),
+            "laws": table_view(parts.laws),
+            "all_scopes": table_view(parts.laws_all_scopes, scroll=True),
+            "verdicts": table_view(parts.verdicts, wide=True),
+            "rule": parts.verdict_rule,
+            "law_figures": figure_views(parts.law_figures),
+            "no_laws": parts.no_laws,
+            "checks": table_view(parts.checks),
+            "checks_text": _paragraphs(parts.checks_text),
             "check_figures": figure_views(parts.check_figures),
-            "exponents": table_view(parts.exponents, scroll=True), "naive": table_view(parts.naive, scroll=True),
+            "exponents": table_view(parts.exponents, scroll=True),
+            "naive": table_view(parts.naive, scroll=True),
             "exponent_figures": figure_views(parts.exponent_figures),
         },
         "warning_groups": groups,
         "warning_notes": _paragraphs(parts.warning_notes),
-        "attempts": {"sentence": parts.attempts_sentence, "parametrization": parts.parametrization,
-                     "table": table_view(parts.attempts)},
-        "diagnostics": {"table": table_view(parts.diagnostics, scroll=True),
-                        "figures": figure_views(parts.diagnostic_figures)},
-        "data": {"summary": table_view(parts.data_summary), "flags": flags, "flags_notes": flag_notes,
-                 "figures": figure_views(parts.data_figures)},
-        "methods": {"model": _paragraphs(parts.model_description), "priors": table_view(parts.priors),
-                    "assumptions": [str(a) for a in parts.assumptions], "paragraphs": _paragraphs(parts.methods),
-                    "note": METHODS_NOTE},
+        "attempts": {
+            "sentence": parts.attempts_sentence,
+            "parametrization": parts.parametrization,
+            "table": table_view(parts.attempts),
+        },
+        "diagnostics": {
+            "table": table_view(parts.diagnostics, scroll=True),
+            "figures": figure_views(parts.diagnostic_figures),
+        },
+        "data": {
+            "summary": table_view(parts.data_summary),
+            "flags": flags,
+            "flags_notes": flag_notes,
+            "figures": figure_views(parts.data_figures),
+        },
+        "methods": {
+            "model": _paragraphs(parts.model_description),
+            "priors": table_view(parts.priors),
+            "assumptions": [str(a) for a in parts.assumptions],
+            "paragraphs": _paragraphs(parts.methods),
+            "note": METHODS_NOTE,
+        },
         "caution": CAUTION,
         "provenance": table_view({"allobranch version": __version__, **dict(parts.provenance)}),
     }

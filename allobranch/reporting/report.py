@@ -20,7 +20,7 @@ from allobranch.inference.results import HDI_PROB
 from allobranch.reporting.attempts import attempts_sentence, attempts_table, parametrization_note
 from allobranch.reporting.checks import CHECKS, PPP_TAIL, ppc_checks, ppc_pvalues, ppc_warnings
 from allobranch.reporting.figures import law_display, make_figures
-from allobranch.reporting.html import ReportParts, write_html_report
+from allobranch.reporting.html import write_html_report
 from allobranch.reporting.plots._common import hdi_percent
 from allobranch.reporting.plots.laws import clip_note
 from allobranch.reporting.saved_comparison import SavedComparison
@@ -62,11 +62,28 @@ ASSUMPTIONS = (
 )
 
 #: Columns of the naive-versus-model table shown in the report.
-NAIVE_SHOWN: tuple[str, ...] = ("taxon", "mean", "hdi_low", "hdi_high", "naive_median", "naive_q25", "naive_q75",
-                                "n_junctions", "n_no_root")
+NAIVE_SHOWN: tuple[str, ...] = (
+    "taxon",
+    "mean",
+    "hdi_low",
+    "hdi_high",
+    "naive_median",
+    "naive_q25",
+    "naive_q75",
+    "n_junctions",
+    "n_no_root",
+)
 #: Columns of the law-evidence tables shown in the report.
-EVIDENCE_SHOWN: tuple[str, ...] = ("scope", "law", "elpd_diff", "dse", "weight", "log10_bf", "p_rope",
-                                   "n_high_k")
+EVIDENCE_SHOWN: tuple[str, ...] = (
+    "scope",
+    "law",
+    "elpd_diff",
+    "dse",
+    "weight",
+    "log10_bf",
+    "p_rope",
+    "n_high_k",
+)
 
 
 def methods_paragraph(result, hdi_label: str = "90% HDI") -> str:
@@ -103,15 +120,21 @@ def methods_paragraph(result, hdi_label: str = "90% HDI") -> str:
 def _law_values(evidence: pd.DataFrame | None) -> dict[str, float]:
     if evidence is None or evidence.empty:
         return {}
-    return {str(k): float(v) for k, v in evidence[["law", "value"]].drop_duplicates("law").itertuples(index=False)}
+    return {
+        str(k): float(v) for k, v in evidence[["law", "value"]].drop_duplicates("law").itertuples(index=False)
+    }
 
 
 def _verdict_label(verdict: str, values: dict[str, float]) -> str:
     return law_display(verdict, values[verdict]) if verdict in values else str(verdict)
 
 
-def answer_table(exponents: pd.DataFrame, verdicts: pd.DataFrame | None = None,
-                 evidence: pd.DataFrame | None = None, junctions: dict[str, int] | None = None) -> pd.DataFrame:
+def answer_table(
+    exponents: pd.DataFrame,
+    verdicts: pd.DataFrame | None = None,
+    evidence: pd.DataFrame | None = None,
+    junctions: dict[str, int] | None = None,
+) -> pd.DataFrame:
     """The report's answer: population and taxon exponents with their interval and law verdict.
 
     Parameters
@@ -133,17 +156,23 @@ def answer_table(exponents: pd.DataFrame, verdicts: pd.DataFrame | None = None,
     """
     label = hdi_percent(exponents)
     rows = exponents[exponents["level"].isin(["population", "taxon"])]
-    by_scope = {} if verdicts is None else {str(s): (v, r) for s, v, r in verdicts[["scope", "verdict", "reason"]]
-                                                 .itertuples(index=False)}
+    by_scope = (
+        {}
+        if verdicts is None
+        else {str(s): (v, r) for s, v, r in verdicts[["scope", "verdict", "reason"]].itertuples(index=False)}
+    )
     values = _law_values(evidence)
     junctions = junctions or {}
     out = []
     for row in rows.itertuples(index=False):
         population = row.level == "population"
         scope = "overall" if population else str(row.group)
-        entry = {"estimate": "all taxa (population)" if population else str(row.group),
-                 "junctions": sum(junctions.values()) if population else junctions.get(str(row.group)),
-                 "exponent a": f"{row.mean:.2f}", label: f"[{row.hdi_low:.2f}, {row.hdi_high:.2f}]"}
+        entry = {
+            "estimate": "all taxa (population)" if population else str(row.group),
+            "junctions": sum(junctions.values()) if population else junctions.get(str(row.group)),
+            "exponent a": f"{row.mean:.2f}",
+            label: f"[{row.hdi_low:.2f}, {row.hdi_high:.2f}]",
+        }
         if verdicts is not None:
             verdict, reason = by_scope.get(scope, ("—", "not compared"))
             entry.update({"verdict": _verdict_label(str(verdict), values), "reason": str(reason)})
@@ -160,9 +189,11 @@ def _evidence_tables(laws) -> dict:
     overall = shown[shown["scope"] == "overall"].drop(columns="scope")
     verdicts = laws.verdicts.copy()
     verdicts["verdict"] = [_verdict_label(str(v), values) for v in verdicts["verdict"]]
-    return {"laws": overall if len(overall) else shown,
-            "laws_all_scopes": shown if shown["scope"].nunique() > 1 else None,
-            "verdicts": verdicts}
+    return {
+        "laws": overall if len(overall) else shown,
+        "laws_all_scopes": shown if shown["scope"].nunique() > 1 else None,
+        "verdicts": verdicts,
+    }
 
 
 def _diagnostics_table(result) -> pd.DataFrame:
@@ -177,9 +208,16 @@ def _checks_table(pvalues: pd.DataFrame) -> pd.DataFrame:
     return out.round(3)
 
 
-def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "single",
-                 title: str = "Branching-exponent analysis", hdi_prob: float | None = None,
-                 seed: int | None = None) -> Path:
+def build_report(
+    result,
+    path: str | os.PathLike,
+    *,
+    laws=None,
+    width: str = "single",
+    title: str = "Branching-exponent analysis",
+    hdi_prob: float | None = None,
+    seed: int | None = None,
+) -> Path:
     """Write the HTML report of ``result`` (a FitResult) to ``path``.
 
     Parameters
@@ -210,32 +248,45 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
     label = hdi_percent(exponents)
     checks = ppc_checks(result, seed=seed)
     pvalues = ppc_pvalues(checks)
-    figs = make_figures(result, laws.laws_table() if laws is not None else None, width=width, checks=checks,
-                        pvalues=pvalues)
+    figs = make_figures(
+        result, laws.laws_table() if laws is not None else None, width=width, checks=checks, pvalues=pvalues
+    )
     t = result.table
     n_flags = len(t.report.flags)
     warnings = merge_fit_and_comparison(result.warnings, laws.warnings if laws is not None else ())
     warnings += ppc_warnings(pvalues)
     if n_flags:
-        warnings.append(f"{n_flags} junction(s) were flagged during validation (kept in the model); see the data "
-                        "section.")
+        warnings.append(
+            f"{n_flags} junction(s) were flagged during validation (kept in the model); see the data section."
+        )
     junctions = t.data["taxon"].astype(str).value_counts().to_dict()
     evidence = _evidence_tables(laws) if laws is not None else {}
     n_draws = checks.attrs.get("n_draws")
-    answer_notes = [f"Exponent a: posterior mean and {label} (highest-density interval) of the hierarchical "
-                    "model, which accounts for measurement error."]
-    answer_notes.append("Verdict: a law, 'none' (of the laws compared) or 'undecided', by the decision rule "
-                        "under Evidence." if laws is not None else
-                        "No law comparison was given: run 'allobranch compare ... --fit FIT_DIR/fit.nc' into the "
-                        "same folder for verdicts.")
+    answer_notes = [
+        f"Exponent a: posterior mean and {label} (highest-density interval) of the hierarchical "
+        "model, which accounts for measurement error."
+    ]
+    answer_notes.append(
+        "Verdict: a law, 'none' (of the laws compared) or 'undecided', by the decision rule under Evidence."
+        if laws is not None
+        else "No law comparison was given: run 'allobranch compare ... --fit FIT_DIR/fit.nc' into the "
+        "same folder for verdicts."
+    )
     try:
         path = write_html_report(
             path,
             title=title,
-            answer=answer_table(exponents, laws.verdicts if laws is not None else None,
-                                laws.evidence if laws is not None else None, junctions),
-            answer_figure={f"Exponents with {label}s, population, taxa and specimens, and the laws compared":
-                           figs["exponents"]},
+            answer=answer_table(
+                exponents,
+                laws.verdicts if laws is not None else None,
+                laws.evidence if laws is not None else None,
+                junctions,
+            ),
+            answer_figure={
+                f"Exponents with {label}s, population, taxa and specimens, and the laws compared": figs[
+                    "exponents"
+                ]
+            },
             answer_notes=answer_notes,
             answer_heading=f"Branching exponent per taxon ({label})",
             **evidence,
@@ -243,13 +294,17 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
             law_figures=None if laws is None else {f"Law comparison. {clip_note()}": figs["law_comparison"]},
             no_laws="No law comparison in this result folder.",
             checks=_checks_table(pvalues),
-            checks_text=(f"Replicated data drawn from the fitted model at {n_draws} posterior draws (seed {seed}) "
-                         "are compared with the data: the law's residual (observed log parent minus the law's "
-                         "prediction from the observed daughters, at each draw's exponent) and the split "
-                         "(smaller over larger daughter). p is the share of replicates whose statistic is at "
-                         f"least the observed one; outside [{PPP_TAIL:g}, {1 - PPP_TAIL:g}] the check fails."),
-            check_figures={"Law residual: observed (black) against replicated (blue), by taxon": figs["ppc_residual"],
-                           "Split of the daughters: observed against replicated, by taxon": figs["ppc_split"]},
+            checks_text=(
+                f"Replicated data drawn from the fitted model at {n_draws} posterior draws (seed {seed}) "
+                "are compared with the data: the law's residual (observed log parent minus the law's "
+                "prediction from the observed daughters, at each draw's exponent) and the split "
+                "(smaller over larger daughter). p is the share of replicates whose statistic is at "
+                f"least the observed one; outside [{PPP_TAIL:g}, {1 - PPP_TAIL:g}] the check fails."
+            ),
+            check_figures={
+                "Law residual: observed (black) against replicated (blue), by taxon": figs["ppc_residual"],
+                "Split of the daughters: observed against replicated, by taxon": figs["ppc_split"],
+            },
             exponents=rounded(exponents),
             naive=rounded(result.naive_vs_model(hdi_prob)[list(NAIVE_SHOWN)]),
             exponent_figures={"Naive per-junction exponents beside the model": figs["naive_vs_model"]},
@@ -263,11 +318,18 @@ def build_report(result, path: str | os.PathLike, *, laws=None, width: str = "si
             data_summary=_data_summary(result),
             validation_flags=t.report.to_frame(),
             data_figures={"Junction ratios with iso-exponent curves": figs["ratio_plane"]},
-            model_description=MODEL_WORDS.format(error=ERROR_WORDS.get(s.get("error_mode"), ""),
-                                                 deviation=result.spec.deviation, sampler=s.get("sampler"),
-                                                 chains=s.get("chains"), draws=s.get("draws"),
-                                                 tune=s.get("tune"), seed=s.get("seed")),
-            priors=pd.DataFrame([{"parameter": k, "scale": v} for k, v in asdict(result.spec.priors).items()]),
+            model_description=MODEL_WORDS.format(
+                error=ERROR_WORDS.get(s.get("error_mode"), ""),
+                deviation=result.spec.deviation,
+                sampler=s.get("sampler"),
+                chains=s.get("chains"),
+                draws=s.get("draws"),
+                tune=s.get("tune"),
+                seed=s.get("seed"),
+            ),
+            priors=pd.DataFrame(
+                [{"parameter": k, "scale": v} for k, v in asdict(result.spec.priors).items()]
+            ),
             assumptions=ASSUMPTIONS,
             methods=methods_paragraph(result, label),
             provenance={k: v for k, v in result.provenance.items() if k != "command"},
@@ -282,10 +344,12 @@ def _data_summary(result) -> dict:
     t = result.table
     counts = t.data["n_daughters"].value_counts().sort_index()
     return {
-        "source": t.source, "junctions": t.n_junctions, "taxa": len(t.taxa), "specimens": len(t.specimens),
+        "source": t.source,
+        "junctions": t.n_junctions,
+        "taxa": len(t.taxa),
+        "specimens": len(t.specimens),
         "daughters per junction": ", ".join(f"{k}: {v}" for k, v in counts.items()),
         "sizes": f"{t.mapping.measure} in {t.unit}",
         "measurement error": ERROR_WORDS.get(result.settings.get("error_mode"), ""),
         "flagged / excluded rows": f"{len(t.report.flags)} / {len(t.report.excluded)}",
     }
-

@@ -40,13 +40,17 @@ def warnings_from_evidence(evidence: pd.DataFrame) -> list[str]:
         high = evidence[pd.to_numeric(evidence["n_high_k"], errors="coerce").fillna(0) > 0]
         for scope, group in high.groupby("scope", sort=False):
             which = ", ".join(f"{law} ({int(n)})" for law, n in zip(group["law"], group["n_high_k"]))
-            out.append(f"LOO UNRELIABLE in scope {scope}: junctions with high Pareto k in hypotheses {which}; "
-                       "their ELPD terms are not trustworthy (the junctions are named in laws.md)")
+            out.append(
+                f"LOO UNRELIABLE in scope {scope}: junctions with high Pareto k in hypotheses {which}; "
+                "their ELPD terms are not trustworthy (the junctions are named in laws.md)"
+            )
     if "bf_method" in evidence:
         n = int((evidence["bf_method"] == "normal_approx").sum())
         if n:
-            out.append(f"{n} Bayes factor(s) use a normal approximation to the posterior (the law lies in the far "
-                       "tail of the draws): only their order of magnitude is meaningful")
+            out.append(
+                f"{n} Bayes factor(s) use a normal approximation to the posterior (the law lies in the far "
+                "tail of the draws): only their order of magnitude is meaningful"
+            )
     return out
 
 
@@ -82,7 +86,7 @@ class SavedComparison:
         return self.evidence[[c for c in LAWS_TABLE_COLUMNS if c in self.evidence]].reset_index(drop=True)
 
     @classmethod
-    def read(cls, folder: str | os.PathLike) -> "SavedComparison | None":
+    def read(cls, folder: str | os.PathLike) -> SavedComparison | None:
         """Read the comparison's CSV files from ``folder``; None when they are absent.
 
         Parameters
@@ -104,6 +108,8 @@ class SavedComparison:
             warnings = [str(m) for m in messages.get("message", pd.Series(dtype=str)).dropna()]
         else:
             warnings = warnings_from_evidence(evidence)
-            notes.append(f"The comparison's other warnings (e.g. diagnostics of the law fits) were not saved as a "
-                         f"table ({WARNINGS_FILE}); read them in laws.md.")
+            notes.append(
+                f"The comparison's other warnings (e.g. diagnostics of the law fits) were not saved as a "
+                f"table ({WARNINGS_FILE}); read them in laws.md."
+            )
         return cls(evidence=evidence, by_taxon=by_taxon, verdicts=verdicts, warnings=warnings, notes=notes)

@@ -49,8 +49,8 @@ OKABE_ITO: dict[str, str] = {
 
 #: Order in which colours are cycled (yellow last: it is faint on white).
 PALETTE: tuple[str, ...] = tuple(
-    OKABE_ITO[k] for k in ("blue", "orange", "bluish_green", "vermillion", "reddish_purple", "sky_blue",
-                           "black", "yellow")
+    OKABE_ITO[k]
+    for k in ("blue", "orange", "bluish_green", "vermillion", "reddish_purple", "sky_blue", "black", "yellow")
 )
 
 #: Neutral colours for data that is not a law or a model estimate.
@@ -196,7 +196,9 @@ def figure_width_mm(width: str | float) -> float:
     """
     if isinstance(width, str):
         if width not in WIDTHS_MM:
-            raise ValueError(f"width must be one of {tuple(WIDTHS_MM)} or a number of millimetres; got {width!r}")
+            raise ValueError(
+                f"width must be one of {tuple(WIDTHS_MM)} or a number of millimetres; got {width!r}"
+            )
         return WIDTHS_MM[width]
     width = float(width)
     if not np.isfinite(width) or width <= 0:
@@ -328,9 +330,11 @@ def save_figure(
     with house_style():
         for fmt in formats:
             dest = stem.with_name(f"{stem.name}.{fmt}")
-            written.append(atomic_write(
-                dest, lambda fh, fmt=fmt: fig.savefig(fh, format=fmt, dpi=dpi, metadata=_metadata(fmt))
-            ))
+            written.append(
+                atomic_write(
+                    dest, lambda fh, fmt=fmt: fig.savefig(fh, format=fmt, dpi=dpi, metadata=_metadata(fmt))
+                )
+            )
     return written
 
 
@@ -352,4 +356,3 @@ def new_axes(ax, *, width: str | float = "single", aspect: float = 0.75, height_
         return ax
     _, ax = figure(width, aspect, height_mm=height_mm)
     return ax
-

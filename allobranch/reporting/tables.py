@@ -29,10 +29,14 @@ def to_markdown(df: pd.DataFrame) -> str:
 
 def to_latex(df: pd.DataFrame, caption: str = "", label: str = "") -> str:
     """LaTeX table (booktabs) ready for a manuscript."""
-    return rounded(df).to_latex(index=False, caption=caption or None, label=label or None, float_format="%.3f")
+    return rounded(df).to_latex(
+        index=False, caption=caption or None, label=label or None, float_format="%.3f"
+    )
 
 
-def export_table(df: pd.DataFrame, stem: str | Path, formats: tuple[str, ...] = ("csv", "md", "tex")) -> list[Path]:
+def export_table(
+    df: pd.DataFrame, stem: str | Path, formats: tuple[str, ...] = ("csv", "md", "tex")
+) -> list[Path]:
     """Write ``df`` as ``stem.csv``, ``stem.md`` and/or ``stem.tex``."""
     stem = Path(stem)
     paths = []
@@ -60,33 +64,62 @@ def fit_summary_markdown(result, hdi_prob: float = 0.9) -> str:
         lines += ["## WARNINGS -- read before using these numbers", ""]
         lines += [f"- {w}" for w in warnings] + [""]
     else:
-        lines += ["All convergence diagnostics passed (R-hat <= 1.01, bulk and tail ESS >= 400, "
-                  "no divergences, E-BFMI >= 0.3).", ""]
+        lines += [
+            "All convergence diagnostics passed (R-hat <= 1.01, bulk and tail ESS >= 400, "
+            "no divergences, E-BFMI >= 0.3).",
+            "",
+        ]
     for note in result.notes:
         lines.append(f"Note: {note}")
     n_d = t.data["n_daughters"].value_counts().sort_index()
     lines += [
-        "## Data", "",
+        "## Data",
+        "",
         f"- source: `{t.source}`; {t.n_junctions} junctions, {len(t.taxa)} taxa, {len(t.specimens)} specimens",
         "- daughters per junction: " + ", ".join(f"{k}: {v}" for k, v in n_d.items()),
         f"- validation flags: {len(t.report.flags)}; excluded rows: {len(t.report.excluded)}",
-        f"- measurement error: {result.settings.get('error_mode')}", "",
-        f"## Exponents (mean, SD, {int(hdi_prob * 100)} % HDI)", "",
-        to_markdown(result.exponents(hdi_prob).drop(columns=["ess_tail"])), "",
-        "## Variance components", "", to_markdown(result.variance_components(hdi_prob)), "",
-        "## Naive per-junction exponents beside the model (naive ignores measurement error and drops "
-        "junctions without a root)", "",
-        to_markdown(result.naive_vs_model(hdi_prob)[["taxon", "mean", "hdi_low", "hdi_high", "naive_median",
-                                                    "naive_q25", "naive_q75", "n_junctions", "n_no_root"]]),
+        f"- measurement error: {result.settings.get('error_mode')}",
         "",
-        "## Sampler", "",
+        f"## Exponents (mean, SD, {int(hdi_prob * 100)} % HDI)",
+        "",
+        to_markdown(result.exponents(hdi_prob).drop(columns=["ess_tail"])),
+        "",
+        "## Variance components",
+        "",
+        to_markdown(result.variance_components(hdi_prob)),
+        "",
+        "## Naive per-junction exponents beside the model (naive ignores measurement error and drops "
+        "junctions without a root)",
+        "",
+        to_markdown(
+            result.naive_vs_model(hdi_prob)[
+                [
+                    "taxon",
+                    "mean",
+                    "hdi_low",
+                    "hdi_high",
+                    "naive_median",
+                    "naive_q25",
+                    "naive_q75",
+                    "n_junctions",
+                    "n_no_root",
+                ]
+            ]
+        ),
+        "",
+        "## Sampler",
+        "",
         f"- {result.settings.get('sampler')} NUTS, {checks['chains']} chains x {checks['draws']} draws "
         f"(tune {result.settings.get('tune')}), seed {result.settings.get('seed')}, "
         f"{result.settings.get('seconds')} s; divergences {checks['divergences']}, "
         f"min E-BFMI {checks['bfmi_min']:.2f}",
-        f"- input SHA-256 {result.provenance.get('input_sha256', '?')}", "",
+        f"- input SHA-256 {result.provenance.get('input_sha256', '?')}",
+        "",
         *_attempts_markdown(result.settings),
-        "## Caution", "", CAUTION, "",
+        "## Caution",
+        "",
+        CAUTION,
+        "",
     ]
     return "\n".join(lines)
 

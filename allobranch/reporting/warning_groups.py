@@ -102,6 +102,9 @@ def merge_fit_and_comparison(fit_warnings: Iterable[str], comparison_warnings: I
     fit_warnings = [str(w) for w in fit_warnings]
     prefix = "fit of the free model: "
     own = set(fit_warnings)
-    rest = [str(w) for w in comparison_warnings
-            if not (str(w).startswith(prefix) and str(w)[len(prefix):] in own)]
+    rest = [
+        str(w)
+        for w in comparison_warnings
+        if not (str(w).startswith(prefix) and str(w)[len(prefix) :] in own)
+    ]
     return fit_warnings + rest

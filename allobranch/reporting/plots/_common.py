@@ -13,7 +13,15 @@ from allobranch.reporting.style import law_styles
 
 #: Columns of an exponents table (one row per level x group).
 EXPONENT_COLUMNS: tuple[str, ...] = (
-    "level", "group", "taxon", "mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk",
+    "level",
+    "group",
+    "taxon",
+    "mean",
+    "sd",
+    "hdi_low",
+    "hdi_high",
+    "r_hat",
+    "ess_bulk",
 )
 #: Allowed values of the exponents table's ``level`` column, top to bottom in a forest plot.
 LEVELS: tuple[str, ...] = ("population", "taxon", "specimen")
@@ -104,8 +112,15 @@ def draw_law_lines(ax, laws: list[tuple[str, float]]) -> None:
     styles = law_styles([v for _, v in laws])
     for label, value in laws:
         st = styles[value]
-        ax.axvline(value, color=st.color, linestyle=st.linestyle, linewidth=1.0, zorder=1, label=label,
-                   gid=f"law-line:{value!r}")
+        ax.axvline(
+            value,
+            color=st.color,
+            linestyle=st.linestyle,
+            linewidth=1.0,
+            zorder=1,
+            label=label,
+            gid=f"law-line:{value!r}",
+        )
 
 
 def legend_above(ax, ncol: int | None = None, *, figure_level: bool | None = None, **kwargs):
@@ -148,7 +163,9 @@ def legend_above(ax, ncol: int | None = None, *, figure_level: bool | None = Non
             ncol = 1 if len(entries) <= 2 else 2
         # matplotlib fills columns top to bottom; reorder so the entries read left to right by rows
         nrows = -(-len(entries) // ncol)
-        entries = [entries[r * ncol + c] for c in range(ncol) for r in range(nrows) if r * ncol + c < len(entries)]
+        entries = [
+            entries[r * ncol + c] for c in range(ncol) for r in range(nrows) if r * ncol + c < len(entries)
+        ]
     args = ([h for h, _ in entries], [lab for _, lab in entries])
     if figure_level is None:
         fig = ax.figure

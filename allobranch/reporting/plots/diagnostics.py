@@ -22,8 +22,9 @@ def _n_panels(idata: az.InferenceData, var_names: Sequence[str]) -> int:
     return int(sum(np.prod(posterior[v].shape[2:], dtype=int) for v in var_names))
 
 
-def plot_diagnostics(idata: az.InferenceData, var_names: Sequence[str], *, width: str | float = "double",
-                     ncols: int = 3):
+def plot_diagnostics(
+    idata: az.InferenceData, var_names: Sequence[str], *, width: str | float = "double", ncols: int = 3
+):
     """Rank plots of the chosen parameters and the energy plot, in one figure.
 
     Parameters
@@ -68,11 +69,23 @@ def plot_diagnostics(idata: az.InferenceData, var_names: Sequence[str], *, width
             az.plot_energy(idata, ax=energy_ax, textsize=TEXT_PT, legend=True)
             # move ArviZ's legend (densities and BFMI per chain) beside the panel, off the densities
             handles, labels = energy_ax.get_legend_handles_labels()
-            energy_ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=SMALL_PT,
-                             borderaxespad=0.0)
+            energy_ax.legend(
+                handles,
+                labels,
+                loc="upper left",
+                bbox_to_anchor=(1.01, 1.0),
+                fontsize=SMALL_PT,
+                borderaxespad=0.0,
+            )
         else:
-            energy_ax.text(0.5, 0.5, "energy not recorded\nby the sampler", ha="center", va="center",
-                           transform=energy_ax.transAxes)
+            energy_ax.text(
+                0.5,
+                0.5,
+                "energy not recorded\nby the sampler",
+                ha="center",
+                va="center",
+                transform=energy_ax.transAxes,
+            )
             energy_ax.set_axis_off()
         energy_ax.set_title("energy")
     return axes

@@ -6,8 +6,15 @@ import numpy as np
 import pandas as pd
 
 from allobranch.reporting.plots._common import (
-    EXPONENT_COLUMNS, LawsLike, check_levels, draw_law_lines, hdi_percent, law_values, legend_above,
-    padded_limits, require_columns,
+    EXPONENT_COLUMNS,
+    LawsLike,
+    check_levels,
+    draw_law_lines,
+    hdi_percent,
+    law_values,
+    legend_above,
+    padded_limits,
+    require_columns,
 )
 from allobranch.reporting.style import DATA_COLOR, house_style, new_axes
 
@@ -104,9 +111,16 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
             st = LEVEL_STYLE[level]
             lo, hi = float(row["hdi_low"]), float(row["hdi_high"])
             ax.errorbar(
-                [row["mean"]], [y], xerr=[[row["mean"] - lo], [hi - row["mean"]]], fmt=st["marker"],
-                ms=st["ms"], color=st["color"], elinewidth=st["lw"], zorder=3,
-                label=None if level in labelled else level, gid=f"exponent:{level}:{row['group']}",
+                [row["mean"]],
+                [y],
+                xerr=[[row["mean"] - lo], [hi - row["mean"]]],
+                fmt=st["marker"],
+                ms=st["ms"],
+                color=st["color"],
+                elinewidth=st["lw"],
+                zorder=3,
+                label=None if level in labelled else level,
+                gid=f"exponent:{level}:{row['group']}",
             )
             labelled.add(level)
         draw_law_lines(ax, pairs)
@@ -164,18 +178,34 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
     with house_style():
         ax = new_axes(ax, height_mm=FRAME_MM + 11.0 * n)
         y = np.arange(n, dtype=float)
-        col = {c: table[c].to_numpy(dtype=float) for c in ("mean", "hdi_low", "hdi_high", "naive_median",
-                                                             "naive_q25", "naive_q75")}
+        col = {
+            c: table[c].to_numpy(dtype=float)
+            for c in ("mean", "hdi_low", "hdi_high", "naive_median", "naive_q25", "naive_q75")
+        }
         ax.errorbar(
-            col["mean"], y - DODGE, xerr=[col["mean"] - col["hdi_low"], col["hdi_high"] - col["mean"]],
-            fmt="o", ms=4, color=MODEL_COLOR, elinewidth=1.3, zorder=3,
-            label=f"model: posterior\nmean, {hdi_percent(table)}", gid="model",
+            col["mean"],
+            y - DODGE,
+            xerr=[col["mean"] - col["hdi_low"], col["hdi_high"] - col["mean"]],
+            fmt="o",
+            ms=4,
+            color=MODEL_COLOR,
+            elinewidth=1.3,
+            zorder=3,
+            label=f"model: posterior\nmean, {hdi_percent(table)}",
+            gid="model",
         )
         naive = ax.errorbar(
-            col["naive_median"], y + DODGE,
+            col["naive_median"],
+            y + DODGE,
             xerr=[col["naive_median"] - col["naive_q25"], col["naive_q75"] - col["naive_median"]],
-            fmt="s", ms=4, mfc="white", color=NAIVE_COLOR, elinewidth=1.0, zorder=3,
-            label="naive: median and IQR of\nper-junction exponents\n(ignores measurement error)", gid="naive",
+            fmt="s",
+            ms=4,
+            mfc="white",
+            color=NAIVE_COLOR,
+            elinewidth=1.0,
+            zorder=3,
+            label="naive: median and IQR of\nper-junction exponents\n(ignores measurement error)",
+            gid="naive",
         )
         naive[-1][0].set_linestyle((0, (3, 1.5)))
         draw_law_lines(ax, pairs)
@@ -186,8 +216,13 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
         ax.set_yticks(y, labels)
         ax.tick_params(axis="y", length=0)
         ax.set_ylim(n - 0.5, -0.5)
-        values = [*table["hdi_low"], *table["hdi_high"], *table["naive_q25"], *table["naive_q75"],
-                  *(v for _, v in pairs)]
+        values = [
+            *table["hdi_low"],
+            *table["hdi_high"],
+            *table["naive_q25"],
+            *table["naive_q75"],
+            *(v for _, v in pairs),
+        ]
         ax.set_xlim(*padded_limits(values))
         ax.set_xlabel("Branching exponent a")
         ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)

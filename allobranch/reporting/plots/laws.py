@@ -28,8 +28,10 @@ CLIP_ARROWS = {-1: "\u2190", 1: "\u2192"}
 def clip_note() -> str:
     """One sentence stating the axis limits of :func:`plot_law_comparison` (for captions)."""
     lo, hi = LOG10_BF_LIMITS
-    return (f"Axes are clipped at an ELPD loss of {ELPD_DIFF_MAX:g} and at log10 BF {lo:g} and {hi:g}; a "
-            "clipped point is drawn hollow at the edge with an arrow and its value.")
+    return (
+        f"Axes are clipped at an ELPD loss of {ELPD_DIFF_MAX:g} and at log10 BF {lo:g} and {hi:g}; a "
+        "clipped point is drawn hollow at the edge with an arrow and its value."
+    )
 
 
 def _clip(value: float, lo: float, hi: float) -> tuple[float, int]:
@@ -67,34 +69,72 @@ def _annotate(ax, x: float, y: float, text: str, gid: str) -> None:
 def _mark_clipped(ax, x: float, y: float, side: int, value: float, gid: str) -> None:
     """An arrow and the true value beside a point drawn at the axis limit."""
     text = f"{CLIP_ARROWS[-1]} {value:.3g}" if side < 0 else f"{value:.3g} {CLIP_ARROWS[1]}"
-    ax.annotate(text, (x, y), xytext=(-side * 5, 0), textcoords="offset points", va="center",
-                ha="left" if side < 0 else "right", fontsize=SMALL_PT, color="#333333", gid=gid)
+    ax.annotate(
+        text,
+        (x, y),
+        xytext=(-side * 5, 0),
+        textcoords="offset points",
+        va="center",
+        ha="left" if side < 0 else "right",
+        fontsize=SMALL_PT,
+        color="#333333",
+        gid=gid,
+    )
 
 
 def _draw_row(ax_elpd, ax_bf, row: pd.Series, y: float, styles: dict) -> None:
     """One hypothesis: ELPD difference with its SE and weight; Bayes factor with P(ROPE)."""
     key = f"{row['scope']}:{row['law']}"
     free = not np.isfinite(row["value"])
-    color, marker = ("#000000", "o") if free else (styles[float(row["value"])].color,
-                                                    styles[float(row["value"])].marker)
+    color, marker = (
+        ("#000000", "o") if free else (styles[float(row["value"])].color, styles[float(row["value"])].marker)
+    )
     diff, dse = float(row["elpd_diff"]), float(row["dse"])
     shown, side = _clip(diff, -np.inf, ELPD_DIFF_MAX)
     # a point inside the limit keeps its whole lower bar; its upper bar stops at the limit
     lo_err, hi_err = (dse, min(dse, ELPD_DIFF_MAX - shown)) if side == 0 else (0.0, 0.0)
-    ax_elpd.errorbar([shown], [y], xerr=[[lo_err], [hi_err]], fmt=marker, ms=4.5,
-                     color=color, mfc="white" if free or side else color, elinewidth=1.1, zorder=3,
-                     gid=f"elpd:{key}")
+    ax_elpd.errorbar(
+        [shown],
+        [y],
+        xerr=[[lo_err], [hi_err]],
+        fmt=marker,
+        ms=4.5,
+        color=color,
+        mfc="white" if free or side else color,
+        elinewidth=1.1,
+        zorder=3,
+        gid=f"elpd:{key}",
+    )
     if side:
         _mark_clipped(ax_elpd, shown, y, side, diff, f"elpd-clipped:{key}")
     if np.isfinite(row["weight"]):
         _annotate(ax_elpd, shown, y, f"w {row['weight']:.2f}", f"weight:{key}")
     if free:
-        ax_bf.text(0.0, y, "reference", ha="center", va="center", fontsize=SMALL_PT, color="#555555", zorder=4,
-                   bbox={"facecolor": "white", "edgecolor": "none", "pad": 0.5}, gid=f"bf-reference:{row['scope']}")
+        ax_bf.text(
+            0.0,
+            y,
+            "reference",
+            ha="center",
+            va="center",
+            fontsize=SMALL_PT,
+            color="#555555",
+            zorder=4,
+            bbox={"facecolor": "white", "edgecolor": "none", "pad": 0.5},
+            gid=f"bf-reference:{row['scope']}",
+        )
     elif np.isfinite(row["log10_bf"]):
         bf, side = _clip(float(row["log10_bf"]), *LOG10_BF_LIMITS)
-        ax_bf.plot([bf], [y], marker=marker, ms=4.5, color=color, mfc="white" if side else color,
-                   linestyle="none", zorder=3, gid=f"bf:{key}")
+        ax_bf.plot(
+            [bf],
+            [y],
+            marker=marker,
+            ms=4.5,
+            color=color,
+            mfc="white" if side else color,
+            linestyle="none",
+            zorder=3,
+            gid=f"bf:{key}",
+        )
         if side:
             _mark_clipped(ax_bf, bf, y, side, float(row["log10_bf"]), f"bf-clipped:{key}")
         if np.isfinite(row["p_rope"]):
@@ -132,8 +172,13 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
     styles = law_styles([v for v in table["value"] if np.isfinite(v)])
     with house_style():
         if axes is None:
-            _, axes = figure("single", height_mm=FRAME_MM + ROW_MM * (len(rows) + 0.8 * len(headings)),
-                             ncols=2, sharey=True, gridspec_kw={"wspace": 0.08})
+            _, axes = figure(
+                "single",
+                height_mm=FRAME_MM + ROW_MM * (len(rows) + 0.8 * len(headings)),
+                ncols=2,
+                sharey=True,
+                gridspec_kw={"wspace": 0.08},
+            )
         axes = np.asarray(axes, dtype=object).ravel()
         if axes.size != 2:
             raise ValueError(f"axes must hold exactly two Axes; got {axes.size}")
@@ -142,8 +187,17 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
             _draw_row(ax_elpd, ax_bf, table.loc[i], y, styles)
         for scope, y in headings:
             # in the tick-label column, right-aligned like the labels, on a row of its own
-            ax_elpd.text(-0.02, y, scope, transform=ax_elpd.get_yaxis_transform(), ha="right", va="center",
-                         fontweight="bold", fontsize=TEXT_PT, gid=f"scope:{scope}")
+            ax_elpd.text(
+                -0.02,
+                y,
+                scope,
+                transform=ax_elpd.get_yaxis_transform(),
+                ha="right",
+                va="center",
+                fontweight="bold",
+                fontsize=TEXT_PT,
+                gid=f"scope:{scope}",
+            )
         ax_elpd.axvline(0.0, color="#888888", lw=0.6, zorder=1)
         ax_bf.axvline(0.0, color="#888888", lw=0.6, zorder=1)
         for g in BF_GUIDES:
@@ -161,6 +215,10 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
         bfs = np.clip(table["log10_bf"].to_numpy(dtype=float), *LOG10_BF_LIMITS)
         ax_bf.set_xlim(*padded_limits([*bfs, *BF_GUIDES], pad=0.12))
         lo_bf, hi_bf = LOG10_BF_LIMITS
-        ax_elpd.set_xlabel(f"ΔELPD to best ± SE\n(0 = best)\nw = stacking weight\nclipped at {ELPD_DIFF_MAX:g}")
-        ax_bf.set_xlabel(f"log₁₀ BF vs free\n(> 0 favours law)\nP = P(within ROPE)\nclipped at {lo_bf:g} and {hi_bf:g}")
+        ax_elpd.set_xlabel(
+            f"ΔELPD to best ± SE\n(0 = best)\nw = stacking weight\nclipped at {ELPD_DIFF_MAX:g}"
+        )
+        ax_bf.set_xlabel(
+            f"log₁₀ BF vs free\n(> 0 favours law)\nP = P(within ROPE)\nclipped at {lo_bf:g} and {hi_bf:g}"
+        )
     return axes

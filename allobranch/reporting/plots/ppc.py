@@ -57,17 +57,30 @@ def _pvalue_note(ax, taxon: str, pvalues: pd.DataFrame | None, check: str) -> No
     rows = pvalues[(pvalues["check"] == check) & (pvalues["taxon"].astype(str) == taxon)]
     if rows.empty:
         return
-    lines = [f"{STAT_SHORT.get(s, s)}: p = {p:.2f}{' (fails)' if bad else ''}"
-             for s, p, bad in zip(rows["statistic"], rows["p_value"], rows["fails"])]
+    lines = [
+        f"{STAT_SHORT.get(s, s)}: p = {p:.2f}{' (fails)' if bad else ''}"
+        for s, p, bad in zip(rows["statistic"], rows["p_value"], rows["fails"])
+    ]
     ax.set_ylim(0, 1.0 + NOTE_LINE * (len(lines) + 0.5))
     ax.spines["left"].set_bounds(0.0, 1.0)
     ax.set_yticks([0.0, 0.25, 0.5, 0.75, 1.0])
-    ax.text(0.02, 1.0 + 0.4 * NOTE_LINE, "\n".join(lines), transform=ax.get_yaxis_transform(), ha="left",
-            va="bottom", fontsize=SMALL_PT, color="#333333", linespacing=1.2, gid=f"pvalues:{taxon}")
+    ax.text(
+        0.02,
+        1.0 + 0.4 * NOTE_LINE,
+        "\n".join(lines),
+        transform=ax.get_yaxis_transform(),
+        ha="left",
+        va="bottom",
+        fontsize=SMALL_PT,
+        color="#333333",
+        linespacing=1.2,
+        gid=f"pvalues:{taxon}",
+    )
 
 
-def plot_ppc_check(checks: pd.DataFrame, check: str, axes=None, *, pvalues: pd.DataFrame | None = None,
-                   max_draws: int = 50):
+def plot_ppc_check(
+    checks: pd.DataFrame, check: str, axes=None, *, pvalues: pd.DataFrame | None = None, max_draws: int = 50
+):
     """Empirical CDFs of a check's observed values over those of replicated data, one panel per taxon.
 
     Parameters
@@ -105,10 +118,16 @@ def plot_ppc_check(checks: pd.DataFrame, check: str, axes=None, *, pvalues: pd.D
         if created:
             ncols = min(len(taxa), 2)
             nrows = int(np.ceil(len(taxa) / ncols))
-            _, grid = figure("single", height_mm=PANEL_MM * nrows + 16, nrows=nrows, ncols=ncols,
-                             squeeze=False, sharey=True)
+            _, grid = figure(
+                "single",
+                height_mm=PANEL_MM * nrows + 16,
+                nrows=nrows,
+                ncols=ncols,
+                squeeze=False,
+                sharey=True,
+            )
             grid = grid.ravel()
-            for extra in grid[len(taxa):]:
+            for extra in grid[len(taxa) :]:
                 extra.remove()
             axes = grid[: len(taxa)]
         axes = np.atleast_1d(np.asarray(axes, dtype=object)).ravel()
@@ -144,12 +163,30 @@ def _draw_source(ax, sub: pd.DataFrame, source: str, taxon: str, max_draws: int)
         values = rows.loc[rows["draw"] == d, "value"].to_numpy(dtype=float)
         n = values.size
         if observed:
-            label = ("observed" if single else f"observed, at each\ndraw's exponent ({len(draws)})") if j == 0 else None
-            ax.ecdf(values, color=OBSERVED_COLOR, lw=1.1 if single else 0.5, alpha=1.0 if single else 0.6,
-                    zorder=3, gid=f"observed:{taxon}:{d}", label=label)
+            label = (
+                ("observed" if single else f"observed, at each\ndraw's exponent ({len(draws)})")
+                if j == 0
+                else None
+            )
+            ax.ecdf(
+                values,
+                color=OBSERVED_COLOR,
+                lw=1.1 if single else 0.5,
+                alpha=1.0 if single else 0.6,
+                zorder=3,
+                gid=f"observed:{taxon}:{d}",
+                label=label,
+            )
         else:
-            ax.ecdf(values, color=REPLICATED_COLOR, lw=0.5, alpha=0.5, zorder=2, gid=f"replicated:{taxon}:{d}",
-                    label=f"replicated ({len(draws)} draws)" if j == 0 else None)
+            ax.ecdf(
+                values,
+                color=REPLICATED_COLOR,
+                lw=0.5,
+                alpha=0.5,
+                zorder=2,
+                gid=f"replicated:{taxon}:{d}",
+                label=f"replicated ({len(draws)} draws)" if j == 0 else None,
+            )
     return n
 
 

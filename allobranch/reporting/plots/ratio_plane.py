@@ -7,10 +7,23 @@ import pandas as pd
 
 from allobranch.geometry.curves import iso_exponent_band, iso_exponent_curve, symmetric_ratio
 from allobranch.reporting.plots._common import (
-    EXPONENT_COLUMNS, LawsLike, hdi_percent, law_values, legend_above, require_columns,
+    EXPONENT_COLUMNS,
+    LawsLike,
+    hdi_percent,
+    law_values,
+    legend_above,
+    require_columns,
 )
 from allobranch.reporting.style import (
-    DATA_COLOR, FLAG_COLOR, FLAG_MARKER, LIGHT_GREY, OKABE_ITO, SMALL_PT, house_style, law_styles, new_axes,
+    DATA_COLOR,
+    FLAG_COLOR,
+    FLAG_MARKER,
+    LIGHT_GREY,
+    OKABE_ITO,
+    SMALL_PT,
+    house_style,
+    law_styles,
+    new_axes,
 )
 
 #: Columns of the junction geometry table this plot reads.
@@ -88,41 +101,108 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
         styles = law_styles([v for _, v in pairs])
         if band is not None:
             bx, by = iso_exponent_band(*band)
-            ax.fill(bx, by, color=BAND_COLOR, alpha=0.35, lw=0, zorder=1,
-                    label=f"population a, {hdi_percent(exponents)}\n[{band[0]:.2f}, {band[1]:.2f}]")
+            ax.fill(
+                bx,
+                by,
+                color=BAND_COLOR,
+                alpha=0.35,
+                lw=0,
+                zorder=1,
+                label=f"population a, {hdi_percent(exponents)}\n[{band[0]:.2f}, {band[1]:.2f}]",
+            )
             for a in band:
                 ax.plot(*iso_exponent_curve(a), color=BAND_COLOR, lw=0.8, zorder=1, gid=f"hdi-curve:{a!r}")
         for label, value in pairs:
             st = styles[value]
-            ax.plot(*iso_exponent_curve(value), color=st.color, linestyle=st.linestyle, lw=1.2, zorder=2,
-                    label=label, gid=f"law-curve:{value!r}")
-        ax.scatter(x[placed & bifurcation & ~flagged], y[placed & bifurcation & ~flagged], s=9,
-                   color=DATA_COLOR, alpha=0.75, linewidths=0, zorder=3, label="junction", gid="junctions")
+            ax.plot(
+                *iso_exponent_curve(value),
+                color=st.color,
+                linestyle=st.linestyle,
+                lw=1.2,
+                zorder=2,
+                label=label,
+                gid=f"law-curve:{value!r}",
+            )
+        ax.scatter(
+            x[placed & bifurcation & ~flagged],
+            y[placed & bifurcation & ~flagged],
+            s=9,
+            color=DATA_COLOR,
+            alpha=0.75,
+            linewidths=0,
+            zorder=3,
+            label="junction",
+            gid="junctions",
+        )
         multi = placed & ~bifurcation & ~flagged
         if multi.any():
-            ax.scatter(x[multi], y[multi], s=11, facecolors="none", edgecolors=DATA_COLOR, linewidths=0.7,
-                       zorder=3, label="3+ daughters (curves\nfit bifurcations only)", gid="multi")
+            ax.scatter(
+                x[multi],
+                y[multi],
+                s=11,
+                facecolors="none",
+                edgecolors=DATA_COLOR,
+                linewidths=0.7,
+                zorder=3,
+                label="3+ daughters (curves\nfit bifurcations only)",
+                gid="multi",
+            )
         if (placed & flagged).any():
-            ax.scatter(x[placed & flagged], y[placed & flagged], s=22, marker=FLAG_MARKER, color=FLAG_COLOR,
-                       linewidths=0.3, edgecolors="white", zorder=4, label="flagged junction", gid="flagged")
+            ax.scatter(
+                x[placed & flagged],
+                y[placed & flagged],
+                s=22,
+                marker=FLAG_MARKER,
+                color=FLAG_COLOR,
+                linewidths=0.3,
+                edgecolors="white",
+                zorder=4,
+                label="flagged junction",
+                gid="flagged",
+            )
 
         sym = [symmetric_ratio(v) for v in [*(v for _, v in pairs), *(band or ())]]
         x_lo = min([*x[placed], *sym, 1.0]) - 0.04
         x_hi = max([*x[placed], 1.0]) + 0.03
         y_hi = max([*y[placed], *sym]) + 0.04
         ax.plot([0, 2], [0, 2], color=LIGHT_GREY, lw=0.6, zorder=0)
-        ax.text(x_lo + 0.012, x_lo + 0.03, "symmetric (x = y)", rotation=45, rotation_mode="anchor",
-                fontsize=SMALL_PT, color="#888888", va="bottom", ha="left", transform_rotates_text=True)
+        ax.text(
+            x_lo + 0.012,
+            x_lo + 0.03,
+            "symmetric (x = y)",
+            rotation=45,
+            rotation_mode="anchor",
+            fontsize=SMALL_PT,
+            color="#888888",
+            va="bottom",
+            ha="left",
+            transform_rotates_text=True,
+        )
         if np.any(x[placed] >= 1):
-            ax.axvline(1.0, color="#888888", lw=0.8, linestyle=":", zorder=0, gid="parent-line",
-                       label="daughter = parent")
+            ax.axvline(
+                1.0,
+                color="#888888",
+                lw=0.8,
+                linestyle=":",
+                zorder=0,
+                gid="parent-line",
+                label="daughter = parent",
+            )
         ax.set_xlim(x_lo, x_hi)
         ax.set_ylim(0.0, y_hi)
         ax.set_xlabel("Larger daughter / parent radius")
         ax.set_ylabel("Smaller daughter / parent radius")
         n_missing = int((~placed).sum())
         if n_missing:
-            ax.text(0.02, 0.02, f"{n_missing} junction(s) without valid sizes\nof a parent and two daughters not shown",
-                    transform=ax.transAxes, fontsize=SMALL_PT, color="#555555", va="bottom", gid="missing-note")
+            ax.text(
+                0.02,
+                0.02,
+                f"{n_missing} junction(s) without valid sizes\nof a parent and two daughters not shown",
+                transform=ax.transAxes,
+                fontsize=SMALL_PT,
+                color="#555555",
+                va="bottom",
+                gid="missing-note",
+            )
         legend_above(ax)
     return ax
