@@ -18,8 +18,8 @@ from scipy.stats import t as student_t
 
 from allobranch.model import kernel
 
-#: Parameter values at which derivatives are checked (a, sigma_dev, sigma_rel, sigma_asym, nu).
-POINT = {"a": 2.7, "sigma_dev": 0.06, "sigma_rel": 0.05, "sigma_asym": 0.25, "nu": 6.0}
+#: Parameter values at which derivatives are checked (a, sigma_dev, rel_error, sigma_asym, nu).
+POINT = {"a": 2.7, "sigma_dev": 0.06, "rel_error": 0.05, "sigma_asym": 0.25, "nu": 6.0}
 #: Finite-difference step (forward differences; truncation error ~ step * second derivative).
 STEP = 1e-7
 
@@ -46,7 +46,7 @@ def _full(
     d: dict,
     a_spec=None,
     sdev=POINT["sigma_dev"],
-    srel=POINT["sigma_rel"],
+    rel_error=POINT["rel_error"],
     sasym=POINT["sigma_asym"],
     nu=POINT["nu"],
     student=False,
@@ -64,7 +64,7 @@ def _full(
         d["spec_idx"],
         a_spec,
         float(sdev),
-        float(srel),
+        float(rel_error),
         float(sasym),
         float(nu),
         student,
@@ -72,11 +72,11 @@ def _full(
     )
 
 
-def _pre(d: dict, srel=POINT["sigma_rel"], sasym=POINT["sigma_asym"]):
+def _pre(d: dict, rel_error=POINT["rel_error"], sasym=POINT["sigma_asym"]):
     """``kernel.precompute`` plus the parent's measurement variance, as the model builder combines them."""
     tau_j = np.full(d["y0"].shape[0], sasym**2)
-    mu, g, c, ybar, lld = kernel.precompute(d["Y"], d["M"], d["V"], float(srel), tau_j)
-    s0sq = srel**2 + d["V0"] + kernel.S2_FLOOR
+    mu, g, c, ybar, lld = kernel.precompute(d["Y"], d["M"], d["V"], float(rel_error), tau_j)
+    s0sq = rel_error**2 + d["V0"] + kernel.S2_FLOOR
     return mu, g, c, ybar, lld, s0sq
 
 
@@ -120,7 +120,7 @@ def test_junction_terms_derivatives_match_finite_differences(direction: str, stu
 
 def _kw(direction: str) -> str:
     """Keyword of :func:`_full` for a derivative direction."""
-    return {"sigma_dev": "sdev", "sigma_rel": "srel", "sigma_asym": "sasym", "nu": "nu"}[direction]
+    return {"sigma_dev": "sdev", "rel_error": "rel_error", "sigma_asym": "sasym", "nu": "nu"}[direction]
 
 
 def test_junction_terms_skip_leaves_directions_at_zero() -> None:
@@ -153,7 +153,7 @@ def test_fast_terms_derivatives_match_finite_differences(direction: str, student
     _assert_close_derivative(dll[:, col], numeric)
     # Fixed quantities have no derivative column.
     np.testing.assert_array_equal(
-        dll[:, [kernel.DIRECTIONS.index("sigma_rel"), kernel.DIRECTIONS.index("sigma_asym")]], 0.0
+        dll[:, [kernel.DIRECTIONS.index("rel_error"), kernel.DIRECTIONS.index("sigma_asym")]], 0.0
     )
 
 
@@ -195,11 +195,11 @@ def _explicit_posterior(y: np.ndarray, s2: np.ndarray, tau: float) -> tuple[np.n
 def test_precompute_matches_explicit_matrix_inverse() -> None:
     # Reference: numpy.linalg.inv of the explicit precision matrix (the kernel uses Sherman-Morrison).
     d = _junctions(n=20, seed=6)
-    srel, sasym = POINT["sigma_rel"], POINT["sigma_asym"]
-    mu, g, c, ybar, _, _ = _pre(d, srel, sasym)
+    rel_error, sasym = POINT["rel_error"], POINT["sigma_asym"]
+    mu, g, c, ybar, _, _ = _pre(d, rel_error, sasym)
     for j in range(d["y0"].shape[0]):
         m = d["M"][j]
-        s2 = srel**2 + d["V"][j, m] + kernel.S2_FLOOR
+        s2 = rel_error**2 + d["V"][j, m] + kernel.S2_FLOOR
         mean, cov = _explicit_posterior(d["Y"][j, m], s2, sasym**2)
         gj = g[j, m]
         np.testing.assert_allclose(np.diag(gj) + np.outer(gj, gj) / c[j], cov, rtol=1e-10, atol=1e-14)
@@ -230,18 +230,18 @@ def test_daughter_loglik_is_the_contrast_density(basis_kind: str) -> None:
     # Reference: scipy.stats.multivariate_normal of the daughters' contrasts. Any orthonormal contrast
     # basis gives the same density (unit Jacobian), and the flat level direction drops out exactly.
     d = _junctions(n=15, seed=7)
-    srel, sasym = POINT["sigma_rel"], POINT["sigma_asym"]
+    rel_error, sasym = POINT["rel_error"], POINT["sigma_asym"]
     expected = []
     for j in range(d["y0"].shape[0]):
         m = d["M"][j]
         k = int(m.sum())
         basis = helmert(k) if basis_kind == "helmert" else _random_contrast_basis(k, seed=j)
-        s2 = srel**2 + d["V"][j, m] + kernel.S2_FLOOR
+        s2 = rel_error**2 + d["V"][j, m] + kernel.S2_FLOOR
         expected.append(_contrast_logpdf(d["Y"][j, m], s2, sasym**2, basis))
     expected = np.array(expected)
-    total = kernel.daughter_loglik(d["Y"], d["M"], d["V"], srel, sasym)
+    total = kernel.daughter_loglik(d["Y"], d["M"], d["V"], rel_error, sasym)
     np.testing.assert_allclose(total, expected.sum(), rtol=1e-10)
-    lld = _pre(d, srel, sasym)[4]
+    lld = _pre(d, rel_error, sasym)[4]
     np.testing.assert_allclose(lld, expected, rtol=1e-10)
 
 
@@ -262,10 +262,10 @@ def test_junction_loglik_is_parent_density_plus_contrast_density(student: bool) 
     d = _junctions(n=10, seed=9)
     nu = POINT["nu"]
     ll, _, mean, var = _full(d, student=student)
-    srel, sasym = POINT["sigma_rel"], POINT["sigma_asym"]
+    rel_error, sasym = POINT["rel_error"], POINT["sigma_asym"]
     for j in range(d["y0"].shape[0]):
         m = d["M"][j]
-        s2 = srel**2 + d["V"][j, m] + kernel.S2_FLOOR
+        s2 = rel_error**2 + d["V"][j, m] + kernel.S2_FLOOR
         daughters = _contrast_logpdf(d["Y"][j, m], s2, sasym**2, helmert(int(m.sum())))
         if student:
             parent = student_t.logpdf(d["y0"][j], nu, loc=mean[j], scale=np.sqrt(var[j]))
@@ -288,8 +288,8 @@ def test_without_measurement_error_the_predicted_parent_is_the_law(a: float) -> 
     a_spec = np.full(d["y0"].shape[0], a)
     sdev = 0.07
     for _, _, mean, var in (
-        _full(zero, a_spec=a_spec, sdev=sdev, srel=0.0),
-        _fast(zero, a_spec=a_spec, sdev=sdev, pre=_pre(zero, srel=0.0)),
+        _full(zero, a_spec=a_spec, sdev=sdev, rel_error=0.0),
+        _fast(zero, a_spec=a_spec, sdev=sdev, pre=_pre(zero, rel_error=0.0)),
     ):
         law = np.array([logsumexp(a * zero["Y"][j, zero["M"][j]]) / a for j in range(len(a_spec))])
         # The floor (a 0.01 % error) moves the mean by O(1e-8 * a) only.
@@ -331,9 +331,9 @@ def test_second_order_delta_method_matches_monte_carlo() -> None:
     # posterior covariance) (numpy's generator, 2 million draws). The second-order mean is accurate to
     # O(s^4); its correction term must be visible against the first-order value m(mu).
     rng = np.random.default_rng(11)
-    a, srel, sasym = 3.0, 0.08, 0.3
+    a, rel_error, sasym = 3.0, 0.08, 0.3
     y = np.log(np.array([0.62, 0.41, 0.35]))
-    s2 = np.full(3, srel**2 + kernel.S2_FLOOR)
+    s2 = np.full(3, rel_error**2 + kernel.S2_FLOOR)
     mean_u, cov_u = _explicit_posterior(y, s2, sasym**2)
     u = rng.multivariate_normal(mean_u, cov_u, size=2_000_000)
     m = logsumexp(a * u, axis=1) / a
@@ -347,7 +347,7 @@ def test_second_order_delta_method_matches_monte_carlo() -> None:
         np.zeros(1, dtype=np.int64),
         np.array([a]),
         1e-6,
-        srel,
+        rel_error,
         sasym,
         30.0,
         False,
@@ -358,5 +358,5 @@ def test_second_order_delta_method_matches_monte_carlo() -> None:
     assert abs(mean[0] - m.mean()) < 5 * mc_se + 1e-4
     assert abs(first_order - m.mean()) > 3 * abs(mean[0] - m.mean())
     # Variance: kernel var = sigma_dev^2 + parent's measurement variance + w' Sigma w.
-    delta_var = var[0] - 1e-12 - (srel**2 + kernel.S2_FLOOR)
+    delta_var = var[0] - 1e-12 - (rel_error**2 + kernel.S2_FLOOR)
     np.testing.assert_allclose(delta_var, m.var(), rtol=0.03)

@@ -192,7 +192,7 @@ def test_repeat_readings_estimate_the_measurement_error(tmp_path: Path) -> None:
     built = build_model(d, ModelSpec(parametrization="noncentered"))
     names = _names(built)
     assert built.form == "full"
-    assert names["free"] == HIERARCHY_NC | {"sigma_meas", "sigma_asym"}
+    assert names["free"] == HIERARCHY_NC | {"rel_error", "sigma_asym"}
     assert names["potential"] == {"junction_loglik", "repeat_readings"}
 
 
@@ -212,7 +212,7 @@ def test_absolute_error_only_uses_the_fast_form() -> None:
     built = build_model(d, ModelSpec(parametrization="noncentered"))
     assert built.form == "fast"
     assert _names(built)["free"] == HIERARCHY_NC
-    assert "sigma_meas" not in _names(built)["free"]
+    assert "rel_error" not in _names(built)["free"]
 
 
 def test_no_error_information_estimates_sigma_meas_from_its_prior() -> None:
@@ -220,7 +220,7 @@ def test_no_error_information_estimates_sigma_meas_from_its_prior() -> None:
     d = model_data(table)
     assert d.error_mode == "unknown"
     built = build_model(d)
-    assert built.form == "full" and "sigma_meas" in _names(built)["free"]
+    assert built.form == "full" and "rel_error" in _names(built)["free"]
 
 
 def test_auto_parametrization_weights_follow_information() -> None:
@@ -267,7 +267,7 @@ def _hierarchy_point(data, rng: np.random.Generator) -> dict[str, np.ndarray]:
         "sigma_dev": 0.05,
         "sigma_asym": 0.22,
         "nu": 7.0,
-        "sigma_meas": 0.06,
+        "rel_error": 0.06,
     }
 
 
@@ -289,8 +289,8 @@ def _prior_logp(p: dict, priors: Priors, extra: tuple[str, ...] = ()) -> float:
     )
     if "sigma_asym" in extra:
         total += stats.halfnorm.logpdf(p["sigma_asym"], scale=priors.sigma_asym)
-    if "sigma_meas" in extra:
-        total += stats.halfnorm.logpdf(p["sigma_meas"], scale=priors.sigma_meas)
+    if "rel_error" in extra:
+        total += stats.halfnorm.logpdf(p["rel_error"], scale=priors.rel_error)
     if "nu" in extra:
         total += stats.gamma.logpdf(p["nu"], a=priors.nu_alpha, scale=1.0 / priors.nu_beta)
     return float(total)
@@ -339,14 +339,14 @@ def test_repeat_readings_term_is_the_chi_square_density(tmp_path: Path) -> None:
 
     def reference(p: dict) -> float:
         ll, _, _ = built.pointwise(
-            _specimen_exponents(d, p), p["sigma_dev"], sigma_rel=p["sigma_meas"], sigma_asym=p["sigma_asym"]
+            _specimen_exponents(d, p), p["sigma_dev"], rel_error=p["rel_error"], sigma_asym=p["sigma_asym"]
         )
-        s = p["sigma_meas"]
+        s = p["rel_error"]
         chi2 = stats.chi2.logpdf(ss / s**2, df) - np.log(s**2)
-        return ll.sum() + chi2 + _prior_logp(p, built.spec.priors, ("sigma_asym", "sigma_meas"))
+        return ll.sum() + chi2 + _prior_logp(p, built.spec.priors, ("sigma_asym", "rel_error"))
 
     p1 = _hierarchy_point(d, np.random.default_rng(5))
-    p2 = {**p1, "sigma_meas": 0.03, "mu": 2.4, "sigma_asym": 0.3}
+    p2 = {**p1, "rel_error": 0.03, "mu": 2.4, "sigma_asym": 0.3}
     got = logp_fn(_value_point(built.model, p1)) - logp_fn(_value_point(built.model, p2))
     np.testing.assert_allclose(got, reference(p1) - reference(p2), rtol=1e-9)
 
@@ -361,7 +361,7 @@ def test_latent_logp_matches_scipy_densities(data) -> None:
     rows, cols = np.nonzero(data.mask)
     obs = data.log_daughters[rows, cols]
     k = data.mask.sum(axis=1)
-    srel = float(data.rel_error)
+    rel_error = float(data.rel_error)
 
     def reference(p: dict) -> float:
         a_spec = np.maximum(_specimen_exponents(data, p), A_FLOOR)
@@ -370,14 +370,14 @@ def test_latent_logp_matches_scipy_densities(data) -> None:
         U[rows, cols] = u
         total = _prior_logp(p, spec.priors, ("sigma_asym",))
         total += stats.norm.logpdf(u, loc=obs.mean(), scale=3.0).sum()
-        total += stats.norm.logpdf(obs, loc=u, scale=np.sqrt(srel**2 + kernel.S2_FLOOR)).sum()
+        total += stats.norm.logpdf(obs, loc=u, scale=np.sqrt(rel_error**2 + kernel.S2_FLOOR)).sum()
         for j in range(data.n_junctions):
             uj = U[j, data.mask[j]]
             a = a_spec[data.specimen_idx[j]]
             contrasts = uj - uj.mean()
             total += -(k[j] - 1) * np.log(p["sigma_asym"]) - np.sum(contrasts**2) / (2 * p["sigma_asym"] ** 2)
             law = logsumexp(a * uj) / a
-            sd = np.sqrt(p["sigma_dev"] ** 2 + srel**2 + kernel.S2_FLOOR)
+            sd = np.sqrt(p["sigma_dev"] ** 2 + rel_error**2 + kernel.S2_FLOOR)
             total += stats.norm.logpdf(data.log_parent[j], loc=law, scale=sd)
         return float(total)
 

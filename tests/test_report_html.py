@@ -137,7 +137,7 @@ def report(tmp_path_factory):
         data_summary={"junctions": 120, "taxa": 3, "specimens": 9, "unit": "mm", HOSTILE: HOSTILE},
         validation_flags=flags,
         model_description="Radii carry relative error.\n\nThe parent follows the law up to a deviation.",
-        priors={"mu": "Normal(2.5, 0.75)", "sigma_rel": "HalfNormal(0.1)"},
+        priors={"mu": "Normal(2.5, 0.75)", "rel_error": "HalfNormal(0.1)"},
         assumptions=["radii were measured mid-segment"],
         methods=f"We estimated the exponent with allobranch. {HOSTILE}",
         provenance={"seed": 1, "data sha256": "ab12"},

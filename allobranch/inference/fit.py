@@ -54,7 +54,7 @@ def _draw_params(post: xr.Dataset, c: int, d: int, built: BuiltModel) -> dict:
     return {
         "a_spec": post["a_specimen"].values[c, d],
         "sigma_dev": get("sigma_dev"),
-        "sigma_rel": get("sigma_meas"),
+        "rel_error": get("rel_error"),
         "sigma_asym": get("sigma_asym"),
         "nu": get("nu", 30.0),
     }

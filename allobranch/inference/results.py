@@ -42,7 +42,7 @@ COMPONENTS = {
     "tau_taxon": "between-taxon SD of the exponent",
     "tau_specimen": "between-specimen SD of the exponent (within taxon)",
     "sigma_dev": "junction-level biological deviation of log parent radius from the law",
-    "sigma_meas": "relative measurement error (log-scale SD), estimated",
+    "rel_error": "relative measurement error (log-scale SD), estimated",
     "sigma_asym": "SD of true log daughter radius about its junction mean (asymmetry)",
     "nu": "Student-t degrees of freedom of the deviation",
 }
@@ -163,7 +163,7 @@ class FitResult:
             rel = float(self.table.rel_error)
             rows.append(
                 {
-                    "component": "sigma_meas",
+                    "component": "rel_error",
                     "meaning": "relative measurement error, given by the user",
                     "source": "known",
                     "mean": rel,
@@ -222,7 +222,7 @@ class FitResult:
         if self.settings.get("error_mode") == "unknown":
             out.append(
                 "no measurement error was given (no relative error, SE column or repeat readings): the model "
-                "cannot tell measurement error from biological deviation, so sigma_meas rests on its prior "
+                "cannot tell measurement error from biological deviation, so rel_error rests on its prior "
                 "and sigma_dev absorbs the rest. Give the error if you know it."
             )
         return out

@@ -12,7 +12,7 @@ from allobranch.model.kernel import daughter_loglik
 SIGMA_ASYM_BOUNDS = (1e-3, 3.0)
 
 
-def estimate_sigma_asym(data: ModelData, srel: float) -> np.ndarray:
+def estimate_sigma_asym(data: ModelData, rel_error: float) -> np.ndarray:
     """Maximum marginal-likelihood asymmetry scale for every taxon.
 
     The daughters' contrasts (their log radii about the junction mean) are normal with variance
@@ -22,7 +22,7 @@ def estimate_sigma_asym(data: ModelData, srel: float) -> np.ndarray:
     Parameters
     ----------
     data : ModelData
-    srel : float
+    rel_error : float
         Relative measurement error (log-scale SD) of the readings.
 
     Returns
@@ -36,7 +36,7 @@ def estimate_sigma_asym(data: ModelData, srel: float) -> np.ndarray:
         Y, M, V = data.log_daughters[rows], data.mask[rows], data.var_abs_daughters[rows]
 
         def negll(log_s: float, Y=Y, M=M, V=V) -> float:
-            return -daughter_loglik(Y, M, V, srel, float(np.exp(log_s)))
+            return -daughter_loglik(Y, M, V, rel_error, float(np.exp(log_s)))
 
         res = minimize_scalar(negll, bounds=(lo, hi), method="bounded", options={"xatol": 1e-6})
         out[t] = float(np.exp(res.x))

@@ -2,7 +2,7 @@
 
 The model, on natural-log radii (``y`` observed, ``u`` true):
 
-* measurement: ``y = u + e``, ``e ~ Normal(0, s)`` with ``s^2 = sigma_rel^2 + (se / radius)^2``; the
+* measurement: ``y = u + e``, ``e ~ Normal(0, s)`` with ``s^2 = rel_error^2 + (se / radius)^2``; the
   relative error is known, estimated from repeat readings (within-segment sums of squares, an exact
   chi-square likelihood on the log scale), or estimated from its prior alone (then it is confounded with
   the biological deviation, and the fit says so);
@@ -85,7 +85,7 @@ def _measurement_sd(data: ModelData, spec: ModelSpec) -> pt.TensorVariable | flo
     """Relative (log-scale) measurement error: a known constant or a parameter."""
     if data.error_mode in ("known", "absolute_only"):
         return float(data.rel_error or 0.0)
-    sigma = pm.HalfNormal("sigma_meas", spec.priors.sigma_meas)
+    sigma = pm.HalfNormal("rel_error", spec.priors.rel_error)
     if data.error_mode == "repeats":
         # SS / sigma^2 ~ chi^2(df) for normal errors on the log scale (exact algebra); its log density in
         # sigma, up to a constant:
@@ -122,7 +122,7 @@ def build_model(
     -------
     BuiltModel
         Holds the ``pymc.Model``, whose variables are ``mu``, ``tau_taxon``, ``r_taxon``, ``a_taxon``,
-        ``tau_specimen``, ``r_specimen``, ``a_specimen``, ``sigma_dev``, ``sigma_meas`` (when estimated), ``sigma_asym``
+        ``tau_specimen``, ``r_specimen``, ``a_specimen``, ``sigma_dev``, ``rel_error`` (when estimated), ``sigma_asym``
         (when sampled), ``nu`` (Student-t) and the junction log-likelihood.
     """
     spec = spec or ModelSpec()
@@ -137,7 +137,7 @@ def build_model(
     with pm.Model(coords=coords) as model:
         sh = {name: pm.Data(name, value) for name, value in arrays.items()}
         a_spec = pt.maximum(_exponents(data, spec, layout), A_FLOOR)
-        sigma_rel = _measurement_sd(data, spec)
+        rel_error = _measurement_sd(data, spec)
         sigma_dev = pm.HalfNormal("sigma_dev", spec.priors.sigma_dev)
         nu = _nu(spec)
         student = spec.deviation == "student_t"
@@ -158,10 +158,10 @@ def build_model(
             )
         elif form == "full":
             sigma_asym = pm.HalfNormal("sigma_asym", spec.priors.sigma_asym)
-            ll, _ = JunctionLoglik("full", student, srel_free=not isinstance(sigma_rel, float))(
+            ll, _ = JunctionLoglik("full", student, rel_error_free=not isinstance(rel_error, float))(
                 a_spec,
                 sigma_dev,
-                pt.as_tensor_variable(sigma_rel),
+                pt.as_tensor_variable(rel_error),
                 sigma_asym,
                 nu,
                 sh["log_parent_obs"],
@@ -177,13 +177,13 @@ def build_model(
                 total = total + _student_constant(nu, data.n_junctions)
             pm.Potential("junction_loglik", total)
         else:
-            _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu)
+            _latent_likelihood(data, spec, sh, a_spec, rel_error, sigma_dev, nu)
     return BuiltModel(
         model=model, data=data, spec=spec, form=form, sigma_asym=sigma_asym_taxa, arrays=arrays, layout=layout
     )
 
 
-def _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu) -> None:
+def _latent_likelihood(data, spec, sh, a_spec, rel_error, sigma_dev, nu) -> None:
     """Textbook form: every true daughter radius is a parameter."""
     rows, cols = np.nonzero(data.mask)
     obs = data.log_daughters[rows, cols]
@@ -199,12 +199,12 @@ def _latent_likelihood(data, spec, sh, a_spec, sigma_rel, sigma_dev, nu) -> None
     pm.Potential(
         "asymmetry", -float(np.sum(k - 1)) * pt.log(sigma_asym) - pt.sum(dev**2) / (2 * sigma_asym**2)
     )
-    s2 = sigma_rel**2 + data.var_abs_daughters[rows, cols] + kernel.S2_FLOOR
+    s2 = rel_error**2 + data.var_abs_daughters[rows, cols] + kernel.S2_FLOOR
     pm.Normal("log_daughters", mu=u, sigma=pt.sqrt(s2), observed=obs)
     a_j = a_spec[data.specimen_idx][:, None]
     t = pt.where(data.mask, a_j * U, NEG_LARGE)
     law = (pt.logsumexp(t, axis=1, keepdims=True) / a_j)[:, 0]
-    sd = pt.sqrt(sigma_dev**2 + sigma_rel**2 + data.var_abs_parent + kernel.S2_FLOOR)
+    sd = pt.sqrt(sigma_dev**2 + rel_error**2 + data.var_abs_parent + kernel.S2_FLOOR)
     if spec.deviation == "student_t":
         pm.StudentT("log_parent", nu=nu, mu=law, sigma=sd, observed=data.log_parent, dims="junction")
     else:

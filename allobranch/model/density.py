@@ -63,10 +63,10 @@ def fast_arrays(data, sigma_asym_taxa: np.ndarray) -> dict[str, np.ndarray]:
         ``log_parent_obs``, ``daughter_mask``, ``specimen_idx``, ``mu_post``, ``g_post``, ``c_post``,
         ``ybar``, ``s0sq``, ``ll_daughters``.
     """
-    srel = float(data.rel_error or 0.0)
+    rel_error = float(data.rel_error or 0.0)
     tau_j = np.asarray(sigma_asym_taxa)[data.taxon_idx] ** 2
     mu, g, c, ybar, lld = kernel.precompute(
-        data.log_daughters, data.mask, data.var_abs_daughters, srel, tau_j
+        data.log_daughters, data.mask, data.var_abs_daughters, rel_error, tau_j
     )
     return {
         "log_parent_obs": data.log_parent,
@@ -76,7 +76,7 @@ def fast_arrays(data, sigma_asym_taxa: np.ndarray) -> dict[str, np.ndarray]:
         "g_post": g,
         "c_post": c,
         "ybar": ybar,
-        "s0sq": srel**2 + data.var_abs_parent + kernel.S2_FLOOR,
+        "s0sq": rel_error**2 + data.var_abs_parent + kernel.S2_FLOOR,
         "ll_daughters": lld,
     }
 

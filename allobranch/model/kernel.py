@@ -36,13 +36,13 @@ H = 1e-30
 #: error stay finite.
 S2_FLOOR = 1e-8
 #: Order of the derivative directions in the kernel's output.
-DIRECTIONS: tuple[str, ...] = ("a", "sigma_dev", "sigma_rel", "sigma_asym", "nu")
+DIRECTIONS: tuple[str, ...] = ("a", "sigma_dev", "rel_error", "sigma_asym", "nu")
 
 _LOG2PI = math.log(2.0 * math.pi)
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def _one(y0, y, present, v0, v, a, sdev, srel, sasym, nu, student, mu_buf, g_buf, s2_buf):
+def _one(y0, y, present, v0, v, a, sdev, rel_error, sasym, nu, student, mu_buf, g_buf, s2_buf):
     """Log-likelihood, predictive mean and variance of one junction (complex arithmetic)."""
     K = y.shape[0]
     k = 0
@@ -53,7 +53,7 @@ def _one(y0, y, present, v0, v, a, sdev, srel, sasym, nu, student, mu_buf, g_buf
             ybar += y[i]
     ybar /= k
     tau = sasym * sasym
-    srel2 = srel * srel
+    srel2 = rel_error * rel_error
     G = 0.0 + 0.0j
     B = 0.0 + 0.0j
     sum_log_s2 = 0.0 + 0.0j
@@ -116,7 +116,7 @@ def _one(y0, y, present, v0, v, a, sdev, srel, sasym, nu, student, mu_buf, g_buf
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, student, skip):
+def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, rel_error, sasym, nu, student, skip):
     """Per-junction log-likelihood, its derivatives, and the parent's predictive mean and variance.
 
     Parameters
@@ -131,7 +131,7 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
         Specimen of each junction; ``a_spec[spec_idx]`` is the junction's exponent.
     a_spec : (n_spec,) float
         Specimen exponents.
-    sdev, srel, sasym, nu : float
+    sdev, rel_error, sasym, nu : float
         Biological deviation, relative measurement error, asymmetry scale, Student-t degrees of freedom.
     student : bool
         Student-t (True) or normal (False) parent deviation. For Student-t the normalising terms that
@@ -157,7 +157,7 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
     s2_buf = np.empty(K, dtype=np.complex128)
     n_dirs = skip.shape[0]
     for j in range(n):
-        base = (a_spec[spec_idx[j]], sdev, srel, sasym, nu)
+        base = (a_spec[spec_idx[j]], sdev, rel_error, sasym, nu)
         val, m, v = _one(
             y0[j],
             Y[j],
@@ -203,7 +203,7 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, stu
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def precompute(Y, M, V, srel, tau_j):
+def precompute(Y, M, V, rel_error, tau_j):
     """Posterior of the true log daughters for fixed measurement error and asymmetry.
 
     Returns ``mu`` (n, K) centred posterior means, ``g`` (n, K), ``c`` (n,), ``ybar`` (n,) and the
@@ -231,7 +231,7 @@ def precompute(Y, M, V, srel, tau_j):
         yy = 0.0
         for i in range(K):
             if M[j, i]:
-                s2 = srel * srel + max(V[j, i], 0.0) + S2_FLOOR
+                s2 = rel_error * rel_error + max(V[j, i], 0.0) + S2_FLOOR
                 gi = s2 * tau / (s2 + tau)
                 g[j, i] = gi
                 yc = Y[j, i] - yb
@@ -244,7 +244,7 @@ def precompute(Y, M, V, srel, tau_j):
         bmu = 0.0
         for i in range(K):
             if M[j, i]:
-                s2 = srel * srel + max(V[j, i], 0.0) + S2_FLOOR
+                s2 = rel_error * rel_error + max(V[j, i], 0.0) + S2_FLOOR
                 yc = Y[j, i] - yb
                 mu[j, i] = g[j, i] * yc / s2 + g[j, i] * B / cj
                 bmu += yc / s2 * mu[j, i]
@@ -260,11 +260,11 @@ def precompute(Y, M, V, srel, tau_j):
     return mu, g, c, ybar, lld
 
 
-def daughter_loglik(Y, M, V, srel: float, sasym: float) -> float:
+def daughter_loglik(Y, M, V, rel_error: float, sasym: float) -> float:
     """Sum over junctions of the daughters' contrast log-density (used to estimate the asymmetry scale by
     maximum marginal likelihood)."""
     tau = np.full(Y.shape[0], sasym * sasym)
-    return float(precompute(Y, M, V, srel, tau)[4].sum())
+    return float(precompute(Y, M, V, rel_error, tau)[4].sum())
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
@@ -272,7 +272,7 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, stu
     """Per-junction log-likelihood with analytic derivatives, for fixed measurement error and asymmetry.
 
     ``s0sq`` (n,) is the parent's log-scale measurement variance. Returns ``ll`` (n,), ``dll`` (n, 5) in
-    the order of :data:`DIRECTIONS` (``sigma_rel`` and ``sigma_asym`` columns are zero), ``mean`` and
+    the order of :data:`DIRECTIONS` (``rel_error`` and ``sigma_asym`` columns are zero), ``mean`` and
     ``var`` (n,) of the predicted log parent.
     """
     n, K = mu.shape

@@ -4,7 +4,7 @@ Two forms, chosen by :func:`allobranch.model.build.build_model`:
 
 * ``"fast"`` -- measurement error and asymmetry scale fixed: inputs ``a_spec, sigma_dev, nu`` and the
   precomputed daughter posteriors; analytic derivatives.
-* ``"full"`` -- measurement error and asymmetry scale sampled: inputs ``a_spec, sigma_dev, sigma_rel,
+* ``"full"`` -- measurement error and asymmetry scale sampled: inputs ``a_spec, sigma_dev, rel_error,
   sigma_asym, nu`` and the raw data; complex-step derivatives.
 
 The Op returns the summed log-likelihood and its gradient from one kernel call. The Ops run in PyTensor's Python/C mode and
@@ -29,9 +29,9 @@ def _fast_call(student, a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec
     return kernel.fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, student)
 
 
-def _full_call(student, srel_free, a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx):
-    skip = np.array([False, False, not srel_free, False, not student])
-    return kernel.junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, srel, sasym, nu, student, skip)
+def _full_call(student, rel_error_free, a_spec, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, spec_idx):
+    skip = np.array([False, False, not rel_error_free, False, not student])
+    return kernel.junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, rel_error, sasym, nu, student, skip)
 
 
 class JunctionLoglik(Op):
@@ -42,14 +42,14 @@ class JunctionLoglik(Op):
     :meth:`allobranch.model.build.BuiltModel.pointwise`.
     """
 
-    __props__ = ("kind", "student", "srel_free")
+    __props__ = ("kind", "student", "rel_error_free")
 
-    def __init__(self, kind: str, student: bool, srel_free: bool = False) -> None:
+    def __init__(self, kind: str, student: bool, rel_error_free: bool = False) -> None:
         if kind not in N_PARAMS:
             raise ValueError(f"kind must be one of {sorted(N_PARAMS)}")
         self.kind = kind
         self.student = bool(student)
-        self.srel_free = bool(srel_free)
+        self.rel_error_free = bool(rel_error_free)
 
     def make_node(self, *inputs):
         inputs = [pt.as_tensor_variable(x) for x in inputs]
@@ -62,7 +62,7 @@ class JunctionLoglik(Op):
         if self.kind == "fast":
             ll, dll, _, _ = _fast_call(self.student, *params, *args[p:])
         else:
-            ll, dll, _, _ = _full_call(self.student, self.srel_free, *params, *args[p:])
+            ll, dll, _, _ = _full_call(self.student, self.rel_error_free, *params, *args[p:])
         da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, args[-1], args[0].shape[0])
         outputs[0][0] = np.asarray(ll.sum())
         outputs[1][0] = _flatten(self.kind, da, ds)
@@ -81,7 +81,7 @@ class JunctionLoglik(Op):
 
 
 def _flatten(kind: str, da: np.ndarray, ds: np.ndarray) -> np.ndarray:
-    """Gradient vector of a form's parameters; ``ds`` is ordered (sigma_dev, sigma_rel, sigma_asym, nu)."""
+    """Gradient vector of a form's parameters; ``ds`` is ordered (sigma_dev, rel_error, sigma_asym, nu)."""
     if kind == "fast":
         return np.concatenate([da, ds[[0, 3]]])
     return np.concatenate([da, ds])
@@ -96,7 +96,7 @@ def _register_numba() -> None:
 
     @register_funcify_default_op_cache_key(JunctionLoglik)
     def _funcify_loglik(op, node, **kwargs):
-        student, srel_free = op.student, op.srel_free
+        student, rel_error_free = op.student, op.rel_error_free
         if op.kind == "fast":
 
             @numba_njit
@@ -112,10 +112,10 @@ def _register_numba() -> None:
                 return np.asarray(ll.sum()), out
 
             return fast
-        skip = np.array([False, False, not srel_free, False, not student])
+        skip = np.array([False, False, not rel_error_free, False, not student])
 
         @numba_njit
-        def full(a_spec, sdev, srel, sasym, nu, y0, Y, M, V0, V, spec_idx):
+        def full(a_spec, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, spec_idx):
             ll, dll, _, _ = kernel.junction_terms(
                 y0,
                 Y,
@@ -125,7 +125,7 @@ def _register_numba() -> None:
                 spec_idx,
                 a_spec,
                 sdev.item(),
-                srel.item(),
+                rel_error.item(),
                 sasym.item(),
                 nu.item(),
                 student,

@@ -43,7 +43,7 @@ class Priors:
     sigma_dev : float
         Half-normal scale of the junction-level biological deviation of log parent radius from the law
         (default 0.1, i.e. about 10 %).
-    sigma_meas : float
+    rel_error : float
         Half-normal scale of the relative measurement error when it is estimated (default 0.1).
     sigma_asym : float
         Half-normal scale of the daughters' asymmetry (SD of a true log daughter radius about its
@@ -57,7 +57,7 @@ class Priors:
     tau_taxon: float = 0.5
     tau_specimen: float = 0.25
     sigma_dev: float = 0.1
-    sigma_meas: float = 0.1
+    rel_error: float = 0.1
     sigma_asym: float = 0.5
     nu_alpha: float = 2.0
     nu_beta: float = 0.1

@@ -130,9 +130,9 @@ def group_layout(data: ModelData, spec: ModelSpec, arrays: dict | None = None) -
         if arrays is None:
             from allobranch.model.asymmetry import estimate_sigma_asym
 
-            srel = float(data.rel_error) if data.rel_error else PILOT_REL_ERROR
-            probe = replace(data, rel_error=srel)
-            arrays = fast_arrays(probe, estimate_sigma_asym(probe, srel))
+            rel_error = float(data.rel_error) if data.rel_error else PILOT_REL_ERROR
+            probe = replace(data, rel_error=rel_error)
+            arrays = fast_arrays(probe, estimate_sigma_asym(probe, rel_error))
         est = pilot(
             arrays,
             data.specimen_idx,
@@ -195,7 +195,7 @@ HYPER_PARAMETERS: tuple[str, ...] = (
     "tau_taxon",
     "tau_specimen",
     "sigma_dev",
-    "sigma_meas",
+    "rel_error",
     "sigma_asym",
     "nu",
 )
@@ -237,7 +237,7 @@ class BuiltModel:
         self,
         a_spec: np.ndarray,
         sigma_dev: float,
-        sigma_rel: float | None = None,
+        rel_error: float | None = None,
         sigma_asym: float | None = None,
         nu: float = 30.0,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -266,7 +266,7 @@ class BuiltModel:
                 self.student,
             )
         else:
-            srel = float(d.rel_error or 0.0) if sigma_rel is None else float(sigma_rel)
+            rel_error = float(d.rel_error or 0.0) if rel_error is None else float(rel_error)
             skip = np.ones(5, dtype=bool)
             ll, _, mean, var = kernel.junction_terms(
                 d.log_parent,
@@ -277,7 +277,7 @@ class BuiltModel:
                 d.specimen_idx,
                 a_spec,
                 float(sigma_dev),
-                srel,
+                rel_error,
                 float(sigma_asym),
                 float(nu),
                 self.student,

@@ -83,18 +83,18 @@ def _split(log_daughters: np.ndarray, mask: np.ndarray) -> np.ndarray:
     return np.exp(lo - hi)
 
 
-def _replicate(data, a, sdev, srel, sasym, nu, rng) -> tuple[np.ndarray, np.ndarray]:
+def _replicate(data, a, sdev, rel_error, sasym, nu, rng) -> tuple[np.ndarray, np.ndarray]:
     """One replicated data set (log parent, log daughters) drawn from the model at one posterior draw."""
     mask = data.mask
     k = mask.sum(axis=1)
     ybar = np.where(mask, data.log_daughters, 0.0).sum(axis=1) / k
     dev = np.where(mask, sasym[:, None] * rng.standard_normal(mask.shape), 0.0)
     true_d = ybar[:, None] + dev - (dev.sum(axis=1) / k)[:, None]  # contrasts: flat along the common level
-    s_d = np.sqrt(srel**2 + np.maximum(data.var_abs_daughters, 0.0) + S2_FLOOR)
+    s_d = np.sqrt(rel_error**2 + np.maximum(data.var_abs_daughters, 0.0) + S2_FLOOR)
     log_d = np.where(mask, true_d + s_d * rng.standard_normal(mask.shape), 0.0)
     shock = rng.standard_t(nu, size=k.shape) if nu is not None else rng.standard_normal(k.shape)
     true_p = _law(true_d, mask, a) + sdev * shock
-    s_p = np.sqrt(srel**2 + np.maximum(data.var_abs_parent, 0.0) + S2_FLOOR)
+    s_p = np.sqrt(rel_error**2 + np.maximum(data.var_abs_parent, 0.0) + S2_FLOOR)
     return true_p + s_p * rng.standard_normal(k.shape), log_d
 
 
@@ -104,7 +104,7 @@ def ppc_checks(result, n_draws: int = PPC_DRAWS, seed: int = 0) -> pd.DataFrame:
     Parameters
     ----------
     result : FitResult
-        A fit with a ``posterior`` holding ``a_specimen`` and ``sigma_dev`` (and ``sigma_meas``,
+        A fit with a ``posterior`` holding ``a_specimen`` and ``sigma_dev`` (and ``rel_error``,
         ``sigma_asym``, ``nu`` when the model samples them).
     n_draws : int, default :data:`PPC_DRAWS`
         Posterior draws used, evenly spaced over all chains; one replicated data set per draw.
@@ -137,10 +137,10 @@ def ppc_checks(result, n_draws: int = PPC_DRAWS, seed: int = 0) -> pd.DataFrame:
     pairs = _draw_index(post.sizes["chain"], post.sizes["draw"], n_draws)
     for k, (c, d) in enumerate(pairs):
         a = np.asarray(post["a_specimen"].values[c, d], dtype=float)[data.specimen_idx]
-        srel = float(post["sigma_meas"].values[c, d]) if "sigma_meas" in post else known
+        rel_error = float(post["rel_error"].values[c, d]) if "rel_error" in post else known
         nu = float(post["nu"].values[c, d]) if student and "nu" in post else (30.0 if student else None)
         sasym = _asymmetry_scale(result, post, c, d, data.taxon_idx, taxa)
-        rep_p, rep_d = _replicate(data, a, float(post["sigma_dev"].values[c, d]), srel, sasym, nu, rng)
+        rep_p, rep_d = _replicate(data, a, float(post["sigma_dev"].values[c, d]), rel_error, sasym, nu, rng)
         frames += [
             _frame(
                 "law_residual",
