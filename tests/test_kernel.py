@@ -61,8 +61,7 @@ def _full(
         d["M"],
         d["V0"],
         d["V"],
-        d["spec_idx"],
-        a_spec,
+        a_spec[d["spec_idx"]],
         float(sdev),
         float(rel_error),
         float(sasym),
@@ -85,7 +84,7 @@ def _fast(d: dict, a_spec=None, sdev=POINT["sigma_dev"], nu=POINT["nu"], student
     mu, g, c, ybar, lld, s0sq = _pre(d) if pre is None else pre
     a_spec = d["a_spec"] if a_spec is None else np.asarray(a_spec, dtype=float)
     return kernel.fast_terms(
-        d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, d["spec_idx"], a_spec, float(sdev), float(nu), student
+        d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, a_spec[d["spec_idx"]], float(sdev), float(nu), student
     )
 
 
@@ -310,7 +309,6 @@ def test_symmetric_bifurcation_law_checks() -> None:
         M,
         np.zeros(1),
         np.zeros_like(Y),
-        np.zeros(1, dtype=np.int64),
         np.array([a]),
         0.05,
         0.0,
@@ -344,7 +342,6 @@ def test_second_order_delta_method_matches_monte_carlo() -> None:
         M,
         np.zeros(1),
         np.zeros((1, 3)),
-        np.zeros(1, dtype=np.int64),
         np.array([a]),
         1e-6,
         rel_error,

@@ -519,7 +519,7 @@ def _junction_likelihood(ints, floats, a_s, sdev, nu):
     for s in range(ns):
         a_eff[s] = a_s[s] if a_s[s] > A_FLOOR else A_FLOOR
     ll, dll, _, _ = kernel.fast_terms(
-        y0, mu_post, g, c, ybar, M, s0sq, lld, spec_idx, a_eff, sdev, nu, student
+        y0, mu_post, g, c, ybar, M, s0sq, lld, a_eff[spec_idx], sdev, nu, student
     )
     total = 0.0
     d_as = np.zeros(ns)

@@ -116,7 +116,7 @@ def _one(y0, y, present, v0, v, a, sdev, rel_error, sasym, nu, student, mu_buf, 
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, rel_error, sasym, nu, student, skip):
+def junction_terms(y0, Y, M, V0, V, a_junction, sdev, rel_error, sasym, nu, student, skip):
     """Per-junction log-likelihood, its derivatives, and the parent's predictive mean and variance.
 
     Parameters
@@ -127,10 +127,9 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, rel_error, sasym, nu
         Log observed daughters, presence mask, absolute-error log-scale variances.
     V0 : (n,) float
         Absolute-error log-scale variance of the parent.
-    spec_idx : (n,) int
-        Specimen of each junction; ``a_spec[spec_idx]`` is the junction's exponent.
-    a_spec : (n_spec,) float
-        Specimen exponents.
+    a_junction : (n,) float
+        Each junction's exponent, computed by the caller from the model's linear predictor (population,
+        taxon and specimen effects and covariate terms); the kernel knows nothing of the hierarchy.
     sdev, rel_error, sasym, nu : float
         Biological deviation, relative measurement error, asymmetry scale, Student-t degrees of freedom.
     student : bool
@@ -157,7 +156,7 @@ def junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, rel_error, sasym, nu
     s2_buf = np.empty(K, dtype=np.complex128)
     n_dirs = skip.shape[0]
     for j in range(n):
-        base = (a_spec[spec_idx[j]], sdev, rel_error, sasym, nu)
+        base = (a_junction[j], sdev, rel_error, sasym, nu)
         val, m, v = _one(
             y0[j],
             Y[j],
@@ -268,10 +267,11 @@ def daughter_loglik(Y, M, V, rel_error: float, sasym: float) -> float:
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, student):
+def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_junction, sdev, nu, student):
     """Per-junction log-likelihood with analytic derivatives, for fixed measurement error and asymmetry.
 
-    ``s0sq`` (n,) is the parent's log-scale measurement variance. Returns ``ll`` (n,), ``dll`` (n, 5) in
+    ``s0sq`` (n,) is the parent's log-scale measurement variance; ``a_junction`` (n,) is each junction's
+    exponent (the caller's linear predictor). Returns ``ll`` (n,), ``dll`` (n, 5) in
     the order of :data:`DIRECTIONS` (``rel_error`` and ``sigma_asym`` columns are zero), ``mean`` and
     ``var`` (n,) of the predicted log parent.
     """
@@ -282,7 +282,7 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, stu
     var_out = np.empty(n)
     w_buf = np.empty(K)
     for j in range(n):
-        a = a_spec[spec_idx[j]]
+        a = a_junction[j]
         tmax = -1e300
         for i in range(K):
             if M[j, i]:

@@ -26,12 +26,12 @@ N_PARAMS = {"fast": 3, "full": 5}
 
 
 def _fast_call(student, a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
-    return kernel.fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev, nu, student)
+    return kernel.fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_spec[spec_idx], sdev, nu, student)
 
 
 def _full_call(student, rel_error_free, a_spec, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, spec_idx):
     skip = np.array([False, False, not rel_error_free, False, not student])
-    return kernel.junction_terms(y0, Y, M, V0, V, spec_idx, a_spec, sdev, rel_error, sasym, nu, student, skip)
+    return kernel.junction_terms(y0, Y, M, V0, V, a_spec[spec_idx], sdev, rel_error, sasym, nu, student, skip)
 
 
 class JunctionLoglik(Op):
@@ -102,7 +102,7 @@ def _register_numba() -> None:
             @numba_njit
             def fast(a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
                 ll, dll, _, _ = kernel.fast_terms(
-                    y0, mu, g, c, ybar, M, s0sq, lld, spec_idx, a_spec, sdev.item(), nu.item(), student
+                    y0, mu, g, c, ybar, M, s0sq, lld, a_spec[spec_idx], sdev.item(), nu.item(), student
                 )
                 da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, spec_idx, a_spec.shape[0])
                 out = np.empty(a_spec.shape[0] + 2)
@@ -122,8 +122,7 @@ def _register_numba() -> None:
                 M,
                 V0,
                 V,
-                spec_idx,
-                a_spec,
+                a_spec[spec_idx],
                 sdev.item(),
                 rel_error.item(),
                 sasym.item(),
