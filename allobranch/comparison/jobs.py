@@ -24,7 +24,7 @@ from allobranch.intake.table import JunctionTable
 from allobranch.model.spec import ModelSpec
 
 #: Scope label of fits that fix every taxon (or of the free fit, which serves every scope).
-OVERALL = "overall"
+OVERALL = "population"
 
 
 @dataclass(frozen=True)
@@ -79,7 +79,7 @@ def plan_jobs(
     """
     jobs = [FitJob(OVERALL, FREE, None, job_seed(seed, OVERALL, FREE))] if include_free else []
     wanted = []
-    if "overall" in scopes or len(taxa) == 1:
+    if OVERALL in scopes or len(taxa) == 1:
         wanted.append(OVERALL)
     if "taxon" in scopes and len(taxa) > 1:
         wanted += list(taxa)
