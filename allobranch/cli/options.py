@@ -10,6 +10,7 @@ from allobranch.intake.mapping import MEASURES, ColumnMapping
 from allobranch.intake.recipe import load_recipe, mapping_from_options
 from allobranch.intake.table import JunctionTable
 from allobranch.intake.units import ALLOWED_UNITS
+from allobranch.intake.validate import DEFAULT_TAXON
 
 
 def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool = True) -> None:
@@ -41,7 +42,9 @@ def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool =
         metavar="COL,COL[,COL...]",
         help="daughter size columns, comma-separated; third and later may be empty in a row",
     )
-    group.add_argument("--taxon", metavar="COL", help="taxon column (default: one taxon named 'all')")
+    group.add_argument(
+        "--taxon", metavar="COL", help=f"taxon column (default: one taxon named '{DEFAULT_TAXON}')"
+    )
     group.add_argument("--specimen", metavar="COL", help="specimen column (default: one specimen per taxon)")
     group.add_argument("--junction", metavar="COL", help="junction label column (default: the row number)")
     group.add_argument("--measure", choices=MEASURES, help="sizes are radii or diameters (default: radius)")
