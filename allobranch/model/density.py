@@ -34,18 +34,46 @@ from numba.core import cgutils
 from numba.extending import intrinsic
 
 from allobranch.model import kernel
+from allobranch.model.density_parts import (
+    _BYTAXON,
+    _FHEAD,
+    _HEAD,
+    _K,
+    _LOG2PI,
+    _MU_COND,
+    _MU_FIXED,
+    _MU_FREE,
+    _MU_MEAN,
+    _MU_SD,
+    _N,
+    _NDIM,
+    _NEXP,
+    _NFLOAT,
+    _NINT,
+    _NS,
+    _NT,
+    _NU_A,
+    _NU_B,
+    _P,
+    _PHYLO,
+    _Q,
+    _SD_SCALE,
+    _SPEC,
+    _STUDENT,
+    _TAXON,
+    _TS_SCALE,
+    _TT_SCALE,
+    _WHITE,
+    _deviation_terms,
+    _half_normal_log,
+    _junction_likelihood,
+    _views,
+)
+from allobranch.model.density_white import expand_white, logp_grad_white
+from allobranch.model.linear import LinearTerms
 
-#: Smallest exponent used inside the law (keeps prior draws with a <= 0 finite; far from any posterior).
-A_FLOOR = 0.05
-
-# integer header slots
-_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP, _MU_COND, _WHITE = range(12)
-_HEAD = 12
-# float header slots
-_MU_MEAN, _MU_SD, _TT_SCALE, _TS_SCALE, _SD_SCALE, _NU_A, _NU_B, _MU_FIXED = range(8)
-_FHEAD = 8
-_LOG_HALF_NORMAL_CONST = 0.5 * math.log(2.0 / math.pi)
-_LOG2PI = math.log(2.0 * math.pi)
+#: Floor on the phylogeny's eigenvalues (a tree with zero-length tips has a singular covariance).
+EIGEN_FLOOR = 1e-6
 
 
 def fast_arrays(data, sigma_asym_taxa: np.ndarray) -> dict[str, np.ndarray]:
@@ -153,6 +181,7 @@ def pack(
     w_specimen: np.ndarray,
     condition_mu: bool = False,
     whiten: tuple | None = None,
+    linear: LinearTerms | None = None,
 ) -> FastDensity:
     """Pack a fast-form model for the compiled density.
 
@@ -176,8 +205,11 @@ def pack(
         docstring); those groups are then centred (their weights set to 1).
     whiten : (ndarray, ndarray) or None
         Pilot exponent and precision of every specimen (precision 0 where its likelihood is flat): sample
-        the whole hierarchy whitened given the spreads (see :func:`_white_hierarchy`); overrides the
-        weights and ``condition_mu``.
+        the whole hierarchy whitened given the spreads (:mod:`allobranch.model.density_white`); overrides
+        the weights and ``condition_mu``.
+    linear : LinearTerms, optional
+        Covariates, taxon traits and phylogeny of the linear predictor; any of them implies the whitened
+        form (without a pilot, every specimen's likelihood counts as flat in the whitening).
 
     Returns
     -------
@@ -193,45 +225,87 @@ def pack(
     pinned = fixed_t[spec_taxon]
     w_t = np.where(fixed_t, 0.0, np.clip(np.broadcast_to(w_taxon, n_taxa) if taxon_level else 0.0, 0, 1))
     w_s = np.where(pinned, 0.0, np.clip(np.broadcast_to(w_specimen, n_spec) if specimen_level else 0.0, 0, 1))
-    white = whiten is not None and mu_free and (taxon_level or specimen_level)
+    lin = linear if linear is not None and not linear.empty else None
+    if lin is not None and lin.phylo and (not taxon_level or fixed_t.any()):
+        raise ValueError("a phylogeny needs the taxon level and no taxon with a fixed exponent")
+    white = (whiten is not None and mu_free and (taxon_level or specimen_level)) or lin is not None
+    if white and whiten is None:
+        whiten = (np.zeros(n_spec), np.zeros(n_spec))
     condition_mu = bool(condition_mu and mu_free and (taxon_level or specimen_level)) and not white
     if condition_mu and taxon_level:
         w_t = np.where(fixed_t, 0.0, 1.0)
     elif condition_mu:
         w_s = np.where(pinned, 0.0, 1.0)
 
+    p_cov = lin.p if lin is not None else 0
+    q_tr = lin.q if lin is not None else 0
+    by_taxon = bool(lin is not None and lin.by_taxon and p_cov)
+    phylo = bool(lin is not None and lin.phylo)
     names, shapes = [], []
     if mu_free:
         names.append("mu_z" if (condition_mu or white) else "mu")
-        shapes.append(())  # noqa: E702
+        shapes.append(())
+    if q_tr:
+        names.append("gamma")
+        shapes.append((q_tr,))
+    if p_cov:
+        names.append("beta")
+        shapes.append((p_cov,))
+    if by_taxon:
+        names += ["tau_beta_log__", "z_beta_taxon"]
+        shapes += [(p_cov,), (n_taxa, p_cov)]
     if taxon_level:
-        names += ["tau_taxon_log__", "r_taxon"]
-        shapes += [(), (n_taxa,)]  # noqa: E702
+        names.append("tau_taxon_log__")
+        shapes.append(())
+        if phylo:
+            names.append("lambda_logit__")
+            shapes.append(())
+        names.append("r_taxon")
+        shapes.append((n_taxa,))
     if specimen_level:
         names += ["tau_specimen_log__", "r_specimen"]
-        shapes += [(), (n_spec,)]  # noqa: E702
+        shapes += [(), (n_spec,)]
     names.append("sigma_dev_log__")
-    shapes.append(())  # noqa: E702
+    shapes.append(())
     if student:
         names.append("nu_log__")
-        shapes.append(())  # noqa: E702
+        shapes.append(())
     slices, pos = [], 0
-    for s in shapes:
-        size = int(np.prod(s)) if s else 1
+    for shp in shapes:
+        size = int(np.prod(shp)) if shp else 1
         slices.append(slice(pos, pos + size))
         pos += size
     out_names = (
         ["mu"]
         + (["tau_taxon"] if taxon_level else [])
+        + (["pagel_lambda"] if phylo else [])
         + ["a_taxon"]
         + (["tau_specimen"] if specimen_level else [])
-        + ["a_specimen", "sigma_dev"]
+        + ["a_specimen"]
+        + (["beta"] if p_cov else [])
+        + (["tau_beta", "beta_taxon"] if by_taxon else [])
+        + (["gamma"] if q_tr else [])
+        + ["sigma_dev"]
         + (["nu"] if student else [])
     )
-    out_shapes = [{"a_taxon": (n_taxa,), "a_specimen": (n_spec,)}.get(name, ()) for name in out_names]
-    layout = DensityLayout(
-        names, slices, shapes, out_names, out_shapes, {"a_taxon": ("taxon",), "a_specimen": ("specimen",)}
-    )
+    out_shape_of = {
+        "a_taxon": (n_taxa,),
+        "a_specimen": (n_spec,),
+        "beta": (p_cov,),
+        "tau_beta": (p_cov,),
+        "beta_taxon": (n_taxa, p_cov),
+        "gamma": (q_tr,),
+    }
+    out_shapes = [out_shape_of.get(name, ()) for name in out_names]
+    out_dims = {
+        "a_taxon": ("taxon",),
+        "a_specimen": ("specimen",),
+        "beta": ("covariate",),
+        "tau_beta": ("covariate",),
+        "beta_taxon": ("taxon", "covariate"),
+        "gamma": ("trait",),
+    }
+    layout = DensityLayout(names, slices, shapes, out_names, out_shapes, out_dims)
 
     head = np.zeros(_HEAD, dtype=np.int64)
     head[[_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP, _MU_COND, _WHITE]] = [
@@ -248,6 +322,7 @@ def pack(
         condition_mu,
         white,
     ]
+    head[[_P, _BYTAXON, _Q, _PHYLO]] = [p_cov, by_taxon, q_tr, phylo]
     ints = np.concatenate(
         [
             head,
@@ -287,70 +362,34 @@ def pack(
             fixed_vals,
             np.nan_to_num(np.asarray(whiten[0], dtype=float)) if white else np.zeros(n_spec),
             np.nan_to_num(np.asarray(whiten[1], dtype=float)) if white else np.zeros(n_spec),
+            *_linear_buffers(lin, arrays["specimen_idx"], n_spec, n_taxa, n),
         ]
     )
+    ints[_NINT], ints[_NFLOAT] = len(ints), len(floats)
     return FastDensity(ints=ints, floats=floats, layout=layout)
 
 
-@nb.njit(cache=True, nogil=True)
-def _views(ints, floats):
-    n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
-    p = _HEAD
-    spec_idx = ints[p : p + n]
-    p += n  # noqa: E702
-    spec_taxon = ints[p : p + ns]
-    p += ns  # noqa: E702
-    fixed_t = ints[p : p + nt]
-    p += nt  # noqa: E702
-    pinned = ints[p : p + ns]
-    q = _FHEAD
-    y0 = floats[q : q + n]
-    q += n  # noqa: E702
-    mu = floats[q : q + n * K].reshape((n, K))
-    q += n * K  # noqa: E702
-    g = floats[q : q + n * K].reshape((n, K))
-    q += n * K  # noqa: E702
-    c = floats[q : q + n]
-    q += n  # noqa: E702
-    ybar = floats[q : q + n]
-    q += n  # noqa: E702
-    M = floats[q : q + n * K].reshape((n, K))
-    q += n * K  # noqa: E702
-    s0sq = floats[q : q + n]
-    q += n  # noqa: E702
-    lld = floats[q : q + n]
-    q += n  # noqa: E702
-    w_t = floats[q : q + nt]
-    q += nt  # noqa: E702
-    w_s = floats[q : q + ns]
-    q += ns  # noqa: E702
-    fixed_vals = floats[q : q + nt]
-    return spec_idx, spec_taxon, fixed_t, pinned, y0, mu, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals
-
-
-@nb.njit(cache=True, nogil=True)
-def _pilot_views(ints, floats):
-    n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
-    q = _FHEAD + n * (5 + 3 * K) + 2 * nt + ns
-    return floats[q : q + ns], floats[q + ns : q + 2 * ns]
-
-
-@nb.njit(cache=True, nogil=True)
-def _digamma(x):
-    """Digamma by upward recurrence and the asymptotic series (error below 1e-13 for x > 0)."""
-    acc = 0.0
-    while x < 6.0:
-        acc -= 1.0 / x
-        x += 1.0
-    inv = 1.0 / x
-    inv2 = inv * inv
-    return (
-        acc
-        + math.log(x)
-        - 0.5 * inv
-        - inv2
-        * (1.0 / 12 - inv2 * (1.0 / 120 - inv2 * (1.0 / 252 - inv2 * (1.0 / 240 - inv2 * (1.0 / 132)))))
-    )
+def _linear_buffers(lin: LinearTerms | None, specimen_idx: np.ndarray, n_spec: int, n_taxa: int, n: int):
+    """The float blocks read by :func:`allobranch.model.density_parts._linear_views`."""
+    if lin is None:
+        return [np.zeros(n_taxa)]  # eigenvalues only (unused)
+    X = np.asarray(lin.covariates, dtype=float).reshape(n, lin.p)
+    counts = np.bincount(specimen_idx, minlength=n_spec).astype(float)
+    xbar = np.zeros((n_spec, lin.p))
+    for k in range(lin.p):
+        xbar[:, k] = np.bincount(specimen_idx, X[:, k], minlength=n_spec) / np.maximum(counts, 1.0)
+    V = np.asarray(lin.eig_vectors, dtype=float) if lin.phylo else np.zeros((0, 0))
+    lam = np.maximum(np.asarray(lin.eig_values, dtype=float), EIGEN_FLOOR) if lin.phylo else np.zeros(n_taxa)
+    return [
+        X.ravel(),
+        xbar.ravel(),
+        np.asarray(lin.traits, dtype=float).reshape(n_taxa, lin.q).ravel(),
+        V.ravel(),
+        lam,
+        np.asarray(lin.beta_sd, dtype=float).reshape(lin.p),
+        np.asarray(lin.tau_beta_scale, dtype=float).reshape(lin.p),
+        np.asarray(lin.gamma_sd, dtype=float).reshape(lin.q),
+    ]
 
 
 @nb.njit(cache=True, nogil=True)
@@ -387,14 +426,6 @@ def _group_level(r, parent, log_tau, w, fixed, fixed_vals, use_fixed):
             da_dp[i] = 1.0 - wi * scale
             da_dlt[i] = (1.0 - wi) * (a[i] - parent[i])
     return a, lp, da_dr, da_dp, da_dlt, dlp_dr, dlp_dp, dlp_dlt
-
-
-@nb.njit(cache=True, nogil=True)
-def _half_normal_log(log_x, scale):
-    """Half-normal log density of x = exp(log_x) plus the log-transform Jacobian, and its derivative."""
-    x = math.exp(log_x)
-    lp = _LOG_HALF_NORMAL_CONST - math.log(scale) - 0.5 * (x / scale) ** 2 + log_x
-    return lp, 1.0 - (x / scale) ** 2
 
 
 @nb.njit(cache=True, nogil=True)
@@ -507,200 +538,10 @@ def _conditioned_mu(x, ints, floats):
 
 
 @nb.njit(cache=True, nogil=True)
-def _junction_likelihood(ints, floats, a_s, sdev, nu):
-    """Summed junction log-likelihood at real specimen exponents ``a_s`` (floored at :data:`A_FLOOR`),
-    with its derivatives in the specimen exponents, the deviation scale and ``nu``."""
-    n, ns = ints[_N], ints[_NS]
-    student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
-    )
-    a_eff = np.empty(ns)
-    for s in range(ns):
-        a_eff[s] = a_s[s] if a_s[s] > A_FLOOR else A_FLOOR
-    ll, dll, _, _ = kernel.fast_terms(
-        y0, mu_post, g, c, ybar, M, s0sq, lld, a_eff[spec_idx], sdev, nu, student
-    )
-    total = 0.0
-    d_as = np.zeros(ns)
-    d_sdev = 0.0
-    d_nu = 0.0
-    for j in range(n):
-        total += ll[j]
-        d_as[spec_idx[j]] += dll[j, 0]
-        d_sdev += dll[j, 1]
-        d_nu += dll[j, 4]
-    for s in range(ns):
-        if a_s[s] <= A_FLOOR:
-            d_as[s] = 0.0
-    return total, d_as, d_sdev, d_nu
-
-
-@nb.njit(cache=True, nogil=True)
-def _deviation_terms(x, k, ints, floats, d_sdev, d_nu, grad):
-    """Prior, Jacobian and gradient of ``log sigma_dev`` at ``x[k]`` (and ``log nu`` at ``x[k + 1]`` for the
-    Student-t), given the likelihood's derivatives in ``sigma_dev`` and ``nu``; returns their log density."""
-    log_sdev = x[k]
-    sdev = math.exp(log_sdev)
-    lp, dhn = _half_normal_log(log_sdev, floats[_SD_SCALE])
-    grad[k] = dhn + sdev * d_sdev
-    if ints[_STUDENT]:
-        n = ints[_N]
-        nu = math.exp(x[k + 1])
-        alpha, beta = floats[_NU_A], floats[_NU_B]
-        const = n * (math.lgamma((nu + 1.0) / 2.0) - math.lgamma(nu / 2.0) - 0.5 * math.log(nu * math.pi))
-        d_const = n * (0.5 * _digamma((nu + 1.0) / 2.0) - 0.5 * _digamma(nu / 2.0) - 0.5 / nu)
-        lp += const + alpha * math.log(beta) - math.lgamma(alpha) + (alpha - 1.0) * math.log(nu) - beta * nu
-        lp += math.log(nu)  # Jacobian of the log transform
-        grad[k + 1] = nu * (d_nu + d_const + (alpha - 1.0) / nu - beta) + 1.0
-    return lp
-
-
-@nb.njit(cache=True, nogil=True)
-def _white_hierarchy(x, ints, floats):
-    """Whitened hierarchy (complex arithmetic, for complex-step derivatives).
-
-    With the pilot's Gaussian approximation of every specimen's likelihood, ``N(ahat_s, 1/prec_s)``, the
-    exponents given the spreads are jointly normal; messages passed up the tree (specimens -> taxa -> mu)
-    give each node's conditional normal given its parent, and each node is sampled as its conditional
-    mean plus ``z`` times its conditional SD, top down. This is an exact change of variables for any
-    spreads (the Jacobian is added), and under the approximation every ``z`` is standard normal a posteriori
-    and independent of the spreads, so no funnel remains at any spread.
-
-    Returns the specimen exponents, the log prior of all exponents and spreads plus the Jacobians, the
-    population exponent and the taxon exponents.
-    """
-    nt, ns = ints[_NT], ints[_NS]
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
-    )
-    ahat, prec = _pilot_views(ints, floats)
-    taxon_level = ints[_TAXON] != 0
-    spec_level = ints[_SPEC] != 0
-    m0, s0 = floats[_MU_MEAN], floats[_MU_SD]
-    zmu = x[0]
-    p = 1
-    lp = 0.0 + 0.0j
-    if taxon_level:
-        lt_t = x[p]
-        z_t = x[p + 1 : p + 1 + nt]
-        p += 1 + nt
-        T_t = np.exp(2.0 * lt_t)
-        lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TT_SCALE]) - 0.5 * T_t / floats[_TT_SCALE] ** 2 + lt_t
-    if spec_level:
-        lt_s = x[p]
-        z_s = x[p + 1 : p + 1 + ns]
-        T_s = np.exp(2.0 * lt_s)
-        lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TS_SCALE]) - 0.5 * T_s / floats[_TS_SCALE] ** 2 + lt_s
-    # messages up: each free specimen's marginal about its parent
-    up_prec_t = np.zeros(nt, dtype=np.complex128)  # into taxon t (or into mu when no taxon level)
-    up_mean_t = np.zeros(nt, dtype=np.complex128)
-    for s in range(ns):
-        if pinned[s] or prec[s] <= 0.0:
-            continue
-        if spec_level:
-            v = T_s + 1.0 / prec[s]
-        else:
-            v = (1.0 + 0.0j) / prec[s]
-        up_prec_t[spec_taxon[s]] += 1.0 / v
-        up_mean_t[spec_taxon[s]] += ahat[s] / v
-    up_prec_mu = 0.0 + 0.0j
-    up_mean_mu = 0.0 + 0.0j
-    for t in range(nt):
-        if fixed_t[t] or up_prec_t[t].real <= 0.0:
-            continue
-        if taxon_level:
-            v = T_t + 1.0 / up_prec_t[t]
-            up_prec_mu += 1.0 / v
-            up_mean_mu += (up_mean_t[t] / up_prec_t[t]) / v
-        else:
-            up_prec_mu += up_prec_t[t]
-            up_mean_mu += up_mean_t[t]
-    # top down: mu
-    P = 1.0 / (s0 * s0) + up_prec_mu
-    sd = 1.0 / np.sqrt(P)
-    mu = (m0 / (s0 * s0) + up_mean_mu) / P + sd * zmu
-    lp += -0.5 * _LOG2PI - math.log(s0) - 0.5 * ((mu - m0) / s0) ** 2 + np.log(sd)
-    a_t = np.empty(nt, dtype=np.complex128)
-    for t in range(nt):
-        if fixed_t[t]:
-            a_t[t] = fixed_vals[t]
-            if taxon_level:
-                lp += -0.5 * _LOG2PI - 0.5 * z_t[t] * z_t[t]
-        elif taxon_level:
-            Pt = 1.0 / T_t + up_prec_t[t]
-            sdt = 1.0 / np.sqrt(Pt)
-            a_t[t] = (mu / T_t + up_mean_t[t]) / Pt + sdt * z_t[t]
-            lp += -0.5 * _LOG2PI - 0.5 * np.log(T_t) - 0.5 * (a_t[t] - mu) ** 2 / T_t + np.log(sdt)
-        else:
-            a_t[t] = mu
-    a_s = np.empty(ns, dtype=np.complex128)
-    for s in range(ns):
-        parent = a_t[spec_taxon[s]]
-        if not spec_level:
-            a_s[s] = parent
-        elif pinned[s]:
-            a_s[s] = parent
-            lp += -0.5 * _LOG2PI - 0.5 * z_s[s] * z_s[s]
-        else:
-            Ps = 1.0 / T_s + prec[s]
-            sds = 1.0 / np.sqrt(Ps)
-            a_s[s] = (parent / T_s + prec[s] * ahat[s]) / Ps + sds * z_s[s]
-            lp += -0.5 * _LOG2PI - 0.5 * np.log(T_s) - 0.5 * (a_s[s] - parent) ** 2 / T_s + np.log(sds)
-    return a_s, lp, mu, a_t
-
-
-@nb.njit(cache=True, nogil=True)
-def _logp_grad_white(x, ints, floats, grad):
-    """Log density and gradient of the whitened form: complex-step derivatives of the hierarchy (exact
-    to rounding, Squire & Trapp 1998) chained with the kernel's analytic derivatives."""
-    _n, ns = ints[_N], ints[_NS]
-    student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
-    )
-    ndim = x.shape[0]
-    n_h = ndim - (2 if student else 1)  # hierarchy coordinates come first
-    xc = x[:n_h].astype(np.complex128)
-    a_s, lp_h, _, _ = _white_hierarchy(xc, ints, floats)
-    sdev = math.exp(x[n_h])
-    nu = math.exp(x[n_h + 1]) if student else 30.0
-    a_real = np.empty(ns)
-    for s in range(ns):
-        a_real[s] = a_s[s].real
-    total, d_as, d_sdev, d_nu = _junction_likelihood(ints, floats, a_real, sdev, nu)
-    # specimen deviations touch only their own specimen: analytic (a_s = mean + sd_s z_s); every other
-    # hierarchy coordinate by complex step
-    z0 = n_h
-    if ints[_SPEC]:
-        z0 = n_h - ns
-        lt_s = x[z0 - 1]
-        T_s = math.exp(2.0 * lt_s)
-        ahat, prec = _pilot_views(ints, floats)
-        _, _, _, a_t = _white_hierarchy(xc, ints, floats)
-        for s in range(ns):
-            if pinned[s]:
-                grad[z0 + s] = -x[z0 + s]
-            else:
-                sds = 1.0 / math.sqrt(1.0 / T_s + prec[s])
-                grad[z0 + s] = (d_as[s] - (a_s[s].real - a_t[spec_taxon[s]].real) / T_s) * sds
-    for i in range(z0):
-        xc[i] += 1j * kernel.H
-        a_i, lp_i, _, _ = _white_hierarchy(xc, ints, floats)
-        xc[i] -= 1j * kernel.H
-        gi = lp_i.imag / kernel.H
-        for s in range(ns):
-            gi += d_as[s] * a_i[s].imag / kernel.H
-        grad[i] = gi
-    lp = total + lp_h.real + _deviation_terms(x, n_h, ints, floats, d_sdev, d_nu, grad)
-    return lp
-
-
-@nb.njit(cache=True, nogil=True)
 def _logp_grad(x, ints, floats, grad):
     """Log density and gradient (written into ``grad``) at the unconstrained point ``x``."""
     if ints[_WHITE]:
-        return _logp_grad_white(x, ints, floats, grad)
+        return logp_grad_white(x, ints, floats, grad)
     if not ints[_MU_COND]:
         return _logp_grad_plain(x, ints, floats, grad)
     mu, sd, dmean_dr, dmean_dlt, dsd_dlt, dlogsd_dlt, m, skip = _conditioned_mu(x, ints, floats)
@@ -798,26 +639,7 @@ def _expand(x, ints, floats, out):
     """Stored values: mu, [tau_taxon], a_taxon, [tau_specimen], a_specimen, sigma_dev, [nu]."""
     nt, ns = ints[_NT], ints[_NS]
     if ints[_WHITE]:
-        n_h = x.shape[0] - (2 if ints[_STUDENT] else 1)
-        a_s_c, _, mu_c, a_t_c = _white_hierarchy(x[:n_h].astype(np.complex128), ints, floats)
-        k = 0
-        out[k] = mu_c.real
-        k += 1
-        if ints[_TAXON]:
-            out[k] = math.exp(x[1])
-            k += 1
-        for i in range(nt):
-            out[k + i] = a_t_c[i].real
-        k += nt
-        if ints[_SPEC]:
-            out[k] = math.exp(x[1 + (1 + nt if ints[_TAXON] else 0)])
-            k += 1
-        for s in range(ns):
-            out[k + s] = a_s_c[s].real
-        k += ns
-        out[k] = math.exp(x[n_h])
-        if ints[_STUDENT]:
-            out[k + 1] = math.exp(x[n_h + 1])
+        expand_white(x, ints, floats, out)
         return
     if ints[_MU_COND]:
         x = x.copy()
@@ -882,11 +704,8 @@ def _as_pointer(typingctx, address):
 def _unpack(user_data):
     ptrs = nb.carray(user_data, (2,), np.uint64)
     head = nb.carray(_as_pointer(ptrs[0]), (_HEAD,), np.int64)
-    n, K, nt, ns = head[_N], head[_K], head[_NT], head[_NS]
-    n_int = _HEAD + n + 2 * ns + nt
-    n_float = _FHEAD + n * (5 + 3 * K) + 2 * nt + 3 * ns
-    ints = nb.carray(_as_pointer(ptrs[0]), (n_int,), np.int64)
-    floats = nb.carray(_as_pointer(ptrs[1]), (n_float,), np.float64)
+    ints = nb.carray(_as_pointer(ptrs[0]), (head[_NINT],), np.int64)
+    floats = nb.carray(_as_pointer(ptrs[1]), (head[_NFLOAT],), np.float64)
     return ints, floats
 
 

@@ -15,7 +15,8 @@ from scipy.special import gammaln
 
 from allobranch.model import kernel
 from allobranch.model.data import ModelData
-from allobranch.model.density import A_FLOOR, fast_arrays
+from allobranch.model.density import fast_arrays
+from allobranch.model.density_parts import A_FLOOR
 from allobranch.model.partial_centering import PilotEstimate, pilot
 from allobranch.model.spec import ModelSpec
 
