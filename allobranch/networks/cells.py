@@ -1,0 +1,198 @@
+"""Reading the cells of a network table (segment table or edge list) with the user's row numbers.
+
+Numbers and labels are parsed by the intake stage's cell rules (:mod:`allobranch.intake.validate`), so a
+network table accepts exactly what a junction table accepts; the messages here speak of segments.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from allobranch.errors import InputError, Problem
+from allobranch.intake.readers import RawTable
+from allobranch.intake.validate import _blank_rows, _Collector, _label, describe_unusable, parse_numbers
+
+
+def check_columns(raw: RawTable, roles: Sequence[tuple[str | None, str]], option: str = "options") -> None:
+    """Raise if a mapped column is not in the table, or one column is given two roles.
+
+    Parameters
+    ----------
+    raw : RawTable
+        The table as read.
+    roles : sequence of (column or None, role)
+        Every mapped column with what it is used for; ``None`` columns are not mapped.
+    option : str
+        Where the names came from, for the hint.
+    """
+    present = [str(c) for c in raw.frame.columns]
+    mapped = [(c, r) for c, r in roles if c is not None]
+    problems = [
+        Problem(
+            "fatal",
+            raw.label,
+            1,
+            c,
+            f"the {role} column '{c}' is not in the file; its columns are: {', '.join(map(repr, present))}",
+            f"check the spelling and capitals of the column name in your {option}",
+            "missing_column",
+        )
+        for c, role in mapped
+        if c not in present
+    ]
+    names = [c for c, _ in mapped]
+    twice = sorted({c for c in names if names.count(c) > 1})
+    problems += [
+        Problem(
+            "fatal",
+            raw.label,
+            1,
+            c,
+            f"column '{c}' is used for more than one role ({', '.join(r for n, r in mapped if n == c)})",
+            "map each column to one role only",
+            "column_twice",
+        )
+        for c in twice
+    ]
+    if problems:
+        raise InputError(problems)
+
+
+def non_blank(raw: RawTable, out: _Collector) -> tuple[np.ndarray, np.ndarray]:
+    """Positions and user rows of the non-blank rows; blank rows are listed as excluded in ``out``."""
+    blank = _blank_rows(raw.frame)
+    for r in raw.rows[blank]:
+        out.add(
+            "excluded",
+            r,
+            None,
+            "blank row",
+            "not used; delete it if the row was meant to be empty",
+            "blank_row",
+        )
+    keep = np.flatnonzero(~blank)
+    if not len(keep):
+        out.add(
+            "fatal",
+            None,
+            None,
+            "the table has no data rows (only blank rows)",
+            "add one row per segment",
+            "empty_table",
+        )
+    return keep, raw.rows[keep]
+
+
+def labels(
+    raw: RawTable,
+    keep: np.ndarray,
+    rows: np.ndarray,
+    column: str | None,
+    what: str,
+    out: _Collector,
+    *,
+    required: bool = True,
+) -> list[str | None]:
+    """Labels of a column as trimmed text (``2.0`` gives ``"2"``); missing ones reported when required.
+
+    Parameters
+    ----------
+    raw : RawTable
+        The table as read.
+    keep, rows : numpy.ndarray
+        Positions and user rows of the rows to read (see :func:`non_blank`).
+    column : str or None
+        The column; ``None`` gives ``None`` for every row.
+    what : str
+        What the label is, for messages (``"segment id"``).
+    out : _Collector
+        Collects the problems.
+    required : bool
+        Report an empty cell as fatal; otherwise it gives ``None``.
+
+    Returns
+    -------
+    list of str or None
+    """
+    if column is None:
+        return [None] * len(keep)
+    values = [_label(v) for v in raw.frame[column].iloc[keep].tolist()]
+    if required:
+        for i in np.flatnonzero([v is None for v in values]):
+            out.add(
+                "fatal",
+                rows[i],
+                column,
+                f"the {what} is missing",
+                f"fill in the {what} for this row",
+                "missing_label",
+            )
+    return values
+
+
+def positive_numbers(
+    raw: RawTable, keep: np.ndarray, rows: np.ndarray, column: str | None, what: str, out: _Collector
+) -> np.ndarray | None:
+    """A column of positive numbers; every empty, unusable, zero or negative cell is reported as fatal.
+
+    Parameters
+    ----------
+    raw : RawTable
+        The table as read.
+    keep, rows : numpy.ndarray
+        Positions and user rows of the rows to read.
+    column : str or None
+        The column; ``None`` gives ``None``.
+    what : str
+        What the number is (``"size"``, ``"length"``), for messages.
+    out : _Collector
+        Collects the problems.
+
+    Returns
+    -------
+    numpy.ndarray or None
+        The numbers (NaN where reported).
+    """
+    if column is None:
+        return None
+    cells = raw.frame[column].iloc[keep]
+    values, bad = parse_numbers(cells, raw.decimal)
+    mark = "comma" if raw.decimal == "," else "point"
+    for i in np.flatnonzero(bad):
+        message, kind = describe_unusable(cells.iloc[i], raw.decimal)
+        out.add(
+            "fatal",
+            rows[i],
+            column,
+            message,
+            f"write the {what} as a plain positive number (decimal {mark})",
+            kind,
+        )
+    for i in np.flatnonzero(np.isnan(values) & ~bad):
+        out.add(
+            "fatal",
+            rows[i],
+            column,
+            f"the {what} is missing",
+            f"fill in the segment's {what}; every segment needs one (remove a segment that was not measured and "
+            "re-attach its children)",
+            "missing_size",
+        )
+    for i in np.flatnonzero(values <= 0):
+        out.add(
+            "fatal",
+            rows[i],
+            column,
+            f"the {what} is {values[i]:g}; it must be positive",
+            f"correct the {what}",
+            "nonpositive_size",
+        )
+    return values
+
+
+def raise_fatal(out: _Collector) -> None:
+    """Raise every fatal problem collected so far (ordered by row), with the other findings after them."""
+    if out.fatal:
+        raise InputError(sorted(out.fatal, key=lambda p: p.row or 0) + out.other)

@@ -1,0 +1,353 @@
+"""Vessel graphs to junctions: an edge list (node, node, size, optional length) oriented from a root node.
+
+Skeletonised casts and micro-CT images give undirected graphs: each row is one edge (a vessel segment)
+between two nodes, written in either direction. For every specimen the graph is oriented away from the
+given root node (the inlet) by breadth-first search (networkx). Each edge becomes a segment whose parent is
+the edge arriving at its upstream node; a node with two or more edges leaving it downstream is a junction
+(labelled by the node's id).
+
+**Loops** (anastomoses, and edges repeated between the same two nodes) are found by comparing the number of
+edges with the number of nodes. With ``loops="break_thinnest"`` (default) the spanning tree that keeps the
+widest edges is kept (Kruskal's algorithm, networkx): every edge removed is the thinnest edge of the loop
+it closes (the cycle property of maximum spanning trees), and each one is listed with its row. Ties between
+equal sizes are broken by the node ids, never by the order of the rows. ``loops="error"`` refuses a graph
+with loops and lists the edges that close them.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+from typing import Any
+
+import networkx as nx
+import numpy as np
+import pandas as pd
+
+from allobranch.intake.readers import read_table
+from allobranch.intake.validate import DEFAULT_TAXON, _Collector
+from allobranch.networks.cells import check_columns, labels, non_blank, positive_numbers, raise_fatal
+from allobranch.networks.result import ROOT_RULES, NetworkJunctions, check_rule
+from allobranch.networks.segments import (
+    SegmentForest,
+    check_specimen_taxa,
+    derive_from_forest,
+    rows_text,
+)
+
+#: Loop handling: keep the widest spanning tree (each removed edge the thinnest of its loop), or refuse.
+LOOP_RULES: tuple[str, ...] = ("break_thinnest", "error")
+
+#: Joins the two node ids of an edge in its segment name.
+EDGE_SEP = "-"
+
+
+def _root_of(root: str | Mapping[str, str], specimen: str) -> str | None:
+    if isinstance(root, Mapping):
+        value = root.get(specimen)
+        return None if value is None else str(value).strip()
+    return str(root).strip()
+
+
+def _orient(graph: nx.MultiGraph, root: str) -> tuple[list[int], dict[int, int], dict[int, str], list[int]]:
+    """Keep the widest spanning tree and orient it from ``root``.
+
+    Returns
+    -------
+    kept : list of int
+        Edge positions in the tree, in breadth-first order.
+    parent : dict
+        Position of the edge above each kept edge (``-1`` below the root).
+    lower : dict
+        The downstream node of each kept edge.
+    removed : list of int
+        Edge positions left out to break loops.
+    """
+    if graph.number_of_edges() > graph.number_of_nodes() - 1:
+        tree_edges = nx.maximum_spanning_edges(
+            graph, algorithm="kruskal", weight="size", keys=True, data=False
+        )
+        in_tree = {key for _, _, key in tree_edges}
+    else:
+        in_tree = {key for _, _, key in graph.edges(keys=True)}
+    removed = sorted(key for _, _, key in graph.edges(keys=True) if key not in in_tree)
+    tree = nx.Graph()
+    tree.add_edges_from((u, v, {"pos": k}) for u, v, k in graph.edges(keys=True) if k in in_tree)
+    into: dict[str, int] = {root: -1}
+    kept: list[int] = []
+    parent: dict[int, int] = {}
+    lower: dict[int, str] = {}
+    for u, v in nx.bfs_edges(tree, root):
+        pos = tree[u][v]["pos"]
+        kept.append(pos)
+        parent[pos] = into[u]
+        lower[pos] = v
+        into[v] = pos
+    return kept, parent, lower, removed
+
+
+def read_edge_forest(
+    source: str | os.PathLike | pd.DataFrame,
+    *,
+    node_from: str,
+    node_to: str,
+    size: str,
+    root: str | Mapping[str, str],
+    length: str | None = None,
+    taxon: str | None = None,
+    specimen: str | None = None,
+    loops: str = "break_thinnest",
+    roots: str = "one",
+    sheet: str | int | None = None,
+    encoding: str | None = None,
+) -> SegmentForest:
+    """Read an edge list, orient it from the root and return it as a forest of segments.
+
+    Parameters
+    ----------
+    source : str, path-like or pandas.DataFrame
+        The edge list (any table :func:`allobranch.intake.readers.read_table` reads).
+    node_from, node_to : str
+        Columns with the two node ids of each edge (either direction).
+    size : str
+        Column with the edge's size.
+    root : str or mapping of str to str
+        The root node's id: one id used in every specimen, or ``{specimen: id}``.
+    length, taxon, specimen : str, optional
+        Optional columns.
+    loops : {"break_thinnest", "error"}
+        See the module notes.
+    roots : {"one", "many"}
+        ``"one"`` requires the root node to have a single edge (the inlet); ``"many"`` lets several
+        trees leave the root node.
+    sheet, encoding
+        As in :func:`allobranch.read_junctions`.
+
+    Returns
+    -------
+    SegmentForest
+        Segments named ``from-to`` as written in the file; junction labels are the downstream node ids.
+
+    Raises
+    ------
+    InputError
+        Naming file, row and column: missing columns or cells, unusable sizes, a root that is not a node,
+        edges not connected to the root, loops (with ``loops="error"``), a root with several edges (with
+        ``roots="one"``).
+    """
+    check_rule("loops", loops, LOOP_RULES)
+    check_rule("roots", roots, ROOT_RULES)
+    raw = read_table(source, sheet=sheet, encoding=encoding)
+    check_columns(
+        raw,
+        [
+            (node_from, "from-node"),
+            (node_to, "to-node"),
+            (size, "size"),
+            (length, "length"),
+            (taxon, "taxon"),
+            (specimen, "specimen"),
+        ],
+    )
+    out = _Collector(raw.label)
+    keep, rows = non_blank(raw, out)
+    raise_fatal(out)
+    a = labels(raw, keep, rows, node_from, "from-node id", out)
+    b = labels(raw, keep, rows, node_to, "to-node id", out)
+    taxa = labels(raw, keep, rows, taxon, "taxon", out) if taxon else [DEFAULT_TAXON] * len(keep)
+    specimens = labels(raw, keep, rows, specimen, "specimen", out) if specimen else list(taxa)
+    sizes = positive_numbers(raw, keep, rows, size, "size", out)
+    lengths = positive_numbers(raw, keep, rows, length, "length", out)
+    taxa_arr = np.array([t or "" for t in taxa], dtype=object)
+    spec_arr = np.array([s or "" for s in specimens], dtype=object)
+    if specimen:
+        check_specimen_taxa(taxa_arr, spec_arr, rows, taxon or specimen, out)
+    raise_fatal(out)
+
+    names = np.array([f"{u}{EDGE_SEP}{v}" for u, v in zip(a, b)], dtype=object)
+    lo = np.array([min(u, v) for u, v in zip(a, b)], dtype=object)
+    hi = np.array([max(u, v) for u, v in zip(a, b)], dtype=object)
+    canonical = pd.DataFrame({"spec": spec_arr, "lo": lo, "hi": hi, "size": -sizes, "row": rows})
+    canonical = canonical.sort_values(["spec", "lo", "hi", "size", "row"], kind="stable")
+    kept_all: list[int] = []
+    parent_all: list[int] = []
+    lower_all: list[str] = []
+    notes: list[str] = []
+    for spec, group in canonical.groupby("spec", sort=True):
+        root_id = _root_of(root, spec)
+        first = int(group["row"].min())
+        graph = nx.MultiGraph()
+        positions = group.index.to_numpy()
+        graph.add_edges_from((lo[i], hi[i], int(i), {"size": float(sizes[i])}) for i in positions)
+        if root_id is None:
+            out.add(
+                "fatal",
+                first,
+                None,
+                f"no root node given for specimen '{spec}'",
+                f"give the root node of every specimen, e.g. --root {spec}=ID",
+                "no_root",
+            )
+            continue
+        if root_id not in graph:
+            out.add(
+                "fatal",
+                first,
+                None,
+                f"the root node '{root_id}' is not a node of specimen '{spec}' (no edge names it)",
+                "give the id of the node at the inlet, as written in the from/to columns",
+                "unknown_root",
+            )
+            continue
+        reach = nx.node_connected_component(graph, root_id)
+        apart = sorted(int(rows[i]) for i in positions if lo[i] not in reach)
+        if apart:
+            out.add(
+                "fatal",
+                apart[0],
+                None,
+                f"{len(apart)} edge(s) of specimen '{spec}' are not connected to the root node '{root_id}' "
+                f"(rows {rows_text(apart)})",
+                "connect them, remove them, or give each separate piece its own specimen label and root",
+                "disconnected",
+            )
+            continue
+        degree = graph.degree(root_id)
+        if roots == "one" and degree > 1:
+            out.add(
+                "fatal",
+                first,
+                None,
+                f"the root node '{root_id}' of specimen '{spec}' has {degree} edges; one root segment is expected",
+                "give the free end of the inlet segment as the root, or allow several trees from the root "
+                "(roots='many', --roots many)",
+                "several_roots",
+            )
+            continue
+        kept, parent, lower, removed = _orient(graph, root_id)
+        if removed and loops == "error":
+            listed = sorted(int(rows[i]) for i in removed)
+            out.add(
+                "fatal",
+                listed[0],
+                None,
+                f"specimen '{spec}' has {len(removed)} loop(s); the edges in rows {rows_text(listed)} each close one",
+                "correct the tracing, or let the thinnest edge of every loop be removed (loops='break_thinnest', "
+                "--loops break_thinnest)",
+                "loop",
+            )
+            continue
+        for i in removed:
+            out.add(
+                "excluded",
+                int(rows[i]),
+                size,
+                f"edge {names[i]} (size {sizes[i]:g}) is not used: it closes a loop in specimen '{spec}' and is "
+                "the thinnest edge of that loop",
+                "check the tracing there; loops='error' (--loops error) refuses loops instead",
+                "loop_edge",
+            )
+        if removed:
+            notes.append(
+                f"specimen '{spec}': {len(removed)} loop(s) broken at their thinnest edge (listed below)"
+            )
+        offset = len(kept_all)
+        local = {pos: offset + k for k, pos in enumerate(kept)}
+        kept_all.extend(kept)
+        parent_all.extend(local[parent[pos]] if parent[pos] >= 0 else -1 for pos in kept)
+        lower_all.extend(lower[pos] for pos in kept)
+    raise_fatal(out)
+    idx = np.asarray(kept_all, dtype=np.int64)
+    ids = names[idx]
+    if len(pd.unique(pd.Series(list(zip(spec_arr[idx], ids))))) < len(idx):
+        ids = np.array([f"row{r}" for r in rows[idx]], dtype=object)  # node ids that run together
+        notes.append(f"segments are named by their row ('row12'), since '{EDGE_SEP}'-joined node ids repeat")
+    return SegmentForest(
+        taxon=taxa_arr[idx],
+        specimen=spec_arr[idx],
+        ids=ids,
+        parent=np.asarray(parent_all, dtype=np.int64),
+        size=sizes[idx],
+        length=None if lengths is None else lengths[idx],
+        rows=rows[idx].astype(np.int64),
+        source=raw.label,
+        size_column=size,
+        junction=np.asarray(lower_all, dtype=object),
+        problems=list(out.other),
+        notes=notes,
+    )
+
+
+def junctions_from_edges(
+    source: str | os.PathLike | pd.DataFrame,
+    *,
+    size: str,
+    root: str | Mapping[str, str],
+    node_from: str = "from",
+    node_to: str = "to",
+    length: str | None = None,
+    taxon: str | None = None,
+    specimen: str | None = None,
+    loops: str = "break_thinnest",
+    continuations: str = "merge",
+    roots: str = "one",
+    sheet: str | int | None = None,
+    encoding: str | None = None,
+    **mapping_kwargs: Any,
+) -> NetworkJunctions:
+    """Junctions of a vessel graph given as an edge list.
+
+    Parameters
+    ----------
+    source : str, path-like or pandas.DataFrame
+        One row per edge.
+    size : str
+        Column with each edge's size.
+    root : str or mapping of str to str
+        The root (inlet) node: one id for every specimen, or ``{specimen: id}``.
+    node_from, node_to : str
+        Columns with the two node ids (default ``"from"`` and ``"to"``; direction does not matter).
+    length, taxon, specimen : str, optional
+        Optional columns (lengths weight merged continuations).
+    loops : {"break_thinnest", "error"}
+        Loop handling (see the module notes).
+    continuations : {"merge", "keep"}
+        Nodes with one edge in and one out (see :mod:`allobranch.networks.segments`).
+    roots : {"one", "many"}
+        Whether the root node may have several edges.
+    sheet, encoding
+        As in :func:`allobranch.read_junctions`.
+    **mapping_kwargs
+        ``unit``, ``measure``, ``rel_error``, passed to :func:`allobranch.read_junctions`.
+
+    Returns
+    -------
+    NetworkJunctions
+        Junctions labelled by their node id; removed loop edges in ``.problems``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> edges = pd.DataFrame({"from": [0, 2, 1], "to": [1, 1, 3], "r": [1.0, 0.8, 0.7]})
+    >>> res = junctions_from_edges(edges, size="r", root="0")
+    >>> res.frame[["junction", "parent_segment", "daughter_segments"]].to_dict("records")
+    [{'junction': '1', 'parent_segment': '0-1', 'daughter_segments': '2-1;1-3'}]
+    """
+    forest = read_edge_forest(
+        source,
+        node_from=node_from,
+        node_to=node_to,
+        size=size,
+        root=root,
+        length=length,
+        taxon=taxon,
+        specimen=specimen,
+        loops=loops,
+        roots=roots,
+        sheet=sheet,
+        encoding=encoding,
+    )
+    rules = {"root": root if isinstance(root, str) else dict(root), "loops": loops, "roots": roots}
+    return derive_from_forest(
+        forest, kind="edges", continuations=continuations, rules=rules, **mapping_kwargs
+    )
