@@ -5,17 +5,20 @@ from __future__ import annotations
 import json
 import platform
 import sys
+from dataclasses import replace
 from datetime import UTC, datetime
 
 import arviz as az
 import numpy as np
 import xarray as xr
 
+from allobranch.errors import InputError
 from allobranch.inference import sampling
 from allobranch.inference.results import FitResult
 from allobranch.intake.table import JunctionTable
 from allobranch.model.asymmetry import estimate_sigma_asym
 from allobranch.model.data import model_data
+from allobranch.model.linear import build_linear_terms
 from allobranch.model.spec import SAMPLER_DEFAULTS, SAMPLERS, ModelSpec
 from allobranch.model.structure import BuiltModel, data_arrays, group_layout, model_form
 
@@ -51,8 +54,14 @@ def _draw_params(post: xr.Dataset, c: int, d: int, built: BuiltModel) -> dict:
     get = lambda name, default=None: (  # noqa: E731
         float(post[name].values[c, d]) if name in post else default
     )
+    beta = None
+    if "beta_taxon" in post:
+        beta = post["beta_taxon"].values[c, d]
+    elif "beta" in post:
+        beta = np.broadcast_to(post["beta"].values[c, d], (post.sizes["taxon"], post.sizes["covariate"]))
     return {
         "a_spec": post["a_specimen"].values[c, d],
+        "beta_taxon": beta,
         "sigma_dev": get("sigma_dev"),
         "rel_error": get("rel_error"),
         "sigma_asym": get("sigma_asym"),
@@ -157,7 +166,13 @@ def fit(
             raise ValueError(f"{name} must be a positive whole number, got {value!r}")
     spec = spec or ModelSpec()
     data = model_data(table)
+    data = replace(data, linear=build_linear_terms(table, data, spec))
     form = model_form(data, spec)
+    if data.linear is not None and (form != "fast" or sampler != "nutpie"):
+        raise InputError(
+            "covariates, traits and a tree are fitted by the compiled fast form with nutpie only: give the "
+            "relative measurement error (--rel-error / rel_error=) and keep the default sampler"
+        )
     sigma_asym = estimate_sigma_asym(data, float(data.rel_error or 0.0)) if form == "fast" else None
     arrays = data_arrays(data, form, sigma_asym)
     started = datetime.now(UTC)
@@ -165,7 +180,10 @@ def fit(
     notes: list[str] = []
     attempts: list[dict] = []
     kept = None
-    for k, plan in enumerate(sampling.escalation_plan(spec, layout, target_accept, escalate)):
+    plans = sampling.escalation_plan(
+        spec, layout, target_accept, escalate, whitened_only=data.linear is not None
+    )
+    for k, plan in enumerate(plans):
         (idata, used, attempt_notes), seconds = sampling.timed(
             sampling.sample_once,
             data,

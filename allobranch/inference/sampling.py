@@ -40,14 +40,27 @@ class AttemptPlan:
 
 
 def escalation_plan(
-    spec: ModelSpec, layout: GroupLayout, target_accept: float, escalate: bool
+    spec: ModelSpec,
+    layout: GroupLayout,
+    target_accept: float,
+    escalate: bool,
+    *,
+    whitened_only: bool = False,
 ) -> list[AttemptPlan]:
     """The attempts to try in order (only the first unless ``escalate``).
 
     With ``parametrization="auto"`` the second attempt flips to the extreme the pilot leaned away from
     (centred when most weights were below 1/2, non-centred otherwise); with an explicit parametrisation the
-    escalation keeps it and only raises the target acceptance.
+    escalation keeps it and only raises the target acceptance. ``whitened_only`` (models with covariates,
+    traits or a tree, which only the whitened form samples) keeps ``auto`` and raises the target acceptance.
     """
+    if whitened_only:
+        spec = spec.with_(parametrization="auto")
+        first = AttemptPlan("auto", float(target_accept))
+        higher = [t for t in ESCALATED_TARGET_ACCEPT if t > target_accept] or [max(target_accept, 0.99)]
+        return [first] + (
+            [AttemptPlan("auto", t) for t in higher if t != first.target_accept] if escalate else []
+        )
     first = AttemptPlan(spec.parametrization, float(target_accept))
     if not escalate:
         return [first]
@@ -192,10 +205,14 @@ def _sample_fast(
         w_taxon=layout.w_taxon,
         w_specimen=layout.w_specimen,
         condition_mu=layout.condition_mu,
-        whiten=_pilot_precision(layout) if layout.whiten else None,
+        whiten=_pilot_precision(layout) if (layout.whiten or data.linear is not None) else None,
+        linear=data.linear,
     )
     init = initial_point(density.layout, layout, spec, data.specimen_taxon_idx)
-    return sample_direct(density, init, {"taxon": data.taxa, "specimen": data.specimens}, **kwargs)
+    coords = {"taxon": data.taxa, "specimen": data.specimens}
+    if data.linear is not None:
+        coords.update(covariate=list(data.linear.covariate_names), trait=list(data.linear.trait_names))
+    return sample_direct(density, init, coords, **kwargs)
 
 
 def _pilot_precision(layout: GroupLayout) -> tuple[np.ndarray, np.ndarray]:

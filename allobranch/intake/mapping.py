@@ -47,6 +47,10 @@ class ColumnMapping:
     encoding : str or None
         Text encoding of text tables (the junction table and a repeat-readings file), any Python codec name
         such as ``"latin-1"`` or ``"cp1252"``; ``None`` reads UTF-8 (with or without a byte-order mark).
+    covariates : tuple of str
+        Numeric columns kept with every junction as candidate covariates of the exponent (e.g. branching
+        generation or order); stored in the junction table as ``cov_<name>``. Every cell must be a finite
+        number. (The built-in covariate ``log_parent_size`` needs no column.)
     """
 
     parent: str
@@ -61,9 +65,12 @@ class ColumnMapping:
     repeats: str | None = None
     sheet: str | int | None = None
     encoding: str | None = None
+    covariates: tuple[str, ...] = field(default_factory=tuple)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "daughters", tuple(self.daughters))
+        cov = (self.covariates,) if isinstance(self.covariates, str) else tuple(self.covariates)
+        object.__setattr__(self, "covariates", cov)
         if isinstance(self.se, str):
             object.__setattr__(self, "se", (self.se,))
         else:
@@ -79,4 +86,5 @@ class ColumnMapping:
         out = asdict(self)
         out["daughters"] = list(self.daughters)
         out["se"] = list(self.se)
+        out["covariates"] = list(self.covariates)
         return {k: v for k, v in out.items() if v not in (None, [], ())}

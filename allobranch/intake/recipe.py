@@ -8,6 +8,7 @@ A recipe looks like::
     junction = "node"
     parent = "r_parent"
     daughters = ["r_d1", "r_d2", "r_d3"]
+    covariates = ["generation"]   # numeric columns kept as covariates of the exponent
 
     [measurement]
     measure = "radius"        # or "diameter"
@@ -38,15 +39,19 @@ from allobranch.errors import OutputExistsError, Problem, RecipeError
 from allobranch.intake.mapping import MEASURES, ColumnMapping
 from allobranch.intake.readers import check_encoding
 from allobranch.intake.units import canonical_unit
+from allobranch.io import atomic_write
 
 #: Recipe sections and the mapping fields each may hold; used by the reader, the writer and messages.
 RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
-    "columns": ("taxon", "specimen", "junction", "parent", "daughters"),
+    "columns": ("taxon", "specimen", "junction", "parent", "daughters", "covariates"),
     "measurement": ("measure", "unit", "rel_error", "se", "repeats"),
     "input": ("sheet", "encoding"),
 }
 
 OPTIONS_ORIGIN = "<options>"
+#: Recipe sections read elsewhere (the model's options: :func:`allobranch.comparative.options.load_model_options`);
+#: the mapping reader passes over them.
+OTHER_SECTIONS: tuple[str, ...] = ("model",)
 
 #: The recipe section of every mapping field.
 FIELD_SECTION: dict[str, str] = {key: section for section, keys in RECIPE_SECTIONS.items() for key in keys}
@@ -98,6 +103,7 @@ def check_mapping(
         "specimen": (mapping.specimen,),
         "junction": (mapping.junction,),
         "se": mapping.se,
+        "covariates": mapping.covariates,
     }
     for field, names in roles.items():
         for name in names:
@@ -124,6 +130,7 @@ def check_mapping(
             mapping.specimen,
             mapping.junction,
             *mapping.se,
+            *mapping.covariates,
         )
         if c
     ]
@@ -221,8 +228,10 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
     problems: list[Problem] = []
     values: dict[str, Any] = {}
     wrong_type: set[str] = set()
-    sections = ", ".join(f"[{s}]" for s in RECIPE_SECTIONS)
+    sections = ", ".join(f"[{s}]" for s in (*RECIPE_SECTIONS, *OTHER_SECTIONS))
     for section, content in doc.items():
+        if section in OTHER_SECTIONS:
+            continue
         if section not in RECIPE_SECTIONS:
             problems.append(
                 _problem(origin, f"[{section}]", "unknown section", f"use the sections {sections}")
@@ -291,6 +300,10 @@ _EXPECTED: dict[str, tuple[Any, str]] = {
         lambda v: isinstance(v, str) or (isinstance(v, list) and all(isinstance(x, str) for x in v)),
         "a column name or a list of column names",
     ),
+    "covariates": (
+        lambda v: isinstance(v, list) and all(isinstance(x, str) for x in v),
+        'a list of column names, e.g. ["generation"]',
+    ),
     "rel_error": (lambda v: isinstance(v, (int, float)) and not isinstance(v, bool), "a number, e.g. 0.05"),
     "sheet": (lambda v: isinstance(v, (str, int)) and not isinstance(v, bool), "a sheet name"),
 }
@@ -329,6 +342,7 @@ def mapping_from_options(
     repeats: str | None = None,
     sheet: str | int | None = None,
     encoding: str | None = None,
+    covariates: str | Sequence[str] | None = None,
 ) -> ColumnMapping:
     """Build a mapping from option values, on top of an optional base mapping (e.g. a recipe).
 
@@ -352,6 +366,8 @@ def mapping_from_options(
         Excel sheet holding the junction table.
     encoding : str, optional
         Text encoding of text tables, any Python codec name (e.g. ``"latin-1"``); UTF-8 when not given.
+    covariates : str or sequence of str, optional
+        Numeric columns to keep as covariates of the exponent, as a sequence or comma-separated text.
 
     Returns
     -------
@@ -382,6 +398,7 @@ def mapping_from_options(
         "repeats": repeats,
         "sheet": sheet,
         "encoding": encoding,
+        "covariates": _split(covariates),
     }
     updates = {k: v for k, v in updates.items() if v is not None}
     if base is None:
@@ -453,11 +470,5 @@ def write_recipe(mapping: ColumnMapping, path: str | os.PathLike, *, overwrite: 
         lines.append(f"[{section}]")
         lines.extend(f"{k} = {_toml_value(values[k])}" for k in present)
         lines.append("")
-    try:
-        with dest.open("w" if overwrite else "x", encoding="utf-8") as fh:
-            fh.write("\n".join(lines))
-    except FileExistsError:
-        raise OutputExistsError(
-            f"{dest}: the recipe file already exists; choose another name or remove it first"
-        ) from None
-    return dest
+    text = "\n".join(lines)
+    return atomic_write(dest, lambda p: p.write_text(text, encoding="utf-8"))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -13,6 +14,8 @@ from allobranch.intake.mapping import ColumnMapping
 
 #: Internal length unit for all sizes after conversion (except ``px``, which has no physical length).
 INTERNAL_UNIT = "mm"
+#: Prefix of the covariate columns in :attr:`JunctionTable.data` (``cov_generation`` for ``generation``).
+COVARIATE_PREFIX = "cov_"
 
 
 @dataclass
@@ -66,6 +69,13 @@ class JunctionTable:
     repeats : pandas.DataFrame or None
         Repeat readings (columns ``specimen``, ``junction``, ``segment`` (``parent``, ``d1``...), ``value`` as
         a radius in the internal unit), or ``None``.
+    taxon_traits : pandas.DataFrame or None
+        Numeric traits per taxon (index: taxon label), joined by :func:`allobranch.comparative.attach_traits`.
+    phylogeny : allobranch.comparative.Phylogeny or None
+        The taxa's tree, attached by :func:`allobranch.comparative.attach_tree`.
+
+    Covariate columns named in the mapping are kept in :attr:`data` as ``cov_<name>``
+    (:data:`COVARIATE_PREFIX`).
     """
 
     data: pd.DataFrame
@@ -73,6 +83,8 @@ class JunctionTable:
     report: ValidationReport
     source: str = "<DataFrame>"
     repeats: pd.DataFrame | None = None
+    taxon_traits: pd.DataFrame | None = None
+    phylogeny: Any = None
 
     # -- convenience views used by the geometry and model stages -------------------------------------
     @property
@@ -84,6 +96,11 @@ class JunctionTable:
     def daughter_columns(self) -> list[str]:
         """Internal daughter column names ``d1 .. dK``."""
         return [c for c in self.data.columns if c.startswith("d") and c[1:].isdigit()]
+
+    @property
+    def covariate_names(self) -> list[str]:
+        """Names of the covariate columns read with the table."""
+        return [c[len(COVARIATE_PREFIX) :] for c in self.data.columns if c.startswith(COVARIATE_PREFIX)]
 
     @property
     def parent(self) -> np.ndarray:
@@ -131,4 +148,8 @@ class JunctionTable:
         h = hashlib.sha256(pd.util.hash_pandas_object(self.data, index=False).to_numpy().tobytes())
         if self.repeats is not None:
             h.update(pd.util.hash_pandas_object(self.repeats, index=False).to_numpy().tobytes())
+        if self.taxon_traits is not None:
+            h.update(pd.util.hash_pandas_object(self.taxon_traits).to_numpy().tobytes())
+        if self.phylogeny is not None:
+            h.update(self.phylogeny.digest().encode())
         return h.hexdigest()

@@ -18,11 +18,14 @@ import pandas as pd
 from allobranch.errors import InputError, Problem
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.readers import RawTable
-from allobranch.intake.table import JunctionTable, ValidationReport
+from allobranch.intake.table import COVARIATE_PREFIX, JunctionTable, ValidationReport
 from allobranch.intake.units import radius_factor
 
-#: Taxon label used when no taxon column is mapped.
-DEFAULT_TAXON = "all"
+#: Taxon label used when no taxon column is mapped: every junction then belongs to this one taxon (and,
+#: without a specimen column, to one specimen of the same name). It names a taxon, not the population (the
+#: top level of the hierarchy, :data:`allobranch.conventions.POPULATION`); tables read before this label was
+#: introduced called it "all".
+DEFAULT_TAXON = "single taxon"
 
 #: Cell texts that stand for "no value" in common exports (compared case-insensitively after trimming spaces).
 #: In number columns they are refused, so that no reading is taken as absent by accident (an absent
@@ -204,6 +207,7 @@ def _check_columns(raw: RawTable, mapping: ColumnMapping) -> None:
         if c is not None
     ]
     roles += [(c, "standard error") for c in mapping.se]
+    roles += [(c, "covariate") for c in mapping.covariates]
     present = [str(c) for c in raw.frame.columns]
     missing = [(c, r) for c, r in roles if c not in present]
     if missing:
@@ -239,6 +243,12 @@ _NUMBER_HINTS: dict[str, dict[str, str]] = {
         "nonfinite": "write standard errors as finite non-negative numbers",
         "not_numeric": "write standard errors as plain non-negative numbers (decimal {decimal})",
     },
+    "covariate": {
+        "missing_word": "write the covariate's value for every junction, or remove the row (a junction without "
+        "it cannot enter a model that uses it)",
+        "nonfinite": "write covariates as finite numbers",
+        "not_numeric": "write covariates as plain numbers (decimal {decimal})",
+    },
     "repeat": {
         "missing_word": "write the reading as a number, or remove the row if it was not taken",
         "nonfinite": "write repeat readings as finite positive numbers",
@@ -261,6 +271,26 @@ def _parse_column(
             code = kind
         out.add("fatal", rows[i], column, message, _NUMBER_HINTS[role][kind].format(decimal=mark), code)
     return values, bad
+
+
+def _parse_covariates(
+    raw: RawTable, sub: pd.DataFrame, rows: np.ndarray, mapping: ColumnMapping, out: _Collector
+) -> dict[str, np.ndarray]:
+    """Covariate columns as floats; an empty or unusable cell is fatal (with its row and column)."""
+    found = {}
+    for col in mapping.covariates:
+        values, bad = _parse_column(sub[col], rows, col, "covariate", raw.decimal, out)
+        for i in np.flatnonzero(np.isnan(values) & ~bad):
+            out.add(
+                "fatal",
+                rows[i],
+                col,
+                "the covariate value is missing",
+                _NUMBER_HINTS["covariate"]["missing_word"],
+                "missing_covariate",
+            )
+        found[col] = values
+    return found
 
 
 def _parse_sizes(
@@ -509,6 +539,7 @@ def build_junction_table(
 
     raw_sizes = _parse_sizes(raw, sub, rows, mapping, out)
     raw_se = _parse_se(raw, sub, rows, mapping, raw_sizes, out)
+    covariates = _parse_covariates(raw, sub, rows, mapping, out)
     taxon = _labels(sub, mapping.taxon, rows, [DEFAULT_TAXON] * len(sub), "taxon", out)
     specimen = _labels(sub, mapping.specimen, rows, list(taxon), "specimen", out)
     junction = _labels(sub, mapping.junction, rows, [str(r) for r in rows], "junction", out)
@@ -539,6 +570,8 @@ def build_junction_table(
     data["se_parent"] = se[:, 0]
     for k in range(k_max):
         data[f"se_d{k + 1}"] = se_daughters[:, k]
+    for name, values in covariates.items():
+        data[COVARIATE_PREFIX + name] = values
 
     repeat_frame = None
     if repeats is not None:

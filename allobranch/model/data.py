@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -43,6 +44,9 @@ class ModelData:
         Taxon index of every specimen.
     taxa, specimens, junctions : list of str
         Labels (coordinates).
+    linear : LinearTerms or None
+        Covariate, trait and phylogeny terms of the exponent (set by the fit from its spec;
+        :func:`allobranch.model.linear.build_linear_terms`).
     """
 
     log_parent: np.ndarray
@@ -60,6 +64,7 @@ class ModelData:
     taxa: list[str]
     specimens: list[str]
     junctions: list[str] = field(default_factory=list)
+    linear: Any = None
 
     @property
     def n_junctions(self) -> int:
@@ -135,11 +140,11 @@ def model_data(table: JunctionTable) -> ModelData:
     taxa = list(pd.unique(d["taxon"].astype(str)))
     specimens = list(pd.unique(d["specimen"].astype(str)))
     taxon_pos = {t: i for i, t in enumerate(taxa)}
-    spec_pos = {s: i for i, s in enumerate(specimens)}
+    specimen_pos = {s: i for i, s in enumerate(specimens)}
     taxon_idx = d["taxon"].astype(str).map(taxon_pos).to_numpy(dtype=int)
-    specimen_idx = d["specimen"].astype(str).map(spec_pos).to_numpy(dtype=int)
-    spec_taxon = np.zeros(len(specimens), dtype=int)
-    spec_taxon[specimen_idx] = taxon_idx
+    specimen_idx = d["specimen"].astype(str).map(specimen_pos).to_numpy(dtype=int)
+    specimen_taxon = np.zeros(len(specimens), dtype=int)
+    specimen_taxon[specimen_idx] = taxon_idx
     junction_labels = (d["specimen"].astype(str) + "/" + d["junction"].astype(str)).tolist()
     return ModelData(
         log_parent=np.log(parent),
@@ -153,7 +158,7 @@ def model_data(table: JunctionTable) -> ModelData:
         repeat_ss=repeat_ss,
         taxon_idx=taxon_idx,
         specimen_idx=specimen_idx,
-        specimen_taxon_idx=spec_taxon,
+        specimen_taxon_idx=specimen_taxon,
         taxa=taxa,
         specimens=specimens,
         junctions=junction_labels,

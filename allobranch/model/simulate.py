@@ -68,6 +68,8 @@ def simulate_junctions(
     parent_range: tuple[float, float] = (0.05, 2.0),
     split_concentration: float = 4.0,
     split: str = "dirichlet",
+    exponent_slope: float = 0.0,
+    slope_reference: float = 1.0,
     seed: int | None = 0,
 ) -> SimulatedData:
     """Simulate a junction table from the hierarchical branching model.
@@ -103,6 +105,12 @@ def simulate_junctions(
         given concentration; a uniform fraction (Dirichlet with concentration 1); log-normal daughters
         about their junction mean (the model's own assumption), rescaled to obey the law; or one daughter
         continuing with most of the power (a share from Beta(8, 2)) and the others as side branches.
+    exponent_slope : float
+        Change of a junction's exponent per tenfold larger parent: the exponent at a junction whose true
+        parent radius is ``r`` is ``a_specimen + exponent_slope * log10(r / slope_reference)``, so the
+        specimen exponents hold at ``slope_reference`` (mm).
+    slope_reference : float
+        Parent radius (mm) at which the specimen exponents hold when ``exponent_slope`` is not 0.
     seed : int or None
         Seed of the random generator; the same seed gives the same table.
 
@@ -116,28 +124,29 @@ def simulate_junctions(
     names = (
         [f"T{i + 1}" for i in range(taxa)] if isinstance(taxa, (int, np.integer)) else [str(t) for t in taxa]
     )
-    n_spec = _per_group(specimens_per_taxon, len(names), "specimens_per_taxon")
+    n_specimens = _per_group(specimens_per_taxon, len(names), "specimens_per_taxon")
     if taxon_exponents is not None:
         a_taxon = {t: float(taxon_exponents[t]) for t in names}
     else:
         a_taxon = {t: float(mu + tau_taxon * rng.standard_normal()) for t in names}
-    spec_labels = [(t, f"{t}-S{j + 1}") for t, k in zip(names, n_spec) for j in range(k)]
-    n_junc = _per_group(junctions_per_specimen, len(spec_labels), "junctions_per_specimen")
-    a_spec = {s: float(a_taxon[t] + tau_specimen * rng.standard_normal()) for t, s in spec_labels}
+    specimen_labels = [(t, f"{t}-S{j + 1}") for t, k in zip(names, n_specimens) for j in range(k)]
+    n_junc = _per_group(junctions_per_specimen, len(specimen_labels), "junctions_per_specimen")
+    a_specimen = {s: float(a_taxon[t] + tau_specimen * rng.standard_normal()) for t, s in specimen_labels}
 
     rows, true_rows = [], []
-    for (taxon, spec), n in zip(spec_labels, n_junc):
-        a = a_spec[spec]
+    for (taxon, specimen), n in zip(specimen_labels, n_junc):
+        a = a_specimen[specimen]
         lo, hi = np.log(parent_range[0]), np.log(parent_range[1])
         nominal = np.exp(rng.uniform(lo, hi, size=n))
         k = np.where(rng.uniform(size=n) < trifurcation_share, 3, 2)
         for j in range(n):
-            r_true_d = nominal[j] * _shares(split, int(k[j]), split_concentration, a, rng) ** (1.0 / a)
+            a_j = a + exponent_slope * np.log10(nominal[j] / slope_reference)
+            r_true_d = nominal[j] * _shares(split, int(k[j]), split_concentration, a_j, rng) ** (1.0 / a_j)
             r_true_p = nominal[j] * np.exp(sigma_dev * rng.standard_normal())
             true_vals = np.concatenate([[r_true_p], r_true_d])
             obs = _observe(true_vals, rel_error, abs_error, rng)
             pad = [np.nan] * (3 - k[j]) if trifurcation_share > 0 else []
-            base = {"taxon": taxon, "specimen": spec, "junction": f"J{j + 1:03d}"}
+            base = {"taxon": taxon, "specimen": specimen, "junction": f"J{j + 1:03d}"}
             rows.append({**base, **dict(zip(["parent", "d1", "d2", "d3"], [*obs, *pad]))})
             true_rows.append({**base, **dict(zip(["parent", "d1", "d2", "d3"], [*true_vals, *pad]))})
     frame = pd.DataFrame(rows)
@@ -163,7 +172,9 @@ def simulate_junctions(
         "rel_error": float(rel_error),
         "abs_error": float(abs_error),
         "a_taxon": a_taxon,
-        "a_specimen": a_spec,
+        "a_specimen": a_specimen,
+        "exponent_slope": float(exponent_slope),
+        "slope_reference": float(slope_reference),
     }
     return SimulatedData(frame=frame, truth=truth, true_radii=pd.DataFrame(true_rows), mapping=mapping)
 

@@ -103,6 +103,21 @@ class ModelSpec:
         of the model is unchanged.
     priors : Priors
         Prior scales.
+    covariates : tuple of str
+        Junction covariates of the exponent: columns read with the table (``covariates=`` of
+        :func:`allobranch.read_junctions`) or the built-in ``log_parent_size`` (log10 of the parent's size
+        in the table's unit). Each adds ``slope * (x - reference)`` to every junction's exponent.
+    covariates_by_taxon : bool
+        Let the slopes vary by taxon about an overall slope.
+    covariate_ref : mapping of str to float
+        Reference value of a covariate, where the specimen, taxon and population exponents are reported
+        (default: the covariate's mean over the junctions).
+    traits : tuple of str
+        Taxon traits (columns of the table's attached trait table, :func:`allobranch.comparative.attach_traits`)
+        whose slopes act on the taxon exponents (centred at their mean over taxa).
+    phylogeny : bool
+        Use the tree attached to the table (:func:`allobranch.comparative.attach_tree`): taxon deviations
+        correlated by shared ancestry with Pagel's lambda estimated. Ignored when no tree is attached.
     """
 
     taxon_level: bool | None = None
@@ -114,8 +129,24 @@ class ModelSpec:
     fixed_exponent: float | None = None
     fixed_taxa: Mapping[str, float] = field(default_factory=dict)
     priors: Priors = field(default_factory=Priors)
+    covariates: tuple[str, ...] = ()
+    covariates_by_taxon: bool = False
+    covariate_ref: Mapping[str, float] = field(default_factory=dict)
+    traits: tuple[str, ...] = ()
+    phylogeny: bool = True
 
     def __post_init__(self) -> None:
+        for name in ("covariates", "traits"):
+            value = getattr(self, name)
+            object.__setattr__(
+                self, name, (value,) if isinstance(value, str) else tuple(str(v) for v in value)
+            )
+        object.__setattr__(
+            self, "covariate_ref", {str(k): float(v) for k, v in dict(self.covariate_ref).items()}
+        )
+        unknown = set(self.covariate_ref) - set(self.covariates)
+        if unknown:
+            raise ValueError(f"covariate_ref names covariates not in the model: {', '.join(sorted(unknown))}")
         for name, allowed in (
             ("deviation", DEVIATIONS),
             ("likelihood", LIKELIHOODS),
@@ -139,6 +170,9 @@ class ModelSpec:
         """Plain-dict form for provenance."""
         out = asdict(self)
         out["fixed_taxa"] = dict(self.fixed_taxa)
+        out["covariates"] = list(self.covariates)
+        out["traits"] = list(self.traits)
+        out["covariate_ref"] = dict(self.covariate_ref)
         return out
 
     @classmethod

@@ -241,14 +241,19 @@ class BuiltModel:
         rel_error: float | None = None,
         sigma_asym: float | None = None,
         nu: float = 30.0,
+        beta_taxon: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per-junction log-likelihood and the log parent's predictive mean and variance for one draw.
 
         The log-likelihood includes the Student-t normalising terms, so it is the full log density of
-        the junction's readings (parent given daughters, and the daughters' contrasts).
+        the junction's readings (parent given daughters, and the daughters' contrasts). ``beta_taxon``
+        (n_taxa, n_covariates) are the slopes of the covariates, when the model has any.
         """
         d = self.data
-        a_spec = np.maximum(np.asarray(a_spec, dtype=float), A_FLOOR)
+        a_j = np.asarray(a_spec, dtype=float)[d.specimen_idx]
+        if beta_taxon is not None and d.linear is not None and d.linear.p:
+            a_j = a_j + np.einsum("jk,jk->j", d.linear.covariates, np.asarray(beta_taxon)[d.taxon_idx])
+        a_j = np.maximum(a_j, A_FLOOR)
         if self.form == "fast":
             A = self.arrays
             ll, _, mean, var = kernel.fast_terms(
@@ -260,7 +265,7 @@ class BuiltModel:
                 A["daughter_mask"],
                 A["s0sq"],
                 A["ll_daughters"],
-                a_spec[d.specimen_idx],
+                a_j,
                 float(sigma_dev),
                 float(nu),
                 self.student,
@@ -274,7 +279,7 @@ class BuiltModel:
                 d.mask.astype(float),
                 d.var_abs_parent,
                 d.var_abs_daughters,
-                a_spec[d.specimen_idx],
+                a_j,
                 float(sigma_dev),
                 rel_error,
                 float(sigma_asym),
