@@ -8,6 +8,7 @@ citation was not confirmed against the source.
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import arviz as az
 import numpy as np
@@ -105,10 +106,13 @@ def test_optimal_radii_at_a_junction_give_exponent_three(share):
 
 
 # ------------------------------------------------------------------- a published symmetric airway model
-#: Airway diameters (cm) of generations 0-6 in Weibel's regular dichotomy model, as tabulated in Tu,
-#: Inthavong & Ahmadi, Computational Fluid and Particle Dynamics in the Human Respiratory System, Table 3.2
-#: (values and citation from memory, to be confirmed against the source).
-AIRWAY_DIAMETERS_CM = np.array([1.80, 1.22, 0.83, 0.56, 0.45, 0.35, 0.28])
+#: Airway diameters (cm) of generations 0-6 in Weibel's regular dichotomy model, read from the shared table
+#: tests/data/airway_generations.csv (also used by tests/test_networks_generations.py), whose header names the
+#: source: Weibel 1963 as tabulated in Tu, Inthavong & Ahmadi, Computational Fluid and Particle Dynamics in
+#: the Human Respiratory System, Table 3.2 (values and citation from memory, to be confirmed against it).
+AIRWAY_DIAMETERS_CM = pd.read_csv(Path(__file__).parent / "data" / "airway_generations.csv", comment="#")[
+    "diameter_cm"
+].to_numpy()[:7]
 
 
 def test_airway_generation_steps_imply_their_exponents():

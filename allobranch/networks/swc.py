@@ -341,7 +341,7 @@ def section_radii(
     *,
     trim: float | None = None,
     near_points: int = NEAR_POINTS,
-) -> tuple[np.ndarray, np.ndarray, int]:
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Radius of every section by a rule, as a parent (far end) and as a daughter (near end).
 
     Parameters
@@ -362,8 +362,8 @@ def section_radii(
     -------
     size_end, size_start : numpy.ndarray
         Radii indexed by the section's first sample (NaN elsewhere).
-    fallbacks : int
-        Sections too short for the trim, read at their middle sample.
+    fallbacks : numpy.ndarray
+        First samples of the sections too short for the trim, read at their sample nearest the middle.
     """
     check_rule("radius_rule", rule, RADIUS_RULES)
     n = len(topo.run)
@@ -371,7 +371,7 @@ def section_radii(
     run = topo.run
     if rule == "median":
         med = _median_by_run(run, radius, np.ones(n, dtype=bool), n)
-        return med, med, 0
+        return med, med, np.zeros(0, dtype=np.int64)
     xyz = samples[["x", "y", "z"]].to_numpy(dtype=float)
     s, length = _path_from_section_start(topo, xyz)
     if rule == "trimmed_median":
@@ -388,7 +388,7 @@ def section_radii(
             )
             nearest = gap.groupby(run[gap.index.to_numpy()]).idxmin()
             med[nearest.index.to_numpy()] = radius[nearest.to_numpy()]
-        return med, med, len(short)
+        return med, med, short
     if near_points < 1:
         raise InputError(f"near_points must be a positive whole number; got {near_points}")
     order = pd.DataFrame({"run": run, "s": s, "r": radius}).sort_values(["run", "s"], kind="stable")
@@ -401,7 +401,7 @@ def section_radii(
     end = _median_by_run(order["run"].to_numpy(), order["r"].to_numpy(), before_end, n)
     single = np.isnan(end) & ~np.isnan(start)  # a section of one sample: the branch point itself
     end[single] = start[single]
-    return end, start, 0
+    return end, start, np.zeros(0, dtype=np.int64)
 
 
 def junctions_from_swc(
@@ -499,7 +499,8 @@ def junctions_from_swc(
         f"junctions (neurite types: {neurite_types}); {int((branch & soma).sum())} soma branch point(s) and "
         f"{int((parent_soma & ~soma).sum())} neurite(s) leaving the soma are not junctions",
         f"{n_roots} tree(s) (samples with parent -1) in {frame['source'].nunique()} file(s)",
-        f"{fallbacks} section(s) too short for the trim, read at their middle sample"
+        f"{int((~soma[fallbacks]).sum())} section(s) too short for the trim, read at their sample nearest "
+        "the middle"
         if radius_rule == "trimmed_median"
         else f"radius rule: {radius_rule}",
     ]
