@@ -4,13 +4,19 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import TYPE_CHECKING
 
+from allobranch.cli.network_options import add_network_arguments, network_from_args
+from allobranch.errors import Problem, RecipeError
 from allobranch.intake import read_junctions
 from allobranch.intake.mapping import MEASURES, ColumnMapping
 from allobranch.intake.recipe import load_recipe, mapping_from_options
 from allobranch.intake.table import JunctionTable
 from allobranch.intake.units import ALLOWED_UNITS
 from allobranch.intake.validate import DEFAULT_TAXON
+
+if TYPE_CHECKING:
+    from allobranch.networks import NetworkJunctions
 
 
 def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool = True) -> None:
@@ -27,8 +33,10 @@ def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool =
         parser.add_argument(
             "table",
             metavar="TABLE",
+            nargs="?",
             help="junction table: .csv, .tsv, semicolon-separated text (decimal comma), .parquet "
-            "or .xlsx; one row per junction",
+            "or .xlsx; one row per junction (or a segment table, see 'network input'; none with --edges "
+            "or --swc)",
         )
     group = parser.add_argument_group(
         "column mapping",
@@ -81,22 +89,26 @@ def add_mapping_arguments(parser: argparse.ArgumentParser, *, with_table: bool =
         help="text encoding of a CSV/TSV TABLE and repeat-readings file, e.g. cp1252, latin-1, "
         "utf-16 (default: UTF-8)",
     )
+    if with_table:
+        add_network_arguments(parser)
 
 
-def mapping_from_args(args: argparse.Namespace) -> ColumnMapping:
+def mapping_from_args(args: argparse.Namespace, *, default: ColumnMapping | None = None) -> ColumnMapping:
     """Build the column mapping from parsed options (recipe first, then the options over it).
 
     Parameters
     ----------
     args : argparse.Namespace
         Parsed arguments from a parser prepared with :func:`add_mapping_arguments`.
+    default : ColumnMapping, optional
+        The base mapping when no recipe is given (a network's derived size columns).
 
     Returns
     -------
     ColumnMapping
         The checked mapping.
     """
-    base = load_recipe(args.recipe) if args.recipe else None
+    base = load_recipe(args.recipe) if args.recipe else default
     repeats = args.repeats
     if repeats is not None and Path(repeats).is_file():
         repeats = str(Path(repeats).resolve())  # a path typed on the command line is relative to here
@@ -129,8 +141,49 @@ def add_worker_argument(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def input_from_args(args: argparse.Namespace) -> tuple[JunctionTable, NetworkJunctions | None]:
+    """The junction table the options describe: ``args.table`` read directly, or derived from a network.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments from a parser prepared with :func:`add_mapping_arguments`.
+
+    Returns
+    -------
+    table : JunctionTable
+        The validated junction table.
+    network : NetworkJunctions or None
+        The derived frame and the rules used, when the input is a network (see
+        :mod:`allobranch.cli.network_options`).
+
+    Raises
+    ------
+    allobranch.errors.InputError
+        When the input or the options cannot be used (the CLI prints the message and exits with code 2).
+    """
+    network = network_from_args(args)
+    if network is not None:
+        return network.table, network
+    if args.table is None:
+        raise RecipeError(
+            [
+                Problem(
+                    "fatal",
+                    "<options>",
+                    None,
+                    None,
+                    "no junction table given",
+                    "give TABLE, or a network: --edges FILE --root ID, or --swc FILE|DIR",
+                    "no_table",
+                )
+            ]
+        )
+    return read_junctions(args.table, mapping_from_args(args)), None
+
+
 def table_from_args(args: argparse.Namespace) -> JunctionTable:
-    """Read and validate ``args.table`` with the mapping given by the options.
+    """Read and validate ``args.table`` (or derive it from a network) with the mapping given by the options.
 
     Parameters
     ----------
@@ -147,4 +200,4 @@ def table_from_args(args: argparse.Namespace) -> JunctionTable:
     allobranch.errors.InputError
         When the table or the mapping cannot be used (the CLI prints the message and exits with code 2).
     """
-    return read_junctions(args.table, mapping_from_args(args))
+    return input_from_args(args)[0]

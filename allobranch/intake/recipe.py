@@ -49,9 +49,14 @@ RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
 }
 
 OPTIONS_ORIGIN = "<options>"
-#: Recipe sections read elsewhere (the model's options: :func:`allobranch.comparative.options.load_model_options`);
-#: the mapping reader passes over them.
-OTHER_SECTIONS: tuple[str, ...] = ("model",)
+#: Recipe sections read elsewhere (the model's options: :func:`allobranch.comparative.options.load_model_options`;
+#: a network to derive the junctions from: :func:`allobranch.networks.options.load_network_recipe`); the
+#: mapping reader passes over them.
+OTHER_SECTIONS: tuple[str, ...] = ("model", "network")
+
+#: Size columns of a junction table derived from a network (:mod:`allobranch.networks`); a recipe with a
+#: [network] section names no parent or daughter columns of its own.
+NETWORK_SIZE_COLUMNS: dict[str, Any] = {"parent": "parent", "daughters": ("d1", "d2")}
 
 #: The recipe section of every mapping field.
 FIELD_SECTION: dict[str, str] = {key: section for section, keys in RECIPE_SECTIONS.items() for key in keys}
@@ -264,6 +269,18 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
             else:
                 problems.append(problem)
                 wrong_type.add(key)
+    if isinstance(doc.get("network"), dict):
+        problems += [
+            _problem(
+                origin,
+                _key(key, True),
+                "not used with a [network] section",
+                "remove it: the network gives the parent and daughters of every junction",
+            )
+            for key in NETWORK_SIZE_COLUMNS
+            if key in values
+        ]
+        values.update(NETWORK_SIZE_COLUMNS)
     for key in ("parent", "daughters"):
         if key not in values and key not in wrong_type:
             problems.append(
