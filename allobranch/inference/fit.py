@@ -69,6 +69,25 @@ def _draw_params(post: xr.Dataset, c: int, d: int, built: BuiltModel) -> dict:
     }
 
 
+def linear_settings(lin, table: JunctionTable) -> dict:
+    """What a saved fit must remember of its covariates, traits and tree (reference values, the tree)."""
+    if lin is None:
+        return {}
+    refs = {name: float(v) for name, v in zip(lin.covariate_names, lin.covariate_ref)}
+    refs.update({f"trait:{name}": float(v) for name, v in zip(lin.trait_names, lin.trait_ref)})
+    out: dict = {"linear_reference": refs}
+    if lin.phylo and table.phylogeny is not None:
+        ph = table.phylogeny
+        out["phylogeny"] = {
+            "source": ph.source,
+            "tips": list(ph.tips),
+            "pruned": list(ph.pruned),
+            "newick": ph.newick,
+            "segments": np.asarray(ph.segments).round(6).tolist(),
+        }
+    return out
+
+
 def add_pointwise(idata: az.InferenceData, built: BuiltModel, seed: int) -> az.InferenceData:
     """Add the junction log-likelihood, posterior-predictive parent radii and observed data.
 
@@ -244,6 +263,7 @@ def fit(
         "parametrization": sampling.attempt_layout(layout, plan).describe(),
         "attempts": attempts,
         "sigma_asym_empirical": None if sigma_asym is None else dict(zip(data.taxa, map(float, sigma_asym))),
+        **linear_settings(data.linear, table),
     }
     provenance = {
         "created": started.isoformat(),

@@ -1,0 +1,110 @@
+"""Tables of the linear predictor's terms: slopes of the covariates and traits, their spread over taxa,
+and the reference values at which the exponents are reported."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+#: Columns of ``covariates.csv``.
+COVARIATE_COLUMNS: tuple[str, ...] = (
+    "term",
+    "group",
+    "mean",
+    "sd",
+    "hdi_low",
+    "hdi_high",
+    "r_hat",
+    "ess_bulk",
+    "reference",
+    "meaning",
+)
+#: Group label of slopes shared by all taxa.
+ALL_TAXA = "all taxa"
+
+
+def _summary(draws: np.ndarray, hdi_prob: float) -> dict[str, float]:
+    from allobranch.inference.results import _summ
+
+    s = _summ(np.asarray(draws), hdi_prob)
+    return {k: s[k] for k in ("mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk")}
+
+
+def covariate_summary(result, hdi_prob: float = 0.9) -> pd.DataFrame:
+    """One row per slope: overall covariate slopes, per-taxon slopes and their spread, trait slopes.
+
+    Parameters
+    ----------
+    result : FitResult
+    hdi_prob : float
+        Probability of the highest-density intervals (ArviZ HDI).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns :data:`COVARIATE_COLUMNS`; empty when the model has no covariate or trait. ``reference`` is
+        the covariate's value at which the specimen, taxon and population exponents are reported (a trait's
+        mean over taxa for a trait).
+    """
+    post = result.idata.posterior
+    refs = reference_values(result)
+    rows = []
+    if "beta" in post:
+        for k, name in enumerate(post["covariate"].values):
+            ref = refs.get(str(name), np.nan)
+            rows.append(
+                {
+                    "term": str(name),
+                    "group": ALL_TAXA,
+                    **_summary(post["beta"].values[..., k], hdi_prob),
+                    "reference": ref,
+                    "meaning": f"change in exponent per unit of {name}"
+                    + (" (per tenfold larger parent)" if str(name).startswith("log_parent") else ""),
+                }
+            )
+            if "beta_taxon" in post:
+                rows.append(
+                    {
+                        "term": str(name),
+                        "group": "spread over taxa",
+                        **_summary(post["tau_beta"].values[..., k], hdi_prob),
+                        "reference": ref,
+                        "meaning": f"between-taxon SD of the slope of {name}",
+                    }
+                )
+                for t, taxon in enumerate(post["taxon"].values):
+                    rows.append(
+                        {
+                            "term": str(name),
+                            "group": str(taxon),
+                            **_summary(post["beta_taxon"].values[..., t, k], hdi_prob),
+                            "reference": ref,
+                            "meaning": f"slope of {name} in taxon {taxon}",
+                        }
+                    )
+    if "gamma" in post:
+        for m, name in enumerate(post["trait"].values):
+            rows.append(
+                {
+                    "term": str(name),
+                    "group": "taxon level",
+                    **_summary(post["gamma"].values[..., m], hdi_prob),
+                    "reference": refs.get(f"trait:{name}", np.nan),
+                    "meaning": f"change in taxon exponent per unit of the trait {name}",
+                }
+            )
+    out = pd.DataFrame(rows, columns=list(COVARIATE_COLUMNS))
+    out.attrs["hdi_prob"] = hdi_prob
+    return out
+
+
+def reference_values(result) -> dict[str, float]:
+    """Reference value of every covariate (and ``trait:<name>`` of every trait), as recorded by the fit."""
+    return {str(k): float(v) for k, v in (result.settings.get("linear_reference") or {}).items()}
+
+
+def reference_text(result) -> str:
+    """``"log_parent_size = -0.52"``-style statement of where the exponents are reported ('' without
+    covariates)."""
+    refs = {k: v for k, v in reference_values(result).items() if not k.startswith("trait:")}
+    return ", ".join(f"{k} = {v:.4g}" for k, v in refs.items())
