@@ -6,6 +6,7 @@ import argparse
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from allobranch.cli.model_options import covariate_columns
 from allobranch.cli.network_options import add_network_arguments, network_from_args
 from allobranch.errors import Problem, RecipeError
 from allobranch.intake import read_junctions
@@ -109,6 +110,8 @@ def mapping_from_args(args: argparse.Namespace, *, default: ColumnMapping | None
         The checked mapping.
     """
     base = load_recipe(args.recipe) if args.recipe else default
+    have = tuple(base.covariates) if base is not None else ()
+    extra = tuple(c for c in covariate_columns(args) if c not in have)
     repeats = args.repeats
     if repeats is not None and Path(repeats).is_file():
         repeats = str(Path(repeats).resolve())  # a path typed on the command line is relative to here
@@ -126,6 +129,7 @@ def mapping_from_args(args: argparse.Namespace, *, default: ColumnMapping | None
         repeats=repeats,
         sheet=args.sheet,
         encoding=args.encoding,
+        covariates=have + extra if extra else None,
     )
 
 
