@@ -135,15 +135,15 @@ def assemble_junctions(
         {
             "pos": pos[topology.parent[kids]],
             "size": runs.size_start[kids],
-            "label": runs.label[kids].astype(str),
-            "rows": runs.rows[kids].astype(str),
+            "label": runs.label[kids].astype(object),
+            "rows": runs.rows[kids].astype(object),
         }
     ).sort_values(["pos", "size", "label"], ascending=[True, False, True], kind="stable")
     long["k"] = long.groupby("pos").cumcount() + 1
     wide = long.pivot(index="pos", columns="k", values="size").reindex(np.arange(len(nodes)))
-    joined = long.groupby("pos", sort=True).agg(
-        daughter_segments=("label", DAUGHTER_SEP.join), daughter_rows=("rows", DAUGHTER_SEP.join)
-    )
+    keys = long["pos"].to_numpy()
+    _, daughter_segments = join_groups(keys, [str(x) for x in long["label"].tolist()], DAUGHTER_SEP)
+    _, daughter_rows = join_groups(keys, [str(x) for x in long["rows"].tolist()], DAUGHTER_SEP)
 
     out = pd.DataFrame(
         {
@@ -156,14 +156,37 @@ def assemble_junctions(
     for k in wide.columns:
         out[f"d{k}"] = wide[k].to_numpy(dtype=float)
     out["parent_segment"] = runs.label[up].astype(str)
-    out["daughter_segments"] = joined["daughter_segments"].to_numpy()
+    out["daughter_segments"] = daughter_segments
     out["generation"] = topology.generation[nodes]
     out["strahler_order"] = topology.strahler[nodes]
     out["n_tips"] = topology.n_tips[nodes]
     out["parent_rows"] = runs.rows[up].astype(str)
-    out["daughter_rows"] = joined["daughter_rows"].to_numpy()
+    out["daughter_rows"] = daughter_rows
     out["source"] = source[nodes].astype(str)
     return out.reset_index(drop=True)
+
+
+def join_groups(keys: np.ndarray, texts: list[str], sep: str) -> tuple[np.ndarray, list[str]]:
+    """Join consecutive texts that share a key (``keys`` sorted so that equal keys are adjacent).
+
+    Returns
+    -------
+    unique_keys : numpy.ndarray
+        Each key once, in order.
+    joined : list of str
+        The texts of each key joined with ``sep``.
+
+    Examples
+    --------
+    >>> join_groups(np.array([1, 1, 4]), ["a", "b", "c"], "+")
+    (array([1, 4]), ['a+b', 'c'])
+    """
+    keys = np.asarray(keys)
+    if not len(keys):
+        return keys, []
+    starts = np.concatenate([[0], np.flatnonzero(keys[1:] != keys[:-1]) + 1, [len(keys)]])
+    joined = [sep.join(texts[a:b]) for a, b in zip(starts[:-1].tolist(), starts[1:].tolist())]
+    return keys[starts[:-1]], joined
 
 
 def daughter_columns(frame: pd.DataFrame) -> list[str]:

@@ -20,7 +20,7 @@ import pandas as pd
 from allobranch.errors import Problem
 from allobranch.intake.readers import read_table
 from allobranch.intake.validate import DEFAULT_TAXON, _Collector
-from allobranch.networks.assemble import Runs, assemble_junctions
+from allobranch.networks.assemble import Runs, assemble_junctions, join_groups
 from allobranch.networks.cells import check_columns, labels, non_blank, positive_numbers, raise_fatal
 from allobranch.networks.result import (
     CONTINUATION_COLUMNS,
@@ -330,11 +330,9 @@ def _join_runs(run: np.ndarray, depth: np.ndarray, text: np.ndarray) -> np.ndarr
     multi = np.flatnonzero(run != np.arange(len(run)))
     if len(multi):
         members = np.unique(np.concatenate([run[multi], multi]))
-        frame = pd.DataFrame(
-            {"run": run[members], "depth": depth[members], "text": text[members].astype(str)}
-        )
-        joined = frame.sort_values(["run", "depth"]).groupby("run")["text"].agg(PIECE_SEP.join)
-        out[joined.index.to_numpy()] = joined.to_numpy()
+        members = members[np.lexsort((depth[members], run[members]))]
+        heads, joined = join_groups(run[members], [str(x) for x in text[members].tolist()], PIECE_SEP)
+        out[heads] = joined
     return out
 
 
