@@ -23,6 +23,8 @@ from typing import Any
 import networkx as nx
 import numpy as np
 import pandas as pd
+from scipy.sparse import csr_matrix
+from scipy.sparse.csgraph import breadth_first_order, connected_components
 
 from allobranch.intake.readers import read_table
 from allobranch.intake.validate import DEFAULT_TAXON, _Collector
@@ -49,41 +51,54 @@ def _root_of(root: str | Mapping[str, str], specimen: str) -> str | None:
     return str(root).strip()
 
 
-def _orient(graph: nx.MultiGraph, root: str) -> tuple[list[int], dict[int, int], dict[int, str], list[int]]:
-    """Keep the widest spanning tree and orient it from ``root``.
+def _orient(
+    u: np.ndarray, v: np.ndarray, size: np.ndarray, n_nodes: int, root: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Keep the widest spanning tree of a connected graph and orient it from ``root``.
+
+    Parameters
+    ----------
+    u, v : numpy.ndarray of int
+        Node codes (0 .. n_nodes - 1) of every edge's two ends.
+    size : numpy.ndarray
+        Edge sizes (the spanning tree keeps the widest).
+    n_nodes : int
+        Number of nodes.
+    root : int
+        Code of the root node.
 
     Returns
     -------
-    kept : list of int
-        Edge positions in the tree, in breadth-first order.
-    parent : dict
-        Position of the edge above each kept edge (``-1`` below the root).
-    lower : dict
-        The downstream node of each kept edge.
-    removed : list of int
-        Edge positions left out to break loops.
+    kept : numpy.ndarray of int
+        Edges in the tree (positions in ``u``).
+    parent : numpy.ndarray of int
+        For each kept edge, the position in ``kept`` of the edge above it (``-1`` at the root).
+    lower : numpy.ndarray of int
+        For each kept edge, its downstream node.
+    removed : numpy.ndarray of int
+        Edges left out to break loops.
     """
-    if graph.number_of_edges() > graph.number_of_nodes() - 1:
+    keep = np.ones(len(u), dtype=bool)
+    if len(u) > n_nodes - 1:  # a connected graph with more edges than a tree has loops
+        graph = nx.MultiGraph()
+        graph.add_nodes_from(range(n_nodes))
+        graph.add_edges_from(
+            (int(a), int(b), k, {"size": float(s)}) for k, (a, b, s) in enumerate(zip(u, v, size))
+        )
         tree_edges = nx.maximum_spanning_edges(
             graph, algorithm="kruskal", weight="size", keys=True, data=False
         )
-        in_tree = {key for _, _, key in tree_edges}
-    else:
-        in_tree = {key for _, _, key in graph.edges(keys=True)}
-    removed = sorted(key for _, _, key in graph.edges(keys=True) if key not in in_tree)
-    tree = nx.Graph()
-    tree.add_edges_from((u, v, {"pos": k}) for u, v, k in graph.edges(keys=True) if k in in_tree)
-    into: dict[str, int] = {root: -1}
-    kept: list[int] = []
-    parent: dict[int, int] = {}
-    lower: dict[int, str] = {}
-    for u, v in nx.bfs_edges(tree, root):
-        pos = tree[u][v]["pos"]
-        kept.append(pos)
-        parent[pos] = into[u]
-        lower[pos] = v
-        into[v] = pos
-    return kept, parent, lower, removed
+        keep[:] = False
+        keep[[k for _, _, k in tree_edges]] = True
+    kept = np.flatnonzero(keep)
+    tu, tv = u[kept], v[kept]
+    tree = csr_matrix((np.ones(len(kept)), (tu, tv)), shape=(n_nodes, n_nodes))
+    _, pred = breadth_first_order(tree, root, directed=False, return_predecessors=True)
+    lower = np.where(pred[tv] == tu, tv, tu)
+    upper = np.where(lower == tv, tu, tv)
+    into = np.full(n_nodes, -1, dtype=np.int64)
+    into[lower] = np.arange(len(kept))
+    return kept, into[upper], lower, np.flatnonzero(~keep)
 
 
 def read_edge_forest(
@@ -176,9 +191,10 @@ def read_edge_forest(
     for spec, group in canonical.groupby("spec", sort=True):
         root_id = _root_of(root, spec)
         first = int(group["row"].min())
-        graph = nx.MultiGraph()
         positions = group.index.to_numpy()
-        graph.add_edges_from((lo[i], hi[i], int(i), {"size": float(sizes[i])}) for i in positions)
+        codes, nodes = pd.factorize(np.concatenate([lo[positions], hi[positions]]))
+        m = len(positions)
+        u, v = codes[:m], codes[m:]
         if root_id is None:
             out.add(
                 "fatal",
@@ -189,7 +205,8 @@ def read_edge_forest(
                 "no_root",
             )
             continue
-        if root_id not in graph:
+        where = np.flatnonzero(nodes == root_id)
+        if not len(where):
             out.add(
                 "fatal",
                 first,
@@ -199,20 +216,23 @@ def read_edge_forest(
                 "unknown_root",
             )
             continue
-        reach = nx.node_connected_component(graph, root_id)
-        apart = sorted(int(rows[i]) for i in positions if lo[i] not in reach)
-        if apart:
+        r = int(where[0])
+        full = csr_matrix((np.ones(m), (u, v)), shape=(len(nodes), len(nodes)))
+        _, component = connected_components(full, directed=False)
+        apart = np.sort(rows[positions[component[u] != component[r]]])
+        if len(apart):
             out.add(
                 "fatal",
-                apart[0],
+                int(apart[0]),
                 None,
                 f"{len(apart)} edge(s) of specimen '{spec}' are not connected to the root node '{root_id}' "
-                f"(rows {rows_text(apart)})",
+                f"(rows {rows_text(apart.tolist())})",
                 "connect them, remove them, or give each separate piece its own specimen label and root",
                 "disconnected",
             )
             continue
-        degree = graph.degree(root_id)
+        kept, parent, lower, removed = _orient(u, v, sizes[positions], len(nodes), r)
+        degree = int(((u == r) | (v == r)).sum())
         if roots == "one" and degree > 1:
             out.add(
                 "fatal",
@@ -224,8 +244,8 @@ def read_edge_forest(
                 "several_roots",
             )
             continue
-        kept, parent, lower, removed = _orient(graph, root_id)
-        if removed and loops == "error":
+        removed = positions[removed][np.argsort(rows[positions[removed]], kind="stable")]
+        if len(removed) and loops == "error":
             listed = sorted(int(rows[i]) for i in removed)
             out.add(
                 "fatal",
@@ -247,15 +267,14 @@ def read_edge_forest(
                 "check the tracing there; loops='error' (--loops error) refuses loops instead",
                 "loop_edge",
             )
-        if removed:
+        if len(removed):
             notes.append(
                 f"specimen '{spec}': {len(removed)} loop(s) broken at their thinnest edge (listed below)"
             )
         offset = len(kept_all)
-        local = {pos: offset + k for k, pos in enumerate(kept)}
-        kept_all.extend(kept)
-        parent_all.extend(local[parent[pos]] if parent[pos] >= 0 else -1 for pos in kept)
-        lower_all.extend(lower[pos] for pos in kept)
+        kept_all.extend(positions[kept].tolist())
+        parent_all.extend(np.where(parent >= 0, parent + offset, -1).tolist())
+        lower_all.extend(nodes[lower].tolist())
     raise_fatal(out)
     idx = np.asarray(kept_all, dtype=np.int64)
     ids = names[idx]

@@ -176,8 +176,13 @@ def validate_frame(
         )
     sources = list(dict.fromkeys(frame["source"].astype(str)))
     try:
+        covariates = mapping_kwargs.get("covariates") or []
+        used = ["taxon", "specimen", "junction", "parent", *daughter_columns(frame)]
+        used += [
+            c for c in ([covariates] if isinstance(covariates, str) else covariates) if c in frame.columns
+        ]
         table = read_junctions(
-            frame,
+            frame[used],  # the tracing columns are not validated (and would only cost time)
             **{
                 **mapping_kwargs,
                 "parent": "parent",
