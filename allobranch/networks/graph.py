@@ -1,8 +1,9 @@
 """Vessel graphs to junctions: an edge list (node, node, size, optional length) oriented from a root node.
 
 Skeletonised casts and micro-CT images give undirected graphs: each row is one edge (a vessel segment)
-between two nodes, written in either direction. For every specimen the graph is oriented away from the
-given root node (the inlet) by breadth-first search (networkx). Each edge becomes a segment whose parent is
+between two nodes, written in either direction. For every specimen the graph must be connected to the
+given root node (the inlet); it is oriented away from the root by breadth-first search (scipy's sparse
+graph routines, which keep 10^5-edge graphs within seconds). Each edge becomes a segment whose parent is
 the edge arriving at its upstream node; a node with two or more edges leaving it downstream is a junction
 (labelled by the node's id).
 
