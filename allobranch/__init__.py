@@ -16,19 +16,43 @@ from allobranch.errors import AllobranchError, InputError, Problem  # noqa: E402
 #: Public names and the module each comes from; imported on first use so that the command line's light
 #: commands (``--help``, ``check``) do not import the sampler stack.
 _LAZY = {
+    # read and validate
     "ColumnMapping": "allobranch.intake.mapping",
     "JunctionTable": "allobranch.intake.table",
     "ValidationReport": "allobranch.intake.table",
     "read_junctions": "allobranch.intake",
+    # junction geometry
     "junction_geometry": "allobranch.geometry",
     "naive_summary": "allobranch.geometry",
+    "junction_table": "allobranch.reporting.junctions",
+    "write_junctions": "allobranch.reporting.junctions",
+    # model and inference
     "ModelSpec": "allobranch.model.spec",
     "Priors": "allobranch.model.spec",
     "simulate_junctions": "allobranch.model.simulate",
     "FitResult": "allobranch.inference.results",
     "fit": "allobranch.inference.fit",
+    # law comparison
     "compare_laws": "allobranch.comparison",
     "LawComparison": "allobranch.comparison.compare",
+    "VERDICT_RULE": "allobranch.comparison.verdict",
+    "SavedComparison": "allobranch.reporting.saved_comparison",
+    "write_comparison": "allobranch.reporting.saved_comparison",
+    # tables, figures and the report
+    "write_fit_outputs": "allobranch.reporting.fit_outputs",
+    "fit_summary_markdown": "allobranch.reporting.tables",
+    "export_table": "allobranch.reporting.tables",
+    "figure": "allobranch.reporting.style",
+    "save_figure": "allobranch.reporting.style",
+    "plot_diagnostics": "allobranch.reporting.plots",
+    "plot_exponents": "allobranch.reporting.plots",
+    "plot_law_comparison": "allobranch.reporting.plots",
+    "plot_naive_vs_model": "allobranch.reporting.plots",
+    "plot_ppc_check": "allobranch.reporting.plots",
+    "plot_ratio_plane": "allobranch.reporting.plots",
+    "make_figures": "allobranch.reporting.figures",
+    "write_figures": "allobranch.reporting.figures",
+    "build_report": "allobranch.reporting.report",
 }
 
 
@@ -44,22 +68,4 @@ def __dir__() -> list[str]:
     return sorted(set(globals()) | set(_LAZY))
 
 
-__all__ = [
-    "__version__",
-    "AllobranchError",
-    "InputError",
-    "Problem",
-    "ColumnMapping",
-    "JunctionTable",
-    "ValidationReport",
-    "read_junctions",
-    "junction_geometry",
-    "naive_summary",
-    "ModelSpec",
-    "Priors",
-    "simulate_junctions",
-    "FitResult",
-    "fit",
-    "compare_laws",
-    "LawComparison",
-]
+__all__ = ["__version__", "AllobranchError", "InputError", "Problem", *_LAZY]

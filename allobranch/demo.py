@@ -53,8 +53,8 @@ rel_error = 0.06
 def make_demo(seed: int = DEMO_SEED) -> tuple[pd.DataFrame, dict]:
     """Build the demo table (diameters in micrometres, the user's column names) and its truth."""
     rng = np.random.default_rng(seed)
-    n_spec = sum(DEMO_SPECIMENS)
-    junctions = rng.integers(25, 61, size=n_spec).tolist()
+    n_specimens = sum(DEMO_SPECIMENS)
+    junctions = rng.integers(25, 61, size=n_specimens).tolist()
     sim = simulate_junctions(
         taxa=list(DEMO_EXPONENTS),
         specimens_per_taxon=list(DEMO_SPECIMENS),

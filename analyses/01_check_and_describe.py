@@ -38,8 +38,6 @@ import matplotlib.pyplot as plt  # noqa: E402
 import pandas as pd  # noqa: E402
 
 import allobranch as ab  # noqa: E402
-from allobranch.reporting.plots import plot_ratio_plane  # noqa: E402
-from allobranch.reporting.style import figure, save_figure  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent
@@ -180,9 +178,9 @@ def main(argv: list[str] | None = None) -> int:
         frame.to_csv(out / name, index=False)
         written.append(out / name)
 
-    fig, ax = figure(width="single", aspect=1.1)
-    plot_ratio_plane(geo, CLASSIC_LAWS, exponents=None, ax=ax)
-    written += save_figure(fig, out / "ratio_plane", formats=("pdf", "png"))
+    fig, ax = ab.figure(width="single", aspect=1.1)
+    ab.plot_ratio_plane(geo, CLASSIC_LAWS, exponents=None, ax=ax)
+    written += ab.save_figure(fig, out / "ratio_plane", formats=("pdf", "png"))
     plt.close(fig)
     for path in written:
         print(f"  wrote {path}")

@@ -8,14 +8,15 @@ What this script does
 ---------------------
 1. Re-uses the free-model fit saved by step 2 (analyses/output/02_fit_and_report/fit.nc) when it exists and
    was made from this very table; otherwise fits the model again with step 2's settings.
-2. Runs the law comparison with a fixed seed, for all species together ("overall": every species shares
+2. Runs the law comparison with a fixed seed, for all species together ("population": every species shares
    the law's exponent) and for each species in turn (that species' exponent fixed at the law's value).
    Every law is refitted with its exponent fixed; the evidence is PSIS-LOO (ELPD differences, stacking
    weights), Savage-Dickey Bayes factors against the free model (default, narrower and wider prior) and
    the posterior probability that the exponent lies within +/- 0.25 of each law (P(ROPE)).
 3. Prints the evidence tables, the verdict per scope with its reason, the decision rule behind the
    verdicts, and every warning.
-4. Saves the evidence (CSV/Markdown/LaTeX), the Markdown comparison report, the law-comparison figure
+4. Saves the evidence (CSV/Markdown/LaTeX), the comparison's own files (the tables 'allobranch compare'
+   writes, warnings included, and its Markdown report), the law-comparison figure
    (single column, PDF and PNG) and the one-file HTML report of the whole analysis.
 
 Run from the repository root (after step 2, or it refits first):
@@ -23,7 +24,7 @@ Run from the repository root (after step 2, or it refits first):
     python analyses/03_compare_laws.py                     # results in analyses/output/03_compare_laws/
     python analyses/03_compare_laws.py --fit other/fit.nc --out DIR --draws 1000 --tune 1000
 
-Runtime: 15 extra fits (3 laws x (overall + 4 species)). With step 2's sampler settings (4 chains x 1500
+Runtime: 15 extra fits (3 laws x (population + 4 species)). With step 2's sampler settings (4 chains x 1500
 draws, 1000 tuning steps) that is roughly 20 minutes on an idle 2-core machine (53 minutes when other jobs
 share the cores); --draws/--tune lower it, at the price of noisier LOO estimates.
 """
@@ -42,11 +43,6 @@ import matplotlib.pyplot as plt  # noqa: E402
 import pandas as pd  # noqa: E402
 
 import allobranch as ab  # noqa: E402
-from allobranch.comparison.verdict import RULE  # noqa: E402  (the rule's text is not re-exported)
-from allobranch.reporting.plots import plot_law_comparison  # noqa: E402
-from allobranch.reporting.report import build_report  # noqa: E402
-from allobranch.reporting.style import save_figure  # noqa: E402
-from allobranch.reporting.tables import export_table  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 REPO = HERE.parent
@@ -131,7 +127,7 @@ def main(argv: list[str] | None = None) -> int:
     s = free.settings
     draws, tune = args.draws or s.get("draws"), args.tune or s.get("tune")
     print(
-        f"\ncomparing {', '.join(LAWS)} with the free model, overall and per species: 15 fits of "
+        f"\ncomparing {', '.join(LAWS)} with the free model, for the population and per species: 15 fits of "
         f"{s.get('chains')} chains x {draws} draws (tune {tune}), seed {args.seed}. This takes a while ...",
         flush=True,
     )
@@ -140,7 +136,7 @@ def main(argv: list[str] | None = None) -> int:
         LAWS,
         fit=free,
         delta=DELTA,
-        scopes=("overall", "taxon"),
+        scopes=("population", "taxon"),
         seed=args.seed,
         draws=draws,
         tune=tune,
@@ -160,8 +156,8 @@ def main(argv: list[str] | None = None) -> int:
         "log10_bf_wide",
         "p_rope",
     ]
-    rule("1. Evidence, all species together (overall: every species shares the law's exponent)")
-    show(laws.overall[cols])
+    rule("1. Evidence, all species together (population: every species shares the law's exponent)")
+    show(laws.population[cols])
     rule("2. Evidence per species (that species' exponent fixed at the law, the others free)")
     for taxon in laws.settings["taxa"]:
         print(f"\n{taxon}:")
@@ -176,7 +172,7 @@ def main(argv: list[str] | None = None) -> int:
     # -- verdicts ---------------------------------------------------------------------------------------
     rule("3. Verdicts")
     show(laws.verdicts)
-    print(f"\nDecision rule: {RULE}")
+    print(f"\nDecision rule: {ab.VERDICT_RULE}")
     rule("4. Warnings")
     for w in laws.warnings or ["none"]:
         print(f"  - {w}")
@@ -184,18 +180,19 @@ def main(argv: list[str] | None = None) -> int:
     # -- files ------------------------------------------------------------------------------------------
     rule("5. Files")
     written = []
-    written += export_table(laws.evidence, out / "law_evidence")
-    written += export_table(laws.verdicts, out / "law_verdicts")
-    laws.by_taxon.to_csv(out / "laws_by_taxon.csv", index=False)
+    written += ab.export_table(laws.evidence, out / "law_evidence")
+    written += ab.export_table(laws.verdicts, out / "law_verdicts")
+    # the comparison's own files (laws.csv, laws_by_taxon.csv, laws_verdicts.csv, laws_warnings.csv, laws.md),
+    # which 'allobranch report' and ab.SavedComparison read back
+    written += ab.write_comparison(laws, out, force=True)
     laws.laws_table().to_csv(out / "laws_long.csv", index=False)
-    (out / "laws.md").write_text(laws.to_markdown(), encoding="utf-8")
-    written += [out / "laws_by_taxon.csv", out / "laws_long.csv", out / "laws.md"]
+    written.append(out / "laws_long.csv")
 
-    axes = plot_law_comparison(laws.laws_table())
+    axes = ab.plot_law_comparison(laws.laws_table())
     fig = axes[0].figure
-    written += save_figure(fig, out / "law_comparison", formats=("pdf", "png"))
+    written += ab.save_figure(fig, out / "law_comparison", formats=("pdf", "png"))
     plt.close(fig)
-    written.append(build_report(free, out / "report.html", laws=laws, width="single"))
+    written.append(ab.build_report(free, out / "report.html", laws=laws, width="single"))
     for path in written:
         print(f"  wrote {path}")
 

@@ -150,7 +150,6 @@ def test_subprocess_no_traceback(tmp_path, content, expected):
         [sys.executable, "-m", "allobranch.cli", "check", str(src), "--parent", "p", "--daughters", "d1,d2"],
         capture_output=True,
         text=True,
-        timeout=120,
     )
     assert proc.returncode == 2
     assert expected in proc.stderr
@@ -162,7 +161,6 @@ def test_subprocess_success(table):
         [sys.executable, "-m", "allobranch.cli", "check", str(table), *FLAGS],
         capture_output=True,
         text=True,
-        timeout=120,
     )
     assert proc.returncode == 0, proc.stderr
     assert "junctions used: 6" in proc.stdout

@@ -12,7 +12,7 @@ import pytest
 
 import allobranch as ab
 from allobranch.cli import main
-from allobranch.cli.compare import COMPARE_FILES
+from allobranch.conventions import COMPARISON_FILES
 
 FLAGS = [
     "--parent",
@@ -61,9 +61,16 @@ def test_compare_reuses_saved_fit_and_writes_files(saved, tmp_path, capsys):
         *SHORT,
     ]
     assert main(args) == 0
-    printed = capsys.readouterr().out
+    captured = capsys.readouterr()
+    printed = captured.out
     assert "Verdicts" in printed and "re-used" in printed and " s;" in printed
-    assert sorted(p.name for p in out.iterdir()) == sorted(COMPARE_FILES)
+    assert sorted(p.name for p in out.iterdir()) == sorted(COMPARISON_FILES)
+    # the warnings are saved as a table (kind, message), the same ones the command printed
+    warnings = pd.read_csv(out / "laws_warnings.csv")
+    assert list(warnings.columns) == ["kind", "message"]
+    assert all(f"WARNING: {m}" in captured.err for m in warnings["message"])
+    # one taxon: its comparison is the population one, which is said and filed under its own kind
+    assert "one taxon only" in set(warnings["kind"])
     laws = pd.read_csv(out / "laws.csv")
     assert set(laws["law"]) == {"free", "murray", "turbulent"}
     assert laws.loc[laws["law"] == "turbulent", "value"].iloc[0] == pytest.approx(7 / 3)  # exact fraction
@@ -78,9 +85,9 @@ def test_compare_reuses_saved_fit_and_writes_files(saved, tmp_path, capsys):
     import arviz as az
 
     ref = az.loo(free.idata, var_name="loglik").elpd_loo
-    assert laws.loc[(laws["scope"] == "overall") & (laws["law"] == "free"), "elpd"].item() == pytest.approx(
-        ref
-    )
+    assert laws.loc[
+        (laws["scope"] == "population") & (laws["law"] == "free"), "elpd"
+    ].item() == pytest.approx(ref)
     report = (out / "laws.md").read_text(encoding="utf-8")
     assert "## Verdicts" in report and "## Caveats" in report
     # An existing result is never overwritten without --force, and nothing is touched.
@@ -88,7 +95,7 @@ def test_compare_reuses_saved_fit_and_writes_files(saved, tmp_path, capsys):
     assert main(args) == 2
     assert "--force" in capsys.readouterr().err
     assert (out / "laws.csv").read_bytes() == before
-    assert not list(out.glob(".allobranch-tmp-*"))
+    assert not [p.name for p in out.iterdir() if p.name.startswith(".")]  # no temporary file left
 
 
 def test_compare_refuses_a_fit_of_other_data(saved, tmp_path, capsys):
@@ -168,15 +175,15 @@ def test_sampler_seed_reaches_the_comparison(saved):
     # Same seed, same numbers (Bayes factors and ROPE come from the re-used free fit; LOO from refits).
     _, _, free = saved
     runs = [
-        ab.compare_laws(free, ["murray"], scopes=("overall",), draws=100, tune=100, chains=1, seed=4)
+        ab.compare_laws(free, ["murray"], scopes=("population",), draws=100, tune=100, chains=1, seed=4)
         for _ in range(2)
     ]
     cols = ["elpd", "elpd_diff", "log10_bf", "p_rope"]
-    first = runs[0].overall[cols].to_numpy(float)
+    first = runs[0].population[cols].to_numpy(float)
     # assert_allclose treats NaN == NaN as equal: make sure there are numbers to compare
     assert np.isfinite(first[:, 0]).all() and np.isfinite(first[1:]).all()
-    np.testing.assert_allclose(first, runs[1].overall[cols].to_numpy(float))
+    np.testing.assert_allclose(first, runs[1].population[cols].to_numpy(float))
     # ... and the seed matters: another seed refits the law with other draws, so its ELPD moves
-    other = ab.compare_laws(free, ["murray"], scopes=("overall",), draws=100, tune=100, chains=1, seed=5)
-    murray = lambda r: r.overall.set_index("law").loc["murray", "elpd"]  # noqa: E731
+    other = ab.compare_laws(free, ["murray"], scopes=("population",), draws=100, tune=100, chains=1, seed=5)
+    murray = lambda r: r.population.set_index("law").loc["murray", "elpd"]  # noqa: E731
     assert murray(other) != murray(runs[0])

@@ -79,7 +79,7 @@ def fit_dir(tmp_path_factory) -> Path:
                 "--fit",
                 str(out / "fit.nc"),
                 "--scope",
-                "overall",
+                "population",
                 "--seed",
                 "3",
                 *SHORT,
@@ -134,7 +134,7 @@ def test_report_command_embeds_everything(fit_dir):
     assert " ".join(CAUTION.split()) in text
     # the verdict the compare step wrote is the one the report shows, with its reason
     verdicts = pd.read_csv(fit_dir / "laws_verdicts.csv")
-    assert list(verdicts["scope"]) == ["overall"]
+    assert list(verdicts["scope"]) == ["population"]
     # Truth: taxon exponents 2.51 and 2.91 (simulate_junctions, seed 11) -- no single law fits both, and
     # with 60 junctions the population exponent is far too uncertain to reject a law: 'undecided'.
     assert verdicts["verdict"].item() == "undecided"
@@ -158,6 +158,7 @@ def test_demo_command_runs_the_whole_path(tmp_path):
         "laws.csv",
         "laws_by_taxon.csv",
         "laws_verdicts.csv",
+        "laws_warnings.csv",
         "laws.md",
         "report.html",
     ):
@@ -185,9 +186,9 @@ def test_demo_command_runs_the_whole_path(tmp_path):
     # ... and the evidence is strong enough that at least two species get a definite verdict (checked: the
     # two cube-law species are declared Murray and the 2.5 species 'none' at seed 0 with 80 draws).
     assert (by_taxon != "undecided").sum() >= 2, by_taxon.to_dict()
-    # the overall scope mixes species with exponents 2 to 3: no single classic law holds for all of them
-    overall = pd.read_csv(out / "laws_verdicts.csv").set_index("scope").loc["overall", "verdict"]
-    assert overall in {"none", "undecided"}
+    # the population scope mixes species with exponents 2 to 3: no single classic law holds for all of them
+    population = pd.read_csv(out / "laws_verdicts.csv").set_index("scope").loc["population", "verdict"]
+    assert population in {"none", "undecided"}
     # taxon estimates near the simulator's truth (posterior SDs are about 0.05-0.1 here; the caldera
     # animals' own true exponents average 1.92, below the species value 2.0)
     est = exps[exps["level"] == "taxon"].set_index("group")["mean"]

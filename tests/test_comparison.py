@@ -60,11 +60,11 @@ def test_resolve_laws_defaults_sorting_and_duplicates():
 
 def test_hypothesis_spec_scopes_keep_the_rest_of_the_model():
     free = ModelSpec(deviation="student_t", priors=Priors(mu_sd=0.7))
-    overall = hypothesis_spec(free, 3.0)
+    population = hypothesis_spec(free, 3.0)
     taxon = hypothesis_spec(free, 2.0, "T2")
-    assert overall.fixed_exponent == 3.0 and not overall.fixed_taxa
+    assert population.fixed_exponent == 3.0 and not population.fixed_taxa
     assert taxon.fixed_exponent is None and taxon.fixed_taxa == {"T2": 2.0}
-    for spec in (overall, taxon):
+    for spec in (population, taxon):
         assert spec.deviation == "student_t" and spec.priors == free.priors
 
 
@@ -156,7 +156,7 @@ def test_bayes_factor_table_overall_with_prior_sensitivity_matches_exact():
     table, warnings = bfm.bayes_factor_table(idata, Priors(mu_mean=m, mu_sd=s), laws)
     assert warnings == []
     for row in table.itertuples():
-        assert row.scope == "overall"
+        assert row.scope == "population"
         for col, factor in (("log10_bf", 1.0), ("log10_bf_narrow", 0.5), ("log10_bf_wide", 2.0)):
             assert getattr(row, col) == pytest.approx(
                 _exact_log10_bf(y, row.value, m, s * factor, sigma), abs=0.03
@@ -199,7 +199,7 @@ def test_bayes_factor_is_one_when_the_data_say_nothing():
         dims={"a_taxon": ["taxon"]},
     )
     table, _ = bfm.bayes_factor_table(idata, priors, CLASSIC_LAWS, ["A", "B"], seed=7)
-    assert set(table["scope"]) == {"overall", "A", "B"}
+    assert set(table["scope"]) == {"population", "A", "B"}
     assert (table["bf_method"] == "kde").all()
     for col in ("log10_bf", "log10_bf_narrow", "log10_bf_wide"):
         assert np.abs(table[col]).max() < 0.06, col
@@ -235,7 +235,7 @@ def test_compare_loo_equals_arviz_on_the_same_log_likelihood():
         assert row["p_loo"] == pytest.approx(ref.p_loo)
         for ours, theirs in (("elpd_diff", "elpd_diff"), ("dse", "dse"), ("weight", "weight")):
             assert row[ours] == pytest.approx(reference.at[label, theirs], abs=1e-9)
-    assert got.table["n_high_k"].sum() == 0 and loom.high_k_warning("overall", got) is None
+    assert got.table["n_high_k"].sum() == 0 and loom.high_k_warning("population", got) is None
 
 
 def test_high_pareto_k_junctions_are_counted_and_named():
@@ -248,7 +248,7 @@ def test_high_pareto_k_junctions_are_counted_and_named():
 
 def test_high_k_warning_names_at_most_ten_junctions():
     result = loom.LooComparison(table=pd.DataFrame(), high_k={"free": [f"j{i:02d}" for i in range(14)]})
-    message = loom.high_k_warning("overall", result)
+    message = loom.high_k_warning("population", result)
     assert "j09" in message and "j10" not in message and "4 more" in message
 
 
@@ -323,12 +323,12 @@ def test_verdict_refuses_two_qualifying_laws_and_empty_scopes():
 def test_verdict_table_one_row_per_scope_in_order():
     ev = pd.concat(
         [
-            _evidence(("murray", 0.95, 10.0, 0, 0)).assign(scope="overall"),
+            _evidence(("murray", 0.95, 10.0, 0, 0)).assign(scope="population"),
             _evidence(("murray", 0.0, 1e-4, 9, 1)).assign(scope="T1"),
         ]
     )
     out = vm.verdict_table(ev)
-    assert list(out["scope"]) == ["overall", "T1"] and list(out["verdict"]) == ["murray", "none"]
+    assert list(out["scope"]) == ["population", "T1"] and list(out["verdict"]) == ["murray", "none"]
     # each reason quotes the evidence behind its verdict
     assert (
         out["reason"].iloc[0] == "murray: P(ROPE) 0.95, BF 10 (lowest over priors), not clearly worse by LOO"
@@ -355,13 +355,13 @@ def small_noisy():
 def test_twelve_noisy_junctions_are_undecided(small_noisy):
     _, result = small_noisy
     assert set(result.verdicts["verdict"]) == {"undecided"}
-    assert list(result.verdicts["scope"]) == ["overall", "T1"]
+    assert list(result.verdicts["scope"]) == ["population", "T1"]
     assert list(result.by_taxon["verdict"]) == ["undecided"]
     # undecided for the right reason: the data are weak (the posterior SD of the exponent stays above 0.25,
     # half the 0.5 gap between neighbouring classic laws), so no law qualifies and none is rejected --
     # not, say, two laws qualifying at once or the evidence being missing.
     assert result.free_fit.exponents().set_index("level").loc["population", "sd"] > 0.25
-    laws = result.overall[result.overall["law"] != "free"]
+    laws = result.population[result.population["law"] != "free"]
     assert np.isfinite(laws[["p_rope", "log10_bf", "elpd_diff"]].to_numpy(float)).all()
     assert all(vm.law_failures(row) for _, row in laws.iterrows())
     assert not all(vm.law_rejected(row) for _, row in laws.iterrows())
@@ -369,18 +369,18 @@ def test_twelve_noisy_junctions_are_undecided(small_noisy):
 
 def test_compare_laws_tables_are_consistent(small_noisy):
     _, result = small_noisy
-    overall = result.overall
-    assert list(overall.columns) == list(ab.comparison.compare.EVIDENCE_COLUMNS)
-    assert list(overall["law"]) == ["free", "rall", "da_vinci", "murray"]
-    assert overall["weight"].sum() == pytest.approx(1.0, abs=1e-6)
-    assert overall["elpd_diff"].min() == pytest.approx(0.0)
-    assert overall["p_rope"].dropna().sum() <= 1.0 + 1e-12  # non-overlapping regions share one posterior
+    population = result.population
+    assert list(population.columns) == list(ab.comparison.compare.EVIDENCE_COLUMNS)
+    assert list(population["law"]) == ["free", "rall", "da_vinci", "murray"]
+    assert population["weight"].sum() == pytest.approx(1.0, abs=1e-6)
+    assert population["elpd_diff"].min() == pytest.approx(0.0)
+    assert population["p_rope"].dropna().sum() <= 1.0 + 1e-12  # non-overlapping regions share one posterior
     # The free model's ELPD is ArviZ's own az.loo of the stored junction log-likelihood.
     ref = az.loo(result.free_fit.idata, var_name="loglik")
-    assert overall.loc[overall["law"] == "free", "elpd"].item() == pytest.approx(ref.elpd_loo)
+    assert population.loc[population["law"] == "free", "elpd"].item() == pytest.approx(ref.elpd_loo)
     # P(ROPE) is the share of the free fit's mu draws near each law.
     mu = result.free_fit.idata.posterior["mu"].values.ravel()
-    murray = overall[overall["law"] == "murray"].iloc[0]
+    murray = population[population["law"] == "murray"].iloc[0]
     assert murray["p_rope"] == pytest.approx(np.mean(np.abs(mu - 3.0) <= 0.25))
     long = result.laws_table()
     assert list(long.columns) == [
@@ -394,7 +394,7 @@ def test_compare_laws_tables_are_consistent(small_noisy):
         "log10_bf",
         "p_rope",
     ]
-    assert set(long["scope"]) == {"overall", "T1"}
+    assert set(long["scope"]) == {"population", "T1"}
     by = result.by_taxon
     assert {"p_rope_murray", "log10_bf_rall", "elpd_diff_da_vinci", "verdict"} <= set(by.columns)
     assert by["p_rope_murray"].item() == pytest.approx(murray["p_rope"])  # one taxon: a_taxon = mu

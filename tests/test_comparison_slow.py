@@ -30,9 +30,9 @@ def test_three_taxa_get_their_own_laws(validate):
     out = validate.run_scenario("three_laws", seed=0)
     assert out.passed, out.verdicts
     # spelled out here too (the scenario's own check lives in the benchmark script): each taxon its law;
-    # overall, taxa at 3/2, 2 and 3 share no law and the population exponent stays too uncertain to reject one
+    # population, taxa at 3/2, 2 and 3 share no law and the population exponent stays too uncertain to reject one
     assert out.verdicts == {
-        "overall": "undecided",
+        "population": "undecided",
         "T_rall": "rall",
         "T_da_vinci": "da_vinci",
         "T_murray": "murray",
@@ -43,7 +43,7 @@ def test_three_taxa_get_their_own_laws(validate):
 def test_truth_between_laws_is_never_called_a_classic_law(validate):
     out = validate.run_scenario("between_laws", seed=0)
     assert out.passed, out.verdicts
-    assert set(out.verdicts) == {"overall", "T1"}
+    assert set(out.verdicts) == {"population", "T1"}
     assert set(out.verdicts.values()) <= {"none", "undecided"}  # 90 junctions: 'none' needs more (see
     # tests/test_real_verdicts.py, where 200 junctions give 'none')
 
@@ -53,4 +53,4 @@ def test_truth_between_laws_is_never_called_a_classic_law(validate):
 def test_twelve_noisy_junctions_are_undecided(validate, seed):
     out = validate.run_scenario("few_noisy", seed=seed)
     assert out.passed, out.verdicts
-    assert out.verdicts == {"overall": "undecided", "T1": "undecided"}
+    assert out.verdicts == {"population": "undecided", "T1": "undecided"}

@@ -13,7 +13,7 @@ from scipy import stats
 import allobranch as ab
 from allobranch.demo import DEMO_EXPONENTS, DEMO_FILES, DEMO_SPECIMENS, make_demo, write_demo
 from allobranch.errors import OutputExistsError
-from allobranch.reporting.outputs import prepare_output_dir, write_files
+from allobranch.io import atomic_write, prepare_output_dir, write_files
 from allobranch.reporting.tables import export_table, to_latex, to_markdown
 
 REPO = Path(__file__).resolve().parent.parent
@@ -92,6 +92,24 @@ def test_write_files_is_all_or_nothing(tmp_path):
     assert written == [tmp_path / "one.txt", tmp_path / "two.txt"]
     assert sorted(p.name for p in tmp_path.iterdir()) == ["one.txt", "two.txt"]
     assert (tmp_path / "two.txt").read_text() == "2"
+
+
+def test_atomic_write_keeps_the_old_file_when_writing_fails(tmp_path):
+    dest = tmp_path / "fit.nc"
+    dest.write_text("the user's earlier result")
+
+    def fail(path):
+        path.write_text("half of a new fi")
+        raise RuntimeError("disk full")
+
+    with pytest.raises(RuntimeError):
+        atomic_write(dest, fail)
+    assert dest.read_text() == "the user's earlier result"  # untouched, not half-replaced
+    assert [p.name for p in tmp_path.iterdir()] == ["fit.nc"]  # and no temporary file left behind
+    # the writer sees a path with the destination's suffix (writers may choose the format from it)
+    seen = []
+    atomic_write(dest, lambda p: (seen.append(p.suffix), p.write_text("new")))
+    assert seen == [".nc"] and dest.read_text() == "new"
 
 
 def test_table_exports(tmp_path):

@@ -151,9 +151,9 @@ def test_naive_summary_matches_numpy():
 
 def test_naive_summary_by_specimen_and_bad_grouping():
     geo = junction_geometry(_table([1.0, 1.0], [[0.8, 0.7], [0.8, 0.6]], ["A", "B"]))
-    by_spec = naive_summary(geo, by=("taxon", "specimen"))
-    assert list(by_spec.columns[:2]) == ["taxon", "specimen"] and len(by_spec) == 2
-    rows = by_spec.set_index("taxon")
+    by_specimen = naive_summary(geo, by=("taxon", "specimen"))
+    assert list(by_specimen.columns[:2]) == ["taxon", "specimen"] and len(by_specimen) == 2
+    rows = by_specimen.set_index("taxon")
     # exact algebra: 0.8^2 + 0.6^2 = 1, so the second junction's exponent is 2; the first is the root of
     # 0.8^a + 0.7^a = 1 (reference: scipy.optimize.brentq)
     assert rows.loc["B", "median"] == pytest.approx(2.0, rel=1e-10)

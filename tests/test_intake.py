@@ -15,7 +15,7 @@ from allobranch.errors import InputError, OutputExistsError, RecipeError
 from allobranch.intake import load_recipe, mapping_from_options, write_recipe
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.units import ALLOWED_UNITS, canonical_unit, to_internal_radius
-from allobranch.intake.validate import parse_numbers
+from allobranch.intake.validate import DEFAULT_TAXON, parse_numbers
 
 DATA = Path(__file__).parent / "data"
 BASIC = dict(
@@ -385,7 +385,8 @@ def test_fewer_daughters_and_compaction():
 
 def test_defaults_without_group_columns():
     table = read_junctions(_frame(), parent="p", daughters=["d1", "d2", "d3"])
-    assert set(table.data["taxon"]) == {"all"} and set(table.data["specimen"]) == {"all"}
+    # one taxon of the documented default name, one specimen named after it
+    assert set(table.data["taxon"]) == {DEFAULT_TAXON} and set(table.data["specimen"]) == {DEFAULT_TAXON}
     assert list(table.data["junction"]) == ["2", "3", "4"]
     by_taxon = read_junctions(_frame(), taxon="taxon", parent="p", daughters=["d1", "d2", "d3"])
     assert list(by_taxon.data["specimen"]) == ["A", "A", "B"]

@@ -26,7 +26,7 @@ STEP = 1e-7
 
 def _junctions(n: int = 12, seed: int = 0) -> dict[str, np.ndarray]:
     """Random log-scale junction data: a mix of bifurcations and trifurcations, some readings with an
-    absolute standard error, each junction in its own specimen (so d ll_j / d a_spec is diagonal)."""
+    absolute standard error, each junction in its own specimen (so d ll_j / d a_specimen is diagonal)."""
     rng = np.random.default_rng(seed)
     K = 3
     M = np.ones((n, K), dtype=bool)
@@ -38,13 +38,21 @@ def _junctions(n: int = 12, seed: int = 0) -> dict[str, np.ndarray]:
     y0 = law + 0.08 * rng.standard_normal(n)
     V = np.where(M & (rng.uniform(size=(n, K)) < 0.5), rng.uniform(0.0, 0.01, size=(n, K)), 0.0)
     V0 = np.where(rng.uniform(size=n) < 0.5, rng.uniform(0.0, 0.01, size=n), 0.0)
-    a_spec = a + 0.2 * rng.standard_normal(n)
-    return {"y0": y0, "Y": Y, "M": M, "V0": V0, "V": V, "spec_idx": np.arange(n), "a_spec": a_spec}
+    a_specimen = a + 0.2 * rng.standard_normal(n)
+    return {
+        "y0": y0,
+        "Y": Y,
+        "M": M,
+        "V0": V0,
+        "V": V,
+        "specimen_idx": np.arange(n),
+        "a_specimen": a_specimen,
+    }
 
 
 def _full(
     d: dict,
-    a_spec=None,
+    a_specimen=None,
     sdev=POINT["sigma_dev"],
     rel_error=POINT["rel_error"],
     sasym=POINT["sigma_asym"],
@@ -54,14 +62,14 @@ def _full(
 ):
     """``kernel.junction_terms`` on the test data."""
     skip = np.zeros(5, dtype=bool) if skip is None else skip
-    a_spec = d["a_spec"] if a_spec is None else np.asarray(a_spec, dtype=float)
+    a_specimen = d["a_specimen"] if a_specimen is None else np.asarray(a_specimen, dtype=float)
     return kernel.junction_terms(
         d["y0"],
         d["Y"],
         d["M"],
         d["V0"],
         d["V"],
-        a_spec[d["spec_idx"]],
+        a_specimen[d["specimen_idx"]],
         float(sdev),
         float(rel_error),
         float(sasym),
@@ -73,18 +81,29 @@ def _full(
 
 def _pre(d: dict, rel_error=POINT["rel_error"], sasym=POINT["sigma_asym"]):
     """``kernel.precompute`` plus the parent's measurement variance, as the model builder combines them."""
-    tau_j = np.full(d["y0"].shape[0], sasym**2)
-    mu, g, c, ybar, lld = kernel.precompute(d["Y"], d["M"], d["V"], float(rel_error), tau_j)
+    asym_var_j = np.full(d["y0"].shape[0], sasym**2)
+    mu, g, c, ybar, lld = kernel.precompute(d["Y"], d["M"], d["V"], float(rel_error), asym_var_j)
     s0sq = rel_error**2 + d["V0"] + kernel.S2_FLOOR
     return mu, g, c, ybar, lld, s0sq
 
 
-def _fast(d: dict, a_spec=None, sdev=POINT["sigma_dev"], nu=POINT["nu"], student=False, pre=None):
+def _fast(d: dict, a_specimen=None, sdev=POINT["sigma_dev"], nu=POINT["nu"], student=False, pre=None):
     """``kernel.fast_terms`` on the test data."""
     mu, g, c, ybar, lld, s0sq = _pre(d) if pre is None else pre
-    a_spec = d["a_spec"] if a_spec is None else np.asarray(a_spec, dtype=float)
+    a_specimen = d["a_specimen"] if a_specimen is None else np.asarray(a_specimen, dtype=float)
     return kernel.fast_terms(
-        d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, a_spec[d["spec_idx"]], float(sdev), float(nu), student
+        d["y0"],
+        mu,
+        g,
+        c,
+        ybar,
+        d["M"],
+        s0sq,
+        lld,
+        a_specimen[d["specimen_idx"]],
+        float(sdev),
+        float(nu),
+        student,
     )
 
 
@@ -102,8 +121,8 @@ def test_junction_terms_derivatives_match_finite_differences(direction: str, stu
     col = kernel.DIRECTIONS.index(direction)
     _, dll, _, _ = _full(d, student=student)
     if direction == "a":
-        # Each junction has its own exponent, so the Jacobian of ll wrt a_spec is diagonal.
-        jac = approx_fprime(d["a_spec"], lambda a: _full(d, a_spec=a, student=student)[0], STEP)
+        # Each junction has its own exponent, so the Jacobian of ll wrt a_specimen is diagonal.
+        jac = approx_fprime(d["a_specimen"], lambda a: _full(d, a_specimen=a, student=student)[0], STEP)
         np.testing.assert_allclose(jac - np.diag(np.diag(jac)), 0.0, atol=1e-12)
         numeric = np.diag(jac)
     else:
@@ -141,7 +160,9 @@ def test_fast_terms_derivatives_match_finite_differences(direction: str, student
     col = kernel.DIRECTIONS.index(direction)
     _, dll, _, _ = _fast(d, student=student, pre=pre)
     if direction == "a":
-        jac = approx_fprime(d["a_spec"], lambda a: _fast(d, a_spec=a, student=student, pre=pre)[0], STEP)
+        jac = approx_fprime(
+            d["a_specimen"], lambda a: _fast(d, a_specimen=a, student=student, pre=pre)[0], STEP
+        )
         np.testing.assert_allclose(jac - np.diag(np.diag(jac)), 0.0, atol=1e-12)
         numeric = np.diag(jac)
     else:
@@ -160,10 +181,10 @@ def test_aggregate_gradient_sums_by_specimen() -> None:
     # Exact algebra: the chain rule sums upstream-weighted per-junction derivatives within each specimen.
     rng = np.random.default_rng(4)
     dll = rng.standard_normal((9, 5))
-    spec_idx = np.array([0, 1, 2, 0, 1, 2, 2, 2, 0])
+    specimen_idx = np.array([0, 1, 2, 0, 1, 2, 2, 2, 0])
     upstream = rng.standard_normal(9)
-    da, ds = kernel.aggregate_gradient(upstream, dll, spec_idx, 4)
-    expected = np.array([np.sum(upstream[spec_idx == s] * dll[spec_idx == s, 0]) for s in range(4)])
+    da, ds = kernel.aggregate_gradient(upstream, dll, specimen_idx, 4)
+    expected = np.array([np.sum(upstream[specimen_idx == s] * dll[specimen_idx == s, 0]) for s in range(4)])
     np.testing.assert_allclose(da, expected, rtol=1e-12)
     np.testing.assert_allclose(ds, upstream @ dll[:, 1:], rtol=1e-12)
 
@@ -183,10 +204,11 @@ def test_fast_terms_equal_junction_terms_at_fixed_asymmetry(student: bool) -> No
 
 
 # -- posterior of the true daughters ----------------------------------------------------------------------
-def _explicit_posterior(y: np.ndarray, s2: np.ndarray, tau: float) -> tuple[np.ndarray, np.ndarray]:
-    """Posterior mean and covariance by inverting the precision diag(1/s^2) + (I - 11'/k)/tau."""
+def _explicit_posterior(y: np.ndarray, s2: np.ndarray, asym_var: float) -> tuple[np.ndarray, np.ndarray]:
+    """Posterior mean and covariance by inverting the precision diag(1/s^2) + (I - 11'/k)/asym_var,
+    with asym_var = sigma_asym^2 the variance (not an SD) of a true daughter about its junction mean."""
     k = y.shape[0]
-    precision = np.diag(1.0 / s2) + (np.eye(k) - np.ones((k, k)) / k) / tau
+    precision = np.diag(1.0 / s2) + (np.eye(k) - np.ones((k, k)) / k) / asym_var
     cov = np.linalg.inv(precision)
     return cov @ (y / s2), cov
 
@@ -210,10 +232,10 @@ def test_precompute_matches_explicit_matrix_inverse() -> None:
 
 
 # -- daughters' contrast density ---------------------------------------------------------------------------
-def _contrast_logpdf(y: np.ndarray, s2: np.ndarray, tau: float, basis: np.ndarray) -> float:
+def _contrast_logpdf(y: np.ndarray, s2: np.ndarray, asym_var: float, basis: np.ndarray) -> float:
     """Log density of the contrasts ``basis @ y`` (rows orthonormal and orthogonal to 1): the level is flat,
-    the true contrasts are Normal(0, tau I), the measurement errors add ``basis diag(s2) basis'``."""
-    cov = tau * np.eye(basis.shape[0]) + basis @ np.diag(s2) @ basis.T
+    the true contrasts are Normal(0, asym_var I), the measurement errors add ``basis diag(s2) basis'``."""
+    cov = asym_var * np.eye(basis.shape[0]) + basis @ np.diag(s2) @ basis.T
     return float(multivariate_normal(mean=np.zeros(basis.shape[0]), cov=cov).logpdf(basis @ y))
 
 
@@ -284,13 +306,13 @@ def test_without_measurement_error_the_predicted_parent_is_the_law(a: float) -> 
     # variance is sigma_dev^2 plus the floor variances.
     d = _junctions(n=15, seed=10)
     zero = {**d, "V": np.zeros_like(d["V"]), "V0": np.zeros_like(d["V0"])}
-    a_spec = np.full(d["y0"].shape[0], a)
+    a_specimen = np.full(d["y0"].shape[0], a)
     sdev = 0.07
     for _, _, mean, var in (
-        _full(zero, a_spec=a_spec, sdev=sdev, rel_error=0.0),
-        _fast(zero, a_spec=a_spec, sdev=sdev, pre=_pre(zero, rel_error=0.0)),
+        _full(zero, a_specimen=a_specimen, sdev=sdev, rel_error=0.0),
+        _fast(zero, a_specimen=a_specimen, sdev=sdev, pre=_pre(zero, rel_error=0.0)),
     ):
-        law = np.array([logsumexp(a * zero["Y"][j, zero["M"][j]]) / a for j in range(len(a_spec))])
+        law = np.array([logsumexp(a * zero["Y"][j, zero["M"][j]]) / a for j in range(len(a_specimen))])
         # The floor (a 0.01 % error) moves the mean by O(1e-8 * a) only.
         np.testing.assert_allclose(mean, law, rtol=0, atol=1e-6)
         np.testing.assert_allclose(var, sdev**2, rtol=1e-5)

@@ -165,12 +165,12 @@ def test_fixed_taxa_fix_only_the_named_taxa(data) -> None:
     tau = np.exp(point["tau_taxon_log__"])
     np.testing.assert_allclose(a_taxon[[0, 2]], point["mu"] + tau * np.array([1.0, 0.5]))  # exact algebra
     # the fixed taxon's specimens are pinned to the law as well; the others vary
-    (a_spec_values,) = model.replace_rvs_by_values([model["a_specimen"]])
+    (a_specimen_values,) = model.replace_rvs_by_values([model["a_specimen"]])
     point["r_specimen"] = np.linspace(-1.0, 1.0, len(point["r_specimen"]))
-    a_spec = model.compile_fn(a_spec_values, inputs=model.value_vars, on_unused_input="ignore")(point)
+    a_specimen = model.compile_fn(a_specimen_values, inputs=model.value_vars, on_unused_input="ignore")(point)
     in_t2 = data.specimen_taxon_idx == 1
-    np.testing.assert_array_equal(a_spec[in_t2], 2.0)
-    assert np.all(a_spec[~in_t2] != 2.0)
+    np.testing.assert_array_equal(a_specimen[in_t2], 2.0)
+    assert np.all(a_specimen[~in_t2] != 2.0)
 
 
 def test_fixed_taxa_must_name_known_taxa(data) -> None:
@@ -364,7 +364,7 @@ def test_latent_logp_matches_scipy_densities(data) -> None:
     rel_error = float(data.rel_error)
 
     def reference(p: dict) -> float:
-        a_spec = np.maximum(_specimen_exponents(data, p), A_FLOOR)
+        a_specimen = np.maximum(_specimen_exponents(data, p), A_FLOOR)
         u = p["u_daughters"]
         U = np.full(data.mask.shape, np.nan)
         U[rows, cols] = u
@@ -373,7 +373,7 @@ def test_latent_logp_matches_scipy_densities(data) -> None:
         total += stats.norm.logpdf(obs, loc=u, scale=np.sqrt(rel_error**2 + kernel.S2_FLOOR)).sum()
         for j in range(data.n_junctions):
             uj = U[j, data.mask[j]]
-            a = a_spec[data.specimen_idx[j]]
+            a = a_specimen[data.specimen_idx[j]]
             contrasts = uj - uj.mean()
             total += -(k[j] - 1) * np.log(p["sigma_asym"]) - np.sum(contrasts**2) / (2 * p["sigma_asym"] ** 2)
             law = logsumexp(a * uj) / a

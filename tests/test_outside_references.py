@@ -178,18 +178,21 @@ def _law_row(p_rope: float = 0.95, bf: float = 10.0, elpd_diff: float = 0.0, dse
 GRID_TRUTH, GRID_ERROR, GRID_JUNCTIONS = 2.7, 0.08, 30
 
 
-def _junction_moments(a: np.ndarray, y: np.ndarray, s2: float, tau: float) -> tuple[np.ndarray, np.ndarray]:
+def _junction_moments(
+    a: np.ndarray, y: np.ndarray, s2: float, asym_var: float
+) -> tuple[np.ndarray, np.ndarray]:
     """Second-order predictive mean and variance of the log parent, for every exponent in ``a``.
 
     Written from the model's definition (allobranch/model/kernel.py module docstring), with numpy:
-    true log daughters ``u`` have a flat common level and Normal(0, tau) deviations from it, readings are
-    ``u`` plus Normal(0, s2); the posterior of ``u`` has precision ``diag(1/s2) + (I - 11'/k)/tau``
+    true log daughters ``u`` have a flat common level and normal deviations from it of variance ``asym_var``
+    (``sigma_asym^2``, a variance, not an SD), readings are ``u`` plus normal error of variance ``s2``; the
+    posterior of ``u`` has precision ``diag(1/s2) + (I - 11'/k)/asym_var``
     (inverted here explicitly) and mean ``Sigma y / s2``. The law ``m(u) = logsumexp(a u) / a`` has gradient
     ``w = softmax(a u)`` and Hessian ``a (diag w - w w')`` (calculus), so
     ``E[m] = m(mu) + tr(H Sigma) / 2`` and ``Var[m] = w' Sigma w``.
     """
     k = y.shape[1]
-    precision = np.eye(k) / s2 + (np.eye(k) - np.ones((k, k)) / k) / tau
+    precision = np.eye(k) / s2 + (np.eye(k) - np.ones((k, k)) / k) / asym_var
     sigma = np.linalg.inv(precision)
     mean_u = y @ (sigma / s2).T  # (junctions, k); sigma is symmetric
     au = a[:, None, None] * mean_u[None]  # (grid, junctions, k)
@@ -200,13 +203,13 @@ def _junction_moments(a: np.ndarray, y: np.ndarray, s2: float, tau: float) -> tu
     return law + half_trace, w_sigma_w
 
 
-def _grid_log_posterior(a, sdev, y0, y, s2, tau):
+def _grid_log_posterior(a, sdev, y0, y, s2, asym_var):
     """Log posterior of (a, sigma_dev) on a grid, up to a constant: priors a ~ Normal(2.5, 1) and
     sigma_dev ~ HalfNormal(0.1) (allobranch/model/build.py, Priors defaults), parent readings
     log y0 ~ Normal(E[m], sigma_dev^2 + s2 + Var[m]) (scipy.stats). The daughters' contrast density does not
     involve a or sigma_dev when the asymmetry scale is fixed, so it drops out. (The package adds a 1e-8
     floor to every measurement variance; against s2 = 0.0064 it is negligible.)"""
-    mean, var_m = _junction_moments(a, y, s2, tau)
+    mean, var_m = _junction_moments(a, y, s2, asym_var)
     scale = np.sqrt(sdev[None, None, :] ** 2 + s2 + var_m[:, :, None])
     loglik = stats.norm.logpdf(y0[None, :, None], mean[:, :, None], scale).sum(axis=1)
     return loglik + stats.norm.logpdf(a, 2.5, 1.0)[:, None] + stats.halfnorm.logpdf(sdev, scale=0.1)[None, :]
@@ -234,16 +237,18 @@ def test_sampled_posterior_equals_grid_integration(seed):
     )
     table = ab.read_junctions(sim.frame, sim.mapping)
     result = ab.fit(table, draws=1000, tune=1000, chains=4, seed=seed, progress=False)
-    tau = result.settings["sigma_asym_empirical"]["T1"] ** 2  # the fitted (fixed) asymmetry scale, squared
+    asym_var = (
+        result.settings["sigma_asym_empirical"]["T1"] ** 2
+    )  # the fitted (fixed) asymmetry scale, squared
     y0 = np.log(sim.frame["parent"].to_numpy())
     y = np.log(sim.frame[["d1", "d2"]].to_numpy())
     s2 = GRID_ERROR**2
     # a coarse grid locates the posterior, a fine one (+/- 8 SD, 601 x 501 points) integrates it
     sdev = np.linspace(0.0, 0.5, 501)  # HalfNormal(0.1) leaves < 1e-6 of its mass beyond 0.5
     coarse = np.linspace(0.5, 6.0, 221)
-    m0, sd0 = _grid_moments(coarse, sdev, _grid_log_posterior(coarse, sdev, y0, y, s2, tau))
+    m0, sd0 = _grid_moments(coarse, sdev, _grid_log_posterior(coarse, sdev, y0, y, s2, asym_var))
     a = np.linspace(m0 - 8 * sd0, m0 + 8 * sd0, 601)
-    grid_mean, grid_sd = _grid_moments(a, sdev, _grid_log_posterior(a, sdev, y0, y, s2, tau))
+    grid_mean, grid_sd = _grid_moments(a, sdev, _grid_log_posterior(a, sdev, y0, y, s2, asym_var))
 
     row = result.exponents().set_index("level").loc["population"]
     draws = result.idata.posterior["mu"].values

@@ -53,7 +53,7 @@ LAWS = {"Rall (a=1.5)": 1.5, "da Vinci (a=2)": 2.0, "Murray (a=3)": 3.0}
 def fake_exponents(seed: int = 0, taxa=("Rattus", "Sus", "Quercus"), n_specimens=(3, 2, 4)) -> pd.DataFrame:
     """Exponents table: one population row, one row per taxon, its specimens after it."""
     rng = np.random.default_rng(seed)
-    rows = [("population", "all taxa", "all")]
+    rows = [("population", "population", "population")]
     for taxon, k in zip(taxa, n_specimens):
         rows.append(("taxon", taxon, taxon))
         rows += [("specimen", f"{taxon[:1]}{j + 1}", taxon) for j in range(k)]
@@ -91,9 +91,9 @@ def fake_geometry(seed: int = 0, n: int = 60, a: float = 2.6, noise: float = 0.0
 
 
 def fake_laws() -> pd.DataFrame:
-    """Laws table for an overall scope and one taxon scope."""
+    """Laws table for an population scope and one taxon scope."""
     rows = []
-    for scope in ("overall", "Rattus"):
+    for scope in ("population", "Rattus"):
         for law, value in [("free", np.nan), *LAWS.items()]:
             rows.append({"scope": scope, "law": law, "value": value})
     df = pd.DataFrame(rows)
@@ -180,16 +180,16 @@ def fake_fit(
     chains, draws = 2, 100
     shape = (chains, draws)
     truth = np.array([sim.truth["a_specimen"][s] for s in data.specimens])
-    a_spec = (np.full(truth.shape, float(exponent)) if exponent is not None else truth) + rng.normal(
+    a_specimen = (np.full(truth.shape, float(exponent)) if exponent is not None else truth) + rng.normal(
         0, 0.03, (*shape, len(truth))
     )
     a_taxon = np.stack(
-        [a_spec[..., data.specimen_taxon_idx == t].mean(-1) for t in range(len(data.taxa))], -1
+        [a_specimen[..., data.specimen_taxon_idx == t].mean(-1) for t in range(len(data.taxa))], -1
     )
     posterior = {
         "mu": a_taxon.mean(-1) + rng.normal(0, 0.02, shape),
         "a_taxon": a_taxon,
-        "a_specimen": a_spec,
+        "a_specimen": a_specimen,
         "tau_taxon": np.abs(rng.normal(0.2, 0.05, shape)),
         "tau_specimen": np.abs(rng.normal(0.1, 0.03, shape)),
         "sigma_dev": np.abs(rng.normal(sim.truth["sigma_dev"], 0.003, shape)),
@@ -426,7 +426,7 @@ def test_save_figure_writes_all_formats_at_300_dpi(tmp_path):
     assert b"FontFile2" in paths[0].read_bytes()  # TrueType font embedded (pdf.fonttype 42)
     svg = paths[1].read_text()
     assert "<text" in svg or "font-family" in svg  # text kept as text (svg.fonttype "none")
-    assert not list(tmp_path.glob(".*tmp"))  # no temporary files left behind
+    assert not [p.name for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temporary files left
 
 
 def test_save_figure_rejects_suffix_and_unknown_format(tmp_path):
@@ -449,7 +449,7 @@ def test_exponents_forest_rows_and_laws():
     bars = [c for c in ax.containers if (c.lines[0].get_gid() or "").startswith("exponent:")]
     labels = [t.get_text() for t in ax.get_yticklabels()]
     assert len(labels) == len(ex) == len(bars)
-    assert labels[0] == "all taxa"
+    assert labels[0] == "population"  # the population row comes first
     assert labels[1] == "Rattus" and labels[2] == "R1"
     assert _law_line_values(ax, "law-line:") == [1.5, 2.0, 3.0]
     legend = _legend_texts(ax)
@@ -568,12 +568,12 @@ def test_law_comparison_two_panels_rows_and_scopes():
         sorted(ln.get_xdata()[0] for ln in bf_points), sorted(laws["log10_bf"].dropna())
     )
     headings = [t.get_text() for t in ax_elpd.texts if (t.get_gid() or "").startswith("scope:")]
-    assert headings == ["overall", "Rattus"]
+    assert headings == ["population", "Rattus"]
     assert sum(t.get_text() == "reference" for t in ax_bf.texts) == 2
     assert "ELPD" in ax_elpd.get_xlabel() and "BF" in ax_bf.get_xlabel()
     assert ax_elpd.get_yticklabels()[0].get_text() == "free"
     weights = {t.get_gid(): t.get_text() for t in ax_elpd.texts if (t.get_gid() or "").startswith("weight:")}
-    assert len(weights) == len(laws) and weights["weight:overall:free"] == "w 0.60"
+    assert len(weights) == len(laws) and weights["weight:population:free"] == "w 0.60"
     p_rope = [t for t in ax_bf.texts if (t.get_gid() or "").startswith("p_rope:")]
     assert len(p_rope) == laws["p_rope"].notna().sum()
 
@@ -596,20 +596,20 @@ def test_law_comparison_rejects_wrong_axes():
 
 def test_law_comparison_clips_far_points_at_stated_limits():
     laws = fake_laws()
-    laws.loc[1, "log10_bf"] = -87.0  # overall, Rall: far below the lower limit
+    laws.loc[1, "log10_bf"] = -87.0  # population, Rall: far below the lower limit
     laws.loc[7, "log10_bf"] = 6.2  # Rattus, Murray: above the upper limit
     laws.loc[5, "elpd_diff"] = 43.0  # Rattus, Rall: a far worse ELPD
     ax_elpd, ax_bf = plot_law_comparison(laws)
     lo, hi = LOG10_BF_LIMITS
     points = {ln.get_gid(): ln for ln in ax_bf.lines if (ln.get_gid() or "").startswith("bf:")}
     # the clipped points sit on the limits, hollow (white face); the others where they are
-    assert points["bf:overall:Rall (a=1.5)"].get_xdata()[0] == lo
+    assert points["bf:population:Rall (a=1.5)"].get_xdata()[0] == lo
     assert points["bf:Rattus:Murray (a=3)"].get_xdata()[0] == hi
-    assert points["bf:overall:Rall (a=1.5)"].get_markerfacecolor() == "white"
-    assert points["bf:overall:Murray (a=3)"].get_xdata()[0] == pytest.approx(0.4)
+    assert points["bf:population:Rall (a=1.5)"].get_markerfacecolor() == "white"
+    assert points["bf:population:Murray (a=3)"].get_xdata()[0] == pytest.approx(0.4)
     notes = {t.get_gid(): t.get_text() for t in ax_bf.texts if (t.get_gid() or "").startswith("bf-clipped:")}
     assert notes == {
-        "bf-clipped:overall:Rall (a=1.5)": "\u2190 -87",
+        "bf-clipped:population:Rall (a=1.5)": "\u2190 -87",
         "bf-clipped:Rattus:Murray (a=3)": "6.2 \u2192",
     }
     # the axis keeps the region around 0 readable: it ends just beyond the limits, not at -87

@@ -47,14 +47,14 @@ def test_a_classic_law_that_holds_is_declared(truth, expected):
     # seed 1: estimates 3.02 +/- 0.08 and 2.01 +/- 0.03).
     result = ab.compare_laws(_one_taxon(truth, 200, 0.05, seed=1), seed=1, **SHORT)
     assert dict(zip(result.verdicts["scope"], result.verdicts["verdict"])) == {
-        "overall": expected,
+        "population": expected,
         "T1": expected,
     }
-    overall = result.overall.set_index("law")
-    assert overall.loc[expected, "p_rope"] >= vm.P_ROPE_DECLARE
+    population = result.population.set_index("law")
+    assert population.loc[expected, "p_rope"] >= vm.P_ROPE_DECLARE
     others = [law for law in ("rall", "da_vinci", "murray") if law != expected]
-    assert (overall.loc[others, "p_rope"] == 0).all()  # the other laws' regions are far away
-    assert (overall.loc[others, "log10_bf"] < -10).all()  # and decisively rejected by the Bayes factor
+    assert (population.loc[others, "p_rope"] == 0).all()  # the other laws' regions are far away
+    assert (population.loc[others, "log10_bf"] < -10).all()  # and decisively rejected by the Bayes factor
     est = result.free_fit.exponents().set_index("level").loc["population"]
     assert abs(est["mean"] - truth) < 3 * est["sd"]
 
@@ -63,7 +63,7 @@ def test_two_taxa_each_get_their_own_law():
     # The taxon scope of a hierarchical fit: a cube-law taxon (200 junctions; a junction says less about a
     # larger exponent) and a square-law taxon (120 junctions), 5 % error. Checked at seed 2: estimates
     # 3.04 +/- 0.07 and 2.01 +/- 0.04. The population exponent lies between them, with a between-taxon SD
-    # estimated from two taxa only: no verdict on the overall scope.
+    # estimated from two taxa only: no verdict on the population scope.
     truth = {"cube": 3.0, "square": 2.0}
     sim = ab.simulate_junctions(
         taxa=list(truth),
@@ -76,8 +76,8 @@ def test_two_taxa_each_get_their_own_law():
     )
     result = ab.compare_laws(ab.read_junctions(sim.frame, sim.mapping), seed=2, **SHORT)
     verdicts = dict(zip(result.verdicts["scope"], result.verdicts["verdict"]))
-    assert verdicts == {"overall": "undecided", "cube": "murray", "square": "da_vinci"}
-    assert result.settings["n_fits"] == 1 + 3 + 2 * 3  # free model, 3 laws overall, 3 laws per taxon
+    assert verdicts == {"population": "undecided", "cube": "murray", "square": "da_vinci"}
+    assert result.settings["n_fits"] == 1 + 3 + 2 * 3  # free model, 3 laws population, 3 laws per taxon
 
 
 def test_a_truth_between_the_laws_is_none_of_them():
@@ -86,7 +86,7 @@ def test_a_truth_between_the_laws_is_none_of_them():
     # reject every classic law: the verdict is 'none', not merely 'undecided'.
     result = ab.compare_laws(_one_taxon(2.5, 200, 0.05, seed=1), seed=1, **SHORT)
     assert set(result.verdicts["verdict"]) == {"none"}
-    laws = result.overall[result.overall["law"] != "free"]
+    laws = result.population[result.population["law"] != "free"]
     assert (laws["p_rope"] <= vm.P_ROPE_REJECT).all()
     assert (laws[["log10_bf", "log10_bf_narrow", "log10_bf_wide"]].to_numpy() <= np.log10(vm.BF_REJECT)).all()
     est = result.free_fit.exponents().set_index("level").loc["population"]
@@ -100,7 +100,7 @@ def test_a_dozen_noisy_junctions_decide_nothing():
     assert set(result.verdicts["verdict"]) == {"undecided"}
     est = result.free_fit.exponents().set_index("level").loc["population"]
     assert est["sd"] > 0.3
-    laws = result.overall[result.overall["law"] != "free"]
+    laws = result.population[result.population["law"] != "free"]
     assert (laws["p_rope"] < vm.P_ROPE_DECLARE).all()
     assert not all(vm.law_rejected(row) for _, row in laws.iterrows())
 

@@ -15,22 +15,29 @@ import urllib.parse
 from html.parser import HTMLParser
 from pathlib import Path
 
+import arviz as az
 import numpy as np
 import pandas as pd
 import pytest
 from matplotlib.image import imread
 from test_plots import LAWS, fake_exponents, fake_fit, fake_laws
 
+from allobranch.comparison.compare import LawComparison
+from allobranch.comparison.laws import CLASSIC_LAWS
+from allobranch.conventions import COMPARISON_FILES, LAWS_WARNINGS_FILE, POPULATION
 from allobranch.reporting.attempts import attempts_sentence, attempts_table
 from allobranch.reporting.html import CAUTION, write_html_report
 from allobranch.reporting.plots import plot_exponents, plot_law_comparison
 from allobranch.reporting.report import answer_table, build_report
-from allobranch.reporting.saved_comparison import WARNINGS_FILE, SavedComparison
+from allobranch.reporting.saved_comparison import SavedComparison, write_comparison
 from allobranch.reporting.style import figure, save_figure
 from allobranch.reporting.tables import fit_summary_markdown
 from allobranch.reporting.warning_groups import group_warnings, merge_fit_and_comparison
 
 HOSTILE = '<script>alert("x")</script> & "quotes"'
+#: How long the browser check waits for Chromium (start, socket, page events): generous, so that a loaded
+#: 2-core machine never fails the check by being slow; only a hung browser reaches it.
+BROWSER_PATIENCE_S = 1800.0
 
 ATTEMPTS = [
     {
@@ -87,8 +94,8 @@ def _small_figure():
 
 WARNINGS = [
     "R-hat above 1.01 for 2 parameter(s) (worst 1.03: mu, tau_taxon): chains disagree.",
-    "fit of murray (overall): R-hat above 1.01 for 1 parameter(s) -> its LOO terms are less trustworthy",
-    "fit of rall (overall): effective sample size below 400 -> its LOO terms are less trustworthy",
+    "fit of murray (population): R-hat above 1.01 for 1 parameter(s) -> its LOO terms are less trustworthy",
+    "fit of rall (population): effective sample size below 400 -> its LOO terms are less trustworthy",
     "fit of rall (taxon T1): effective sample size below 400 -> its LOO terms are less trustworthy",
     "3 divergent transition(s): the posterior may be biased.",
     f"user note {HOSTILE}",
@@ -115,7 +122,7 @@ def report(tmp_path_factory):
         }
     )
     verdicts = pd.DataFrame(
-        {"scope": ["overall"], "verdict": ["undecided"], "reason": ["closest law murray"]}
+        {"scope": ["population"], "verdict": ["undecided"], "reason": ["closest law murray"]}
     )
     path = write_html_report(
         tmp_path / "report.html",
@@ -192,7 +199,7 @@ def test_answer_table_reads_interval_and_verdict_from_results():
     ex.attrs["hdi_prob"] = 0.95
     verdicts = pd.DataFrame(
         {
-            "scope": ["overall", "Rattus"],
+            "scope": ["population", "Rattus"],
             "verdict": ["undecided", "Murray (a=3)"],
             "reason": ["closest law ...", "all conditions hold"],
         }
@@ -228,12 +235,12 @@ def test_free_fit_copies_are_dropped_once():
     comparison = [
         "fit of the free model: R-hat above 1.01 for mu",
         "fit of the free model: something else",
-        "LOO UNRELIABLE in scope overall: ...",
+        "LOO UNRELIABLE in scope population: ...",
     ]
     assert merge_fit_and_comparison(fit, comparison) == [
         "R-hat above 1.01 for mu",
         "fit of the free model: something else",
-        "LOO UNRELIABLE in scope overall: ...",
+        "LOO UNRELIABLE in scope population: ...",
     ]
 
 
@@ -313,8 +320,9 @@ def test_empty_report_and_bad_figures(tmp_path):
 # a report built from a (fake) fit and a law comparison read back from its CSV files
 
 
-def _write_comparison(folder: Path, *, warnings_file: bool) -> None:
-    evidence = fake_laws()
+def _write_comparison(folder: Path, *, warnings_file: bool, scope: str = POPULATION) -> None:
+    """A comparison's files as an older version wrote them (``scope`` names the population scope)."""
+    evidence = fake_laws().replace({"scope": {POPULATION: scope}})
     evidence["law"] = evidence["law"].map(
         {"free": "free", "Rall (a=1.5)": "rall", "da Vinci (a=2)": "da_vinci", "Murray (a=3)": "murray"}
     )
@@ -327,28 +335,59 @@ def _write_comparison(folder: Path, *, warnings_file: bool) -> None:
     pd.DataFrame({"taxon": ["T1"], "verdict": ["murray"]}).to_csv(folder / "laws_by_taxon.csv", index=False)
     pd.DataFrame(
         {
-            "scope": ["overall", "T1"],
+            "scope": [scope, "T1"],
             "verdict": ["undecided", "murray"],
             "reason": ["closest law murray: P(ROPE) 0.33 < 0.9", "murray: P(ROPE) 0.95, BF 4.1"],
         }
     ).to_csv(folder / "laws_verdicts.csv", index=False)
     (folder / "laws.md").write_text("## Warnings\n\n- A WARNING ONLY IN MARKDOWN\n", encoding="utf-8")
     if warnings_file:
-        pd.DataFrame({"message": ["fit of murray (overall): R-hat above 1.01"]}).to_csv(
-            folder / WARNINGS_FILE, index=False
+        pd.DataFrame({"message": ["fit of murray (population): R-hat above 1.01"]}).to_csv(
+            folder / LAWS_WARNINGS_FILE, index=False
         )
 
 
 def test_saved_comparison_reads_tables_not_markdown(tmp_path):
-    _write_comparison(tmp_path, warnings_file=False)
+    # a folder written before laws_warnings.csv existed, with the population scope still called "overall"
+    _write_comparison(tmp_path, warnings_file=False, scope="overall")
     saved = SavedComparison.read(tmp_path)
     assert not any("MARKDOWN" in w for w in saved.warnings)
-    assert any(w.startswith("LOO UNRELIABLE in scope overall") and "murray (2)" in w for w in saved.warnings)
+    assert any(
+        w.startswith("LOO UNRELIABLE in scope population") and "murray (2)" in w for w in saved.warnings
+    )
     assert any(w.startswith("1 Bayes factor(s) use a normal approximation") for w in saved.warnings)
-    assert saved.notes and WARNINGS_FILE in saved.notes[0]
+    assert saved.notes and LAWS_WARNINGS_FILE in saved.notes[0]
+    assert list(saved.verdicts["scope"]) == [POPULATION, "T1"] and len(saved.population) == 4
     _write_comparison(tmp_path, warnings_file=True)
-    assert SavedComparison.read(tmp_path).warnings == ["fit of murray (overall): R-hat above 1.01"]
+    assert SavedComparison.read(tmp_path).warnings == ["fit of murray (population): R-hat above 1.01"]
     assert SavedComparison.read(tmp_path / "nothing") is None
+
+
+def test_comparison_files_round_trip_with_structured_warnings(tmp_path):
+    laws = fake_laws()
+    warnings = [
+        "3 divergent transition(s): the posterior may be biased.",
+        "fit of murray (population): R-hat above 1.01 for 1 parameter(s)",
+        "something no kind describes",
+    ]
+    verdicts = pd.DataFrame(
+        {"scope": [POPULATION], "verdict": ["undecided"], "reason": ["closest law murray"]}
+    )
+    result = LawComparison(
+        evidence=laws, verdicts=verdicts, laws=CLASSIC_LAWS, delta=0.25, warnings=warnings, settings={}
+    )
+    written = write_comparison(result, tmp_path)
+    assert sorted(p.name for p in written) == sorted(COMPARISON_FILES)
+    table = pd.read_csv(tmp_path / LAWS_WARNINGS_FILE)
+    assert list(table["message"]) == warnings
+    assert list(table["kind"]) == [
+        "divergent transitions",
+        "law fits with convergence problems",
+        "other warnings",
+    ]
+    saved = SavedComparison.read(tmp_path)
+    assert saved.warnings == warnings and saved.notes == []  # nothing rebuilt, nothing read from laws.md
+    pd.testing.assert_frame_equal(saved.verdicts, verdicts)
 
 
 @pytest.fixture(scope="module")
@@ -376,6 +415,17 @@ def test_report_from_fit_answers_first(fit_report):
     assert len(images) == 7 and images[0]["alt"].startswith("Exponents with 90% HDIs")
 
 
+def test_report_prints_the_hdi_level_the_fit_recorded(tmp_path):
+    fit = fake_fit(settings={"hdi_prob": 0.8})
+    path = build_report(fit, tmp_path / "report.html", title="Report of SIMULATED data")
+    text = _text(path)
+    assert "Branching exponent per taxon (80% HDI)" in text and "90% HDI" not in text
+    assert "with 80% highest-density intervals" in text  # the methods paragraph
+    # the answer's population interval is ArviZ's 80 % HDI of the draws of mu
+    lo, hi = az.hdi(fit.idata.posterior["mu"].values.ravel(), hdi_prob=0.8)
+    assert f"[{lo:.2f}, {hi:.2f}]" in text
+
+
 # ---------------------------------------------------------------------------------------------------------
 # rendering in a real browser: headless Chromium driven through the DevTools protocol
 
@@ -389,7 +439,7 @@ def _chromium() -> str | None:
 class _WebSocket:
     """The smallest websocket client the DevTools protocol needs (RFC 6455: text frames, client masking)."""
 
-    def __init__(self, url: str, timeout: float = 60.0) -> None:
+    def __init__(self, url: str, timeout: float = BROWSER_PATIENCE_S) -> None:
         parts = urllib.parse.urlsplit(url)
         self.sock = socket.create_connection((parts.hostname, parts.port), timeout=timeout)
         key = base64.b64encode(os.urandom(16)).decode()
@@ -486,7 +536,7 @@ class _DevTools:
         elif method == "Log.entryAdded" and params["entry"].get("level") == "error":
             self.errors.append(f"log: {params['entry'].get('text')} {params['entry'].get('url', '')}")
 
-    def wait_for(self, method: str, timeout: float = 60.0) -> None:
+    def wait_for(self, method: str, timeout: float = BROWSER_PATIENCE_S) -> None:
         deadline = time.monotonic() + timeout
         while method not in self.events:
             if time.monotonic() > deadline:
@@ -522,7 +572,7 @@ def browser(tmp_path):
     )
     try:
         port_file = profile / "DevToolsActivePort"  # written by Chromium: port, then the browser's path
-        deadline = time.monotonic() + 60
+        deadline = time.monotonic() + BROWSER_PATIENCE_S
         while not (port_file.is_file() and len(port_file.read_text().split("\n")) >= 2):
             if proc.poll() is not None or time.monotonic() > deadline:
                 pytest.fail("Chromium did not start its DevTools endpoint")

@@ -3,21 +3,18 @@
 from __future__ import annotations
 
 import argparse
-import os
-import tempfile
 from pathlib import Path
 
 import pandas as pd
 
 from allobranch.cli.options import add_mapping_arguments, table_from_args
+from allobranch.conventions import JUNCTIONS_FILE
 from allobranch.errors import AllobranchError, OutputExistsError
 from allobranch.geometry import NAIVE_NOTE, junction_geometry, naive_summary
 from allobranch.intake.recipe import write_recipe
 from allobranch.intake.table import JunctionTable
-from allobranch.intake.units import from_internal_radius
-
-#: File written into ``--out``.
-JUNCTIONS_FILE = "junctions.csv"
+from allobranch.io import prepare_output_dir
+from allobranch.reporting.junctions import write_junctions
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -47,52 +44,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=run)
 
 
-def junction_output(table: JunctionTable, geometry: pd.DataFrame) -> pd.DataFrame:
-    """Per-junction geometry with the radii converted back to the user's unit.
-
-    Parameters
-    ----------
-    table : JunctionTable
-        The validated table.
-    geometry : pandas.DataFrame
-        :func:`allobranch.geometry.junction_geometry` of ``table``.
-
-    Returns
-    -------
-    pandas.DataFrame
-        Identification columns, ``parent_radius_<unit>``, ``d1_radius_<unit>``..., then the geometry columns.
-    """
-    ident = ["taxon", "specimen", "junction", "source_row", "n_daughters"]
-    out = geometry[ident].copy()
-    for col in ["parent", *table.daughter_columns]:
-        out[f"{col}_radius_{table.unit}"] = from_internal_radius(table.data[col].to_numpy(), table.unit)
-    return pd.concat([out, geometry.drop(columns=ident)], axis=1)
-
-
 def _refuse_overwrite(dest: Path, force: bool, option: str) -> None:
     if dest.exists() and not force:
         raise OutputExistsError(
             f"{dest} already exists; use --force to overwrite it or choose another {option}"
         )
-
-
-def _write_csv(frame: pd.DataFrame, dest: Path, force: bool) -> None:
-    """Write via a temporary file in the same folder, so an interrupted run leaves no partial file."""
-    _refuse_overwrite(dest, force, "--out")
-    try:
-        dest.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
-    except OSError as exc:
-        raise AllobranchError(
-            f"{dest.parent}: cannot create the output folder or file ({exc.strerror})"
-        ) from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            frame.to_csv(fh, index=False)
-        os.replace(tmp, dest)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
 
 
 def _error_note(table: JunctionTable) -> str:
@@ -176,9 +132,7 @@ def run(args: argparse.Namespace) -> int:
     """
     # Check the destinations before doing any work, so a run fails early rather than half-way.
     if args.out:
-        if Path(args.out).exists() and not Path(args.out).is_dir():
-            raise AllobranchError(f"{args.out}: --out must be a folder, but this is a file")
-        _refuse_overwrite(Path(args.out) / JUNCTIONS_FILE, args.force, "--out")
+        prepare_output_dir(args.out, [JUNCTIONS_FILE], force=args.force)
     if args.save_recipe:
         if not Path(args.save_recipe).resolve().parent.is_dir():
             raise AllobranchError(f"{args.save_recipe}: the folder for --save-recipe does not exist")
@@ -193,8 +147,7 @@ def run(args: argparse.Namespace) -> int:
             raise AllobranchError(f"{args.save_recipe}: cannot write the recipe ({exc.strerror})") from None
         print(f"Recipe written to {path}")
     if args.out:
-        dest = Path(args.out) / JUNCTIONS_FILE
-        _write_csv(junction_output(table, geometry), dest, args.force)
+        dest = write_junctions(table, args.out, geometry=geometry, force=args.force)
         print(f"Per-junction geometry written to {dest} (radii in {table.unit})")
     reasons = geometry["no_root_reason"].dropna().value_counts()
     if len(reasons):

@@ -5,19 +5,18 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from allobranch.cli.compare import write_outputs
+from allobranch.cli.compare import print_verdicts
 from allobranch.cli.fit import add_sampler_arguments, fit_and_write
 from allobranch.cli.options import add_worker_argument
+from allobranch.conventions import FIGURES_DIR, REPORT_FILE
 from allobranch.demo import DEMO_FILES, demo_folder, write_demo
-from allobranch.reporting.outputs import prepare_output_dir
+from allobranch.io import prepare_output_dir
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch demo``."""
     import allobranch as ab
     from allobranch.cli.check import format_check_report
-    from allobranch.reporting.figures import write_figures
-    from allobranch.reporting.report import REPORT_FILE, build_report
 
     out = Path(args.out)
     folder = demo_folder()
@@ -42,22 +41,21 @@ def run(args: argparse.Namespace) -> int:
         workers=args.workers,
         progress=not args.quiet,
     )
-    write_outputs(laws, out, force=args.force)
-    print("Law verdicts (law, 'none' or 'undecided'):")
-    for row in laws.verdicts.itertuples():
-        print(f"  {row.scope:<24} {row.verdict:<12} {row.reason}")
+    ab.write_comparison(laws, out, force=args.force)
+    print_verdicts(laws.verdicts)
     print(
         f"Law comparison took {laws.settings.get('seconds', float('nan')):.0f} s "
         f"({laws.settings.get('n_fits')} fits)"
     )
-    figures = write_figures(result, out / "figures", laws_table=laws.laws_table())
-    print(f"{len(figures)} figure files in {out / 'figures'}/")
+    figures = ab.write_figures(result, out / FIGURES_DIR, laws_table=laws.laws_table())
+    print(f"{len(figures)} figure files in {out / FIGURES_DIR}/")
     prepare_output_dir(out, [REPORT_FILE], force=args.force)
-    report = build_report(
+    report = ab.build_report(
         result,
         out / REPORT_FILE,
         laws=laws,
         title="Branching-exponent analysis of SIMULATED demo data (invented species)",
+        hdi_prob=args.hdi,
     )
     print(f"Report: {report}")
     return 0

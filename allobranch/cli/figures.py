@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from allobranch.conventions import FIGURES_DIR, FIT_FILE
 from allobranch.errors import InputError
 from allobranch.reporting.style import FIGURE_FORMATS
 
@@ -19,19 +20,19 @@ def _formats(text: str) -> tuple[str, ...]:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch figures``."""
-    from allobranch.inference.results import FitResult
-    from allobranch.reporting.figures import read_laws_table, write_figures
+    import allobranch as ab
 
     fit_dir = Path(args.fit_dir)
-    result = FitResult.load(fit_dir / "fit.nc")
-    written = write_figures(
+    result = ab.FitResult.load(fit_dir / FIT_FILE)
+    laws = ab.SavedComparison.read(fit_dir)
+    written = ab.write_figures(
         result,
-        fit_dir / "figures",
-        laws_table=read_laws_table(fit_dir),
+        fit_dir / FIGURES_DIR,
+        laws_table=laws.laws_table() if laws is not None else None,
         formats=_formats(args.format),
         width=args.width,
     )
-    print(f"{len(written)} figure files written to {fit_dir / 'figures'}/")
+    print(f"{len(written)} figure files written to {fit_dir / FIGURES_DIR}/")
     return 0
 
 
@@ -42,10 +43,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="draw every figure of a fit",
         description="Draw the exponent forest plot, ratio plane, naive-vs-model, posterior predictive check, "
         "law comparison (when 'allobranch compare' wrote into the same folder) and sampler diagnostics into "
-        "FIT_DIR/figures/ (existing figure files there are replaced).",
+        f"FIT_DIR/{FIGURES_DIR}/ (existing figure files there are replaced).",
     )
     parser.add_argument(
-        "fit_dir", metavar="FIT_DIR", help="folder written by 'allobranch fit' (holds fit.nc)"
+        "fit_dir", metavar="FIT_DIR", help=f"folder written by 'allobranch fit' (holds {FIT_FILE})"
     )
     parser.add_argument(
         "--format", default="pdf,png,svg", help="comma-separated formats (default pdf,png,svg)"

@@ -6,6 +6,8 @@ import argparse
 import sys
 
 from allobranch.cli.options import add_mapping_arguments, table_from_args
+from allobranch.conventions import FIT_FILES, HDI_PROB, hdi_label
+from allobranch.io import prepare_output_dir
 from allobranch.model.spec import DEVIATIONS, PARAMETRIZATIONS, SAMPLER_DEFAULTS, SAMPLERS, ModelSpec
 
 
@@ -95,9 +97,32 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
         default="normal",
         help="junction deviation from the law: normal, or student_t for outlying junctions",
     )
-    g.add_argument("--hdi", type=float, default=0.9, help="HDI probability of the tables (default 0.9)")
+    g.add_argument(
+        "--hdi",
+        type=probability,
+        default=HDI_PROB,
+        help=f"probability of the highest-density intervals in the tables (default {HDI_PROB:g})",
+    )
     g.add_argument("--quiet", action="store_true", help="no progress display")
     g.add_argument("--force", action="store_true", help="replace existing result files in --out")
+
+
+def print_exponents(exponents, title: str, *, diagnostics: bool = True) -> None:
+    """Print the population and taxon rows of an exponents table under ``title`` (with the HDI level).
+
+    Parameters
+    ----------
+    exponents : pandas.DataFrame
+        ``FitResult.exponents()``.
+    title : str
+        First line, followed by the interval's name, e.g. ``"Exponents (90% HDI):"``.
+    diagnostics : bool
+        Add each row's R-hat and bulk ESS.
+    """
+    print(f"{title} ({hdi_label(exponents.attrs.get('hdi_prob'))}):")
+    for row in exponents[exponents["level"] != "specimen"].itertuples():
+        line = f"  {row.level:<10} {row.group:<24} {row.mean:6.3f}  [{row.hdi_low:.3f}, {row.hdi_high:.3f}]"
+        print(line + (f"  r_hat {row.r_hat:.3f}  ess {row.ess_bulk:.0f}" if diagnostics else ""))
 
 
 def spec_from_args(args: argparse.Namespace) -> ModelSpec:
@@ -113,8 +138,7 @@ def spec_from_args(args: argparse.Namespace) -> ModelSpec:
 def fit_and_write(table, args: argparse.Namespace, out) -> object:
     """Fit ``table`` with the options in ``args`` and write the result folder ``out``; print a digest."""
     import allobranch as ab
-    from allobranch.reporting.fit_outputs import FIT_FILES, write_fit_outputs
-    from allobranch.reporting.outputs import prepare_output_dir
+    from allobranch.reporting.fit_outputs import write_fit_outputs
 
     prepare_output_dir(out, list(FIT_FILES), force=args.force)  # fail before the long fit, not after
     result = ab.fit(
@@ -134,14 +158,7 @@ def fit_and_write(table, args: argparse.Namespace, out) -> object:
     write_fit_outputs(result, out, hdi_prob=args.hdi, force=True)
     for w in result.warnings:
         print(f"WARNING: {w}", file=sys.stderr)
-    exps = result.exponents(args.hdi)
-    shown = exps[exps["level"] != "specimen"]
-    print(f"Exponents ({int(args.hdi * 100)} % HDI):")
-    for row in shown.itertuples():
-        print(
-            f"  {row.level:<10} {row.group:<24} {row.mean:6.3f}  [{row.hdi_low:.3f}, {row.hdi_high:.3f}]"
-            f"  r_hat {row.r_hat:.3f}  ess {row.ess_bulk:.0f}"
-        )
+    print_exponents(result.exponents(args.hdi), "Exponents")
     print(f"Fit took {result.settings['seconds']} s; results in {out}/ ({', '.join(FIT_FILES)})")
     return result
 
@@ -159,7 +176,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "fit",
         help="fit the hierarchical exponent model",
         description="Fit the errors-in-variables hierarchical model (population -> taxon -> specimen) and "
-        "write exponents.csv, variance.csv, diagnostics.csv, summary.md and fit.nc into --out.",
+        f"write {', '.join(FIT_FILES)} into --out.",
     )
     add_mapping_arguments(parser)
     parser.add_argument("--out", metavar="DIR", required=True, help="folder for the results")

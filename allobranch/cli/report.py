@@ -5,19 +5,19 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from allobranch.reporting.outputs import prepare_output_dir
+from allobranch.conventions import FIT_FILE, REPORT_FILE
+from allobranch.io import prepare_output_dir
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch report``."""
-    from allobranch.inference.results import FitResult
-    from allobranch.reporting.report import REPORT_FILE, SavedComparison, build_report
+    import allobranch as ab
 
     fit_dir = Path(args.fit_dir)
-    result = FitResult.load(fit_dir / "fit.nc")
+    result = ab.FitResult.load(fit_dir / FIT_FILE)
     prepare_output_dir(fit_dir, [REPORT_FILE], force=args.force)
-    laws = SavedComparison.read(fit_dir)
-    path = build_report(result, fit_dir / REPORT_FILE, laws=laws, width=args.width)
+    laws = ab.SavedComparison.read(fit_dir)
+    path = ab.build_report(result, fit_dir / REPORT_FILE, laws=laws, width=args.width)
     print(
         f"Report written to {path}"
         + (
@@ -35,13 +35,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "report",
         help="write a self-contained HTML report of a result folder",
-        description="Write FIT_DIR/report.html: warnings first, data and validation flags, the model and priors "
-        "in plain words, diagnostics, exponent tables, law comparison and verdicts (when 'allobranch compare' "
-        "wrote into the same folder), a methods paragraph and the research-use caution. Opens offline.",
+        description=f"Write FIT_DIR/{REPORT_FILE}: the answer first (exponent per taxon with its interval and, "
+        "when 'allobranch compare' wrote into the same folder, the law verdict beside the forest figure), then "
+        "the evidence, diagnostics and grouped warnings, the data and its validation flags, the model and "
+        "priors in plain words, a methods paragraph and the research-use caution. Opens offline.",
     )
     parser.add_argument(
-        "fit_dir", metavar="FIT_DIR", help="folder written by 'allobranch fit' (holds fit.nc)"
+        "fit_dir", metavar="FIT_DIR", help=f"folder written by 'allobranch fit' (holds {FIT_FILE})"
     )
     parser.add_argument("--width", choices=("single", "double"), default="single", help="figure width")
-    parser.add_argument("--force", action="store_true", help="replace an existing report.html")
+    parser.add_argument("--force", action="store_true", help=f"replace an existing {REPORT_FILE}")
     parser.set_defaults(func=run)

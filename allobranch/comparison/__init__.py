@@ -10,10 +10,12 @@ from __future__ import annotations
 
 from allobranch.comparison.laws import CLASSIC_LAWS, Law, parse_law, resolve_laws
 from allobranch.comparison.rope import DEFAULT_DELTA
+from allobranch.comparison.verdict import VERDICT_RULE
 
 __all__ = [
     "CLASSIC_LAWS",
     "DEFAULT_DELTA",
+    "VERDICT_RULE",
     "Law",
     "LawComparison",
     "compare_laws",

@@ -3,7 +3,7 @@
 For a point value ``v`` of a parameter ``theta`` nested in the free model, the Savage–Dickey density ratio
 gives the Bayes factor of ``theta = v`` against the free model as ``p(v | data) / p(v)``: the posterior
 density over the prior density at ``v`` (Dickey 1971; Wagenmakers et al. 2010, *Cogn. Psychol.* 60:158).
-Here ``theta`` is the population exponent ``mu`` (scope ``overall``) or one taxon's exponent ``a_taxon``
+Here ``theta`` is the population exponent ``mu`` (scope ``population``) or one taxon's exponent ``a_taxon``
 (scope ``taxon``).
 
 Prior density
@@ -27,9 +27,9 @@ Prior sensitivity
     ``k`` exceeds ArviZ's reliability threshold the reweighted factor is flagged as unreliable.
 
 Caveats: a Bayes factor depends on the prior of the free model (a wider prior favours the point law:
-Lindley's paradox), hence the sensitivity columns. The overall factor tests ``mu = v`` -- the population
-mean exponent -- and lets taxa scatter around it, which is not the same hypothesis as the ``overall``
-model in the LOO comparison (every taxon exactly ``v``). A taxon's factor tests ``a_taxon = v`` inside
+Lindley's paradox), hence the sensitivity columns. The population factor tests ``mu = v`` -- the
+population mean exponent -- and lets taxa scatter around it, which is not the same hypothesis as the
+``population`` model in the LOO comparison (every taxon exactly ``v``). A taxon's factor tests ``a_taxon = v`` inside
 the hierarchical model, where the other taxa's prior is conditioned on that value; the ``taxon`` model in
 the LOO comparison keeps their prior unconditioned. With one taxon both coincide.
 """
@@ -46,6 +46,7 @@ from scipy import stats
 from scipy.special import logsumexp
 
 from allobranch.comparison.laws import Law
+from allobranch.conventions import POPULATION
 from allobranch.model.spec import Priors
 
 #: Monte-Carlo draws of ``tau_taxon`` behind the prior density of a taxon exponent.
@@ -69,7 +70,7 @@ CAVEAT = (
     "Savage-Dickey Bayes factors (posterior / prior density at the law, from the free fit) depend on the "
     "prior: log10_bf_narrow / log10_bf_wide repeat them with the prior scales of mu and tau_taxon halved / "
     "doubled (by reweighting the draws). 'normal_approx' marks laws in the far tail of the posterior, where "
-    "only the order of magnitude is meaningful. The overall factor tests the population exponent mu = value "
+    "only the order of magnitude is meaningful. The population factor tests the population exponent mu = value "
     "(taxa may scatter around it)."
 )
 
@@ -233,7 +234,7 @@ def bayes_factor_table(
     laws: Sequence[Law],
     taxa: Sequence[str] | None = None,
     *,
-    include_overall: bool = True,
+    include_population: bool = True,
     seed: int = 0,
 ) -> tuple[pd.DataFrame, list[str]]:
     """Savage–Dickey Bayes factors of every law, per scope, with their prior sensitivity.
@@ -247,8 +248,8 @@ def bayes_factor_table(
     laws : sequence of Law
     taxa : sequence of str, optional
         Taxa whose exponent is tested (scope = taxon label); ``None`` for none.
-    include_overall : bool
-        Test the population exponent ``mu`` (scope ``"overall"``).
+    include_population : bool
+        Test the population exponent ``mu`` (scope ``"population"``).
     seed : int
         Seed of the prior Monte-Carlo draws.
 
@@ -272,14 +273,14 @@ def bayes_factor_table(
                 f"prior sensitivity ({key} prior, scales x{factor:g}) by reweighting is unreliable "
                 f"(Pareto k = {float(k):.2f} > {good_k:.2f}); refit with that prior to check"
             )
-    scopes = ([None] if include_overall else []) + list(taxa or [])
+    scopes = ([None] if include_population else []) + list(taxa or [])
     rows = []
     for taxon in scopes:
         draws = _parameter_draws(post, taxon)
         for law in laws:
             base = savage_dickey(draws, law.value, _log_prior(law.value, priors, taxon, hierarchical, seed))
             row = {
-                "scope": "overall" if taxon is None else str(taxon),
+                "scope": POPULATION if taxon is None else str(taxon),
                 "law": law.label,
                 "value": law.value,
                 "log10_bf": base.log10_bf,

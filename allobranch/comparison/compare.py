@@ -11,55 +11,19 @@ import numpy as np
 import pandas as pd
 
 from allobranch.comparison import bayes_factor, jobs, loo, rope, verdict
-from allobranch.comparison.jobs import OVERALL
 from allobranch.comparison.laws import FREE, SCOPES, Law, resolve_laws
+from allobranch.conventions import (
+    BY_TAXON_LAW_COLUMNS,
+    EVIDENCE_COLUMNS,
+    LAWS_TABLE_COLUMNS,
+    OLD_POPULATION_SCOPE,
+    POPULATION,
+)
 from allobranch.errors import InputError
 from allobranch.inference.fit import LOGLIK_VAR
 from allobranch.inference.results import FitResult
 from allobranch.intake.table import JunctionTable
 from allobranch.model.spec import SAMPLER_DEFAULTS, ModelSpec
-
-#: Columns of :attr:`LawComparison.overall` (and of the long evidence table, for every scope).
-EVIDENCE_COLUMNS: tuple[str, ...] = (
-    "scope",
-    "law",
-    "value",
-    "elpd",
-    "elpd_se",
-    "elpd_diff",
-    "dse",
-    "weight",
-    "p_loo",
-    "n_high_k",
-    "log10_bf",
-    "bf_method",
-    "log10_bf_narrow",
-    "log10_bf_wide",
-    "p_rope",
-)
-#: Columns of :meth:`LawComparison.laws_table` (what the law-comparison figure draws).
-LAWS_TABLE_COLUMNS: tuple[str, ...] = (
-    "scope",
-    "law",
-    "value",
-    "elpd",
-    "elpd_diff",
-    "dse",
-    "weight",
-    "log10_bf",
-    "p_rope",
-)
-#: Per-law evidence columns of :attr:`LawComparison.by_taxon`, each suffixed ``_<label>``.
-BY_TAXON_LAW_COLUMNS: tuple[str, ...] = (
-    "p_rope",
-    "log10_bf",
-    "log10_bf_narrow",
-    "log10_bf_wide",
-    "bf_method",
-    "elpd_diff",
-    "dse",
-    "weight",
-)
 
 
 @dataclass
@@ -70,7 +34,8 @@ class LawComparison:
     ----------
     evidence : pandas.DataFrame
         Long table, one row per scope and hypothesis (the free model included), columns
-        :data:`EVIDENCE_COLUMNS`. ``scope`` is ``"overall"`` or a taxon label.
+        :data:`~allobranch.conventions.EVIDENCE_COLUMNS`. ``scope`` is ``"population"`` (every taxon shares
+        the law's exponent) or a taxon label.
     verdicts : pandas.DataFrame
         Columns ``scope``, ``verdict`` (a law's label, ``"none"`` or ``"undecided"``), ``reason``.
     laws : tuple of Law
@@ -94,14 +59,15 @@ class LawComparison:
     free_fit: FitResult | None = None
 
     @property
-    def overall(self) -> pd.DataFrame:
-        """One row per hypothesis of the ``overall`` scope (columns :data:`EVIDENCE_COLUMNS`)."""
-        return self.evidence[self.evidence["scope"] == "overall"].reset_index(drop=True)
+    def population(self) -> pd.DataFrame:
+        """One row per hypothesis of the population scope (columns
+        :data:`~allobranch.conventions.EVIDENCE_COLUMNS`)."""
+        return self.evidence[self.evidence["scope"] == POPULATION].reset_index(drop=True)
 
     @property
     def by_taxon(self) -> pd.DataFrame:
         """One row per taxon: ``taxon``, ``verdict``, ``reason``, then per law ``<column>_<label>`` for the
-        columns :data:`BY_TAXON_LAW_COLUMNS`, and ``elpd_diff_free``, ``dse_free``, ``weight_free``."""
+        columns :data:`~allobranch.conventions.BY_TAXON_LAW_COLUMNS`, and ``elpd_diff_free``, ``dse_free``, ``weight_free``."""
         taxa = [t for t in self.settings.get("taxa", []) if t in set(self.evidence["scope"])]
         rows = []
         verdicts = self.verdicts.set_index("scope")
@@ -128,7 +94,8 @@ class LawComparison:
         return pd.DataFrame(rows, columns=columns)
 
     def laws_table(self) -> pd.DataFrame:
-        """Long form for the law-comparison figure: columns :data:`LAWS_TABLE_COLUMNS`, every scope."""
+        """Long form for the law-comparison figure: columns :data:`~allobranch.conventions.LAWS_TABLE_COLUMNS`,
+        every scope."""
         return self.evidence[list(LAWS_TABLE_COLUMNS)].reset_index(drop=True)
 
     def to_markdown(self) -> str:
@@ -148,8 +115,13 @@ class LawComparison:
             self.verdicts.to_markdown(**fmt),
             "",
         ]
-        if not self.overall.empty:
-            lines += ["## Overall (all taxa share the exponent)", "", self.overall.to_markdown(**fmt), ""]
+        if not self.population.empty:
+            lines += [
+                "## Population (all taxa share the exponent)",
+                "",
+                self.population.to_markdown(**fmt),
+                "",
+            ]
         by_taxon = self.by_taxon
         if not by_taxon.empty:
             keep = [
@@ -169,7 +141,7 @@ class LawComparison:
         lines += [
             "## Decision rule",
             "",
-            verdict.RULE,
+            verdict.VERDICT_RULE,
             "",
             "## Caveats",
             "",
@@ -183,7 +155,9 @@ class LawComparison:
 
 
 def _check_scopes(scopes: Iterable[str]) -> tuple[str, ...]:
-    scopes = tuple(dict.fromkeys(str(s) for s in ([scopes] if isinstance(scopes, str) else scopes)))
+    """The scopes asked for, checked (the older name ``"overall"`` is read as ``"population"``)."""
+    given = [scopes] if isinstance(scopes, str) else scopes
+    scopes = tuple(dict.fromkeys(POPULATION if s == OLD_POPULATION_SCOPE else str(s) for s in given))
     bad = [s for s in scopes if s not in SCOPES]
     if bad or not scopes:
         raise InputError(f"scopes must be one or both of {', '.join(SCOPES)}; got {', '.join(bad) or 'none'}")
@@ -228,7 +202,7 @@ def _law_fit_warning(result: FitResult, law: str, scope: str) -> str | None:
     """One line for a law's fit that failed its checks: the problems, not the advice."""
     if not result.warnings:
         return None
-    where = "overall" if scope == OVERALL else f"taxon {scope}"
+    where = POPULATION if scope == POPULATION else f"taxon {scope}"
     problems = "; ".join(w.split(". ")[0] for w in result.warnings)
     return (
         f"fit of {law} ({where}): {problems} -> its LOO terms are less trustworthy; run longer "
@@ -287,7 +261,7 @@ def compare_laws(
     executor: Executor | None = None,
     escalate: bool = True,
 ) -> LawComparison:
-    """Compare point laws for the branching exponent with the free model, overall and per taxon.
+    """Compare point laws for the branching exponent with the free model, for the population and per taxon.
 
     For each scope the free model and every law (the exponent fixed at the law's value) are fitted to the
     same junctions. Three kinds of evidence are reported side by side, each with its caveat: PSIS-LOO
@@ -307,19 +281,20 @@ def compare_laws(
     delta : float
         Half-width of each law's region of practical equivalence (default 0.25, half the gap between 3/2
         and 2).
-    scopes : iterable of {"overall", "taxon"}
-        ``overall``: all taxa share the law's exponent; ``taxon``: one taxon at a time has it. With one
-        taxon, the taxon scope re-uses the overall fits (the two models are then the same).
+    scopes : iterable of {"population", "taxon"}
+        ``population``: all taxa share the law's exponent; ``taxon``: one taxon at a time has it. With one
+        taxon, the taxon scope re-uses the population fits (the two models are then the same).
     seed : int
         Seed of the free model's fit (as in :func:`allobranch.fit`); every law's fit gets its own seed
         derived from it, and it seeds the prior Monte Carlo.
     draws, tune, chains : int, optional
-        Sampler settings of every fit; default: the given free fit's settings, else 1000, 1000, 4.
+        Sampler settings of every fit; default: the given free fit's settings, else
+        :data:`~allobranch.model.spec.SAMPLER_DEFAULTS`.
     sampler : {"nutpie", "pymc"}
         NUTS implementation.
     target_accept : float, optional
-        NUTS target acceptance of the first attempt of every fit (default 0.9; each fit escalates on its own
-        when it fails its checks).
+        NUTS target acceptance of the first attempt of every fit (default: ``SAMPLER_DEFAULTS``; each fit
+        escalates on its own when it fails its checks).
     spec : ModelSpec, optional
         Specification of the free model when it is fitted here (no fixed exponents); the laws' models
         differ from it only in the fixed exponent.
@@ -339,12 +314,12 @@ def compare_laws(
     Returns
     -------
     LawComparison
-        ``.overall``, ``.by_taxon``, ``.verdicts``, ``.warnings``, ``.laws_table()``, ``.to_markdown()``.
+        ``.population``, ``.by_taxon``, ``.verdicts``, ``.warnings``, ``.laws_table()``, ``.to_markdown()``.
 
     Raises
     ------
     InputError
-        For unknown or badly written laws, bad ``delta`` or ``scopes``, a taxon named ``"overall"``, or a
+        For unknown or badly written laws, bad ``delta`` or ``scopes``, a taxon named ``"population"``, or a
         given fit that is not the free model of this table.
 
     Examples
@@ -375,8 +350,10 @@ def compare_laws(
     }
     given_fit, table = _free_fit(table_or_fit, fit, spec)
     taxa = [str(t) for t in table.taxa]
-    if "taxon" in scopes and "overall" in taxa:
-        raise InputError("a taxon is named 'overall', which is the name of the all-taxa scope; rename it")
+    if "taxon" in scopes and POPULATION in taxa:
+        raise InputError(
+            f"a taxon is named '{POPULATION}', which is the name of the all-taxa scope; rename the taxon"
+        )
     free_spec = given_fit.spec if given_fit is not None else (spec or ModelSpec())
     plan = jobs.plan_jobs(laws, taxa, scopes, seed, include_free=given_fit is None)
     log = jobs.stderr_log(progress)
@@ -384,13 +361,13 @@ def compare_laws(
     fits = jobs.run_jobs(
         table, free_spec, plan, {**sampler_kw, "progress": False}, workers=workers, executor=executor, log=log
     )
-    free = given_fit if given_fit is not None else fits[(jobs.OVERALL, FREE)]
+    free = given_fit if given_fit is not None else fits[(POPULATION, FREE)]
 
     warnings = rope.overlapping_laws(laws, delta)
     warnings += [f"fit of the free model: {w}" for w in free.warnings]
     per_scope: dict[str, dict] = {}
     scope_names = [
-        scope for scope in [OVERALL, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)
+        scope for scope in [POPULATION, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)
     ]
     for scope in scope_names:
         per_scope[scope] = {FREE: free.idata}
@@ -401,10 +378,10 @@ def compare_laws(
                 warnings.append(message)
             per_scope[scope][law.label] = result.idata
     if "taxon" in scopes and len(taxa) == 1:
-        per_scope[taxa[0]] = per_scope[jobs.OVERALL]
-        warnings.append(f"one taxon ({taxa[0]}): its comparison is the overall one (same models)")
-    if "overall" not in scopes:
-        per_scope.pop(jobs.OVERALL, None)
+        per_scope[taxa[0]] = per_scope[POPULATION]
+        warnings.append(f"one taxon ({taxa[0]}): its comparison is the population one (same models)")
+    if POPULATION not in scopes:
+        per_scope.pop(POPULATION, None)
     n_fits = len(plan)
 
     bf, bf_warnings = bayes_factor.bayes_factor_table(
@@ -412,7 +389,7 @@ def compare_laws(
         free.spec.priors,
         laws,
         taxa if "taxon" in scopes else None,
-        include_overall="overall" in scopes,
+        include_population=POPULATION in scopes,
         seed=seed,
     )
     warnings += bf_warnings
@@ -423,7 +400,7 @@ def compare_laws(
         message = loo.high_k_warning(scope, result)
         if message:
             warnings.append(message)
-        draws_ = post["mu"].values if scope == "overall" else post["a_taxon"].sel(taxon=scope).values
+        draws_ = post["mu"].values if scope == POPULATION else post["a_taxon"].sel(taxon=scope).values
         rows += _scope_rows(scope, result, bf, draws_, laws, delta)
     tail = bf[bf["bf_method"] == "normal_approx"]
     if len(tail):

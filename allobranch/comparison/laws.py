@@ -5,7 +5,7 @@ area-preserving rule (a = 2) and Rall's 3/2 rule (a = 3/2); users add their own 
 (``VALUE`` may be a fraction such as ``7/3``). Each law is compared with the *free* model, in which the
 exponent is estimated, in one of two scopes:
 
-``overall``
+``population``
     every taxon shares the fixed exponent (``ModelSpec(fixed_exponent=value)``);
 ``taxon``
     one taxon at a time has the fixed exponent, the rest of the model is free
@@ -19,13 +19,14 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
 
+from allobranch.conventions import POPULATION
 from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec
 
 #: Label of the model with a free (estimated) exponent.
 FREE = "free"
 #: Scopes of a comparison, in the order they are reported.
-SCOPES: tuple[str, ...] = ("overall", "taxon")
+SCOPES: tuple[str, ...] = (POPULATION, "taxon")
 #: Labels that cannot name a law because they are verdicts or the free model.
 RESERVED_LABELS: tuple[str, ...] = (FREE, "none", "undecided")
 #: Allowed law labels: they become parts of column names such as ``p_rope_<label>``.
@@ -195,7 +196,7 @@ def hypothesis_spec(free: ModelSpec, value: float, taxon: str | None = None) -> 
     value : float
         The law's exponent.
     taxon : str, optional
-        ``None`` fixes every taxon's exponent (scope ``overall``); a taxon label fixes that taxon only.
+        ``None`` fixes every taxon's exponent (scope ``population``); a taxon label fixes that taxon only.
 
     Returns
     -------

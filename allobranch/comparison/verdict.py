@@ -1,6 +1,6 @@
 """A conservative verdict per scope: one law, ``none`` of the laws, or ``undecided``.
 
-Rule (applied to each scope -- ``overall`` and every taxon -- separately):
+Rule (applied to each scope -- ``population`` and every taxon -- separately):
 
 * **law L** is declared when all of these hold, and for exactly one law:
 
@@ -33,6 +33,7 @@ import numpy as np
 import pandas as pd
 
 from allobranch.comparison.laws import FREE
+from allobranch.conventions import VERDICT_COLUMNS
 
 #: Least ROPE probability of a declared law.
 P_ROPE_DECLARE = 0.9
@@ -59,7 +60,7 @@ EVIDENCE_COLUMNS: tuple[str, ...] = (
     "dse",
 )
 #: The rule in one paragraph, for reports.
-RULE = (
+VERDICT_RULE = (
     f"A law is declared when P(ROPE) >= {P_ROPE_DECLARE:g}, its Bayes factor against the free model is >= "
     f"{BF_DECLARE:g} under the default, narrower and wider priors, and LOO does not clearly prefer another "
     f"hypothesis (ELPD loss > {LOO_CLEAR_ELPD:g} and > {LOO_CLEAR_SE:g} SE), for exactly one law. 'none' "
@@ -76,7 +77,7 @@ class Verdict:
     Attributes
     ----------
     scope : str
-        ``"overall"`` or a taxon label.
+        ``"population"`` or a taxon label.
     verdict : str
         A law's label, ``"none"`` or ``"undecided"``.
     reason : str
@@ -184,8 +185,9 @@ def verdict_table(evidence: pd.DataFrame) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        Columns ``scope``, ``verdict``, ``reason``; scopes in order of first appearance.
+        Columns :data:`~allobranch.conventions.VERDICT_COLUMNS` (``scope``, ``verdict``, ``reason``);
+        scopes in order of first appearance.
     """
     scopes = list(dict.fromkeys(evidence["scope"].astype(str)))
     rows = [decide(evidence[evidence["scope"].astype(str) == s], s) for s in scopes]
-    return pd.DataFrame([vars(v) for v in rows], columns=["scope", "verdict", "reason"])
+    return pd.DataFrame([vars(v) for v in rows], columns=list(VERDICT_COLUMNS))

@@ -30,13 +30,11 @@ NO_ROOT_REASONS: dict[str, str] = {
     "solver_failed": "the root finder did not converge",
 }
 
+#: Columns identifying a junction, leading every per-junction table.
+JUNCTION_ID_COLUMNS: tuple[str, ...] = ("taxon", "specimen", "junction", "source_row", "n_daughters")
 #: Columns of :func:`junction_geometry`'s result, in order.
 GEOMETRY_COLUMNS: tuple[str, ...] = (
-    "taxon",
-    "specimen",
-    "junction",
-    "source_row",
-    "n_daughters",
+    *JUNCTION_ID_COLUMNS,
     "exponent",
     "no_root_reason",
     "ratio_large",

@@ -70,8 +70,7 @@ def make_figures(
     ----------
     result : FitResult
     laws_table : pandas.DataFrame, optional
-        Long-form law comparison (columns scope, law, value, elpd, elpd_diff, dse, weight, log10_bf,
-        p_rope); without it the law-comparison figure is skipped and reference lines show the classic laws.
+        Long-form law comparison (columns :data:`~allobranch.conventions.LAWS_TABLE_COLUMNS`); without it the law-comparison figure is skipped and reference lines show the classic laws.
     width : {"single", "double"}
         Journal column width.
     checks, pvalues : pandas.DataFrame, optional
@@ -118,12 +117,6 @@ def _figure_of(axes):
     return first.figure
 
 
-def read_laws_table(fit_dir: str | os.PathLike) -> pd.DataFrame | None:
-    """The long-form law evidence (``laws.csv``) written by ``allobranch compare`` into the folder, if any."""
-    path = Path(fit_dir) / "laws.csv"
-    return pd.read_csv(path) if path.is_file() else None
-
-
 def write_figures(
     result,
     folder: str | os.PathLike,
@@ -132,7 +125,25 @@ def write_figures(
     formats: tuple[str, ...] = ("pdf", "svg", "png"),
     width: str = "single",
 ) -> list[Path]:
-    """Draw and save every figure into ``folder`` (created if needed); returns the files written."""
+    """Draw and save every figure into ``folder`` (created if needed).
+
+    Parameters
+    ----------
+    result : FitResult
+    folder : str or os.PathLike
+        Folder of the figure files; existing files of the same names are replaced.
+    laws_table : pandas.DataFrame, optional
+        ``LawComparison.laws_table()`` (or ``SavedComparison.laws_table()``); adds the law-comparison figure.
+    formats : tuple of str
+        File formats, any of :data:`~allobranch.reporting.style.FIGURE_FORMATS`.
+    width : {"single", "double"}
+        Journal column width.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written (one per figure of :data:`FIGURE_NAMES` and format).
+    """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     written = []

@@ -25,7 +25,8 @@ import jinja2
 import pandas as pd
 from matplotlib.figure import Figure
 
-from allobranch.reporting.style import atomic_write, house_style
+from allobranch.io import atomic_write
+from allobranch.reporting.style import house_style
 from allobranch.reporting.warning_groups import WarningGroup, group_warnings
 
 #: Shown in every report; not optional.
@@ -415,4 +416,4 @@ def write_html_report(path: str | os.PathLike, parts: ReportParts | None = None,
         raise TypeError("give either parts or keyword fields, not both")
     parts = parts if parts is not None else ReportParts(**fields)
     document = render_report(parts)
-    return atomic_write(path, lambda fh: fh.write(document.encode("utf-8")))
+    return atomic_write(path, lambda p: p.write_bytes(document.encode("utf-8")))

@@ -15,11 +15,13 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import pandas as pd
 
-from allobranch.comparison.verdict import RULE
-from allobranch.inference.results import HDI_PROB
+from allobranch.comparison.verdict import VERDICT_RULE
+from allobranch.conventions import NAIVE_VS_MODEL_COLUMNS, POPULATION, hdi_label
+from allobranch.inference.diagnostics import ESS_MIN, RHAT_MAX
 from allobranch.reporting.attempts import attempts_sentence, attempts_table, parametrization_note
 from allobranch.reporting.checks import CHECKS, PPP_TAIL, ppc_checks, ppc_pvalues, ppc_warnings
 from allobranch.reporting.figures import law_display, make_figures
+from allobranch.reporting.fit_outputs import diagnostics_with_sampler, hdi_prob_of
 from allobranch.reporting.html import write_html_report
 from allobranch.reporting.plots._common import hdi_percent
 from allobranch.reporting.plots.laws import clip_note
@@ -27,10 +29,7 @@ from allobranch.reporting.saved_comparison import SavedComparison
 from allobranch.reporting.tables import rounded
 from allobranch.reporting.warning_groups import merge_fit_and_comparison
 
-__all__ = ["REPORT_FILE", "SavedComparison", "answer_table", "build_report", "methods_paragraph"]
-
-#: File name of the report inside the result folder.
-REPORT_FILE = "report.html"
+__all__ = ["SavedComparison", "answer_table", "build_report", "methods_paragraph"]
 
 MODEL_WORDS = """\
 Each reading is modelled on the log scale as its true radius plus measurement error ({error}). The true
@@ -61,18 +60,6 @@ ASSUMPTIONS = (
     "Exponents vary between taxa and specimens but not along the tree (no size or generation covariate).",
 )
 
-#: Columns of the naive-versus-model table shown in the report.
-NAIVE_SHOWN: tuple[str, ...] = (
-    "taxon",
-    "mean",
-    "hdi_low",
-    "hdi_high",
-    "naive_median",
-    "naive_q25",
-    "naive_q75",
-    "n_junctions",
-    "n_no_root",
-)
 #: Columns of the law-evidence tables shown in the report.
 EVIDENCE_SHOWN: tuple[str, ...] = (
     "scope",
@@ -86,14 +73,14 @@ EVIDENCE_SHOWN: tuple[str, ...] = (
 )
 
 
-def methods_paragraph(result, hdi_label: str = "90% HDI") -> str:
+def methods_paragraph(result, hdi_prob: float | None = None) -> str:
     """A methods paragraph for a manuscript, filled in from the fit's settings.
 
     Parameters
     ----------
     result : FitResult
-    hdi_label : str
-        The interval reported, e.g. ``"90% HDI"``.
+    hdi_prob : float, optional
+        Probability of the intervals reported; default: the one the fit recorded, else 0.9.
 
     Returns
     -------
@@ -102,7 +89,7 @@ def methods_paragraph(result, hdi_label: str = "90% HDI") -> str:
     s = result.settings
     t = result.table
     v = result.provenance.get("versions", {})
-    level = hdi_label.replace(" HDI", "")
+    level = hdi_label(hdi_prob_of(result, hdi_prob)).replace(" HDI", "")
     return (
         f"Branching exponents were estimated with allobranch {v.get('allobranch', '')} from {t.n_junctions} "
         f"junctions of {len(t.specimens)} specimens in {len(t.taxa)} taxa. Radii were analysed on the log "
@@ -111,8 +98,8 @@ def methods_paragraph(result, hdi_label: str = "90% HDI") -> str:
         f"out, measurement error is {ERROR_WORDS.get(s.get('error_mode'), '')}, and exponents are partially "
         f"pooled across taxa and specimens. The posterior was sampled with the No-U-Turn sampler "
         f"({s.get('sampler')}; {s.get('chains')} chains, {s.get('draws')} draws after {s.get('tune')} "
-        f"tuning steps); convergence was checked with rank-normalised R-hat (<= 1.01), bulk and tail "
-        f"effective sample sizes (>= 400) and divergences (PyMC {v.get('pymc', '')}, ArviZ "
+        f"tuning steps); convergence was checked with rank-normalised R-hat (<= {RHAT_MAX}), bulk and tail "
+        f"effective sample sizes (>= {ESS_MIN}) and divergences (PyMC {v.get('pymc', '')}, ArviZ "
         f"{v.get('arviz', '')}). We report posterior means with {level} highest-density intervals."
     )
 
@@ -142,7 +129,7 @@ def answer_table(
     exponents : pandas.DataFrame
         ``FitResult.exponents()`` (``attrs["hdi_prob"]`` names the interval's column).
     verdicts : pandas.DataFrame, optional
-        Columns ``scope`` (``"overall"`` or a taxon), ``verdict`` and ``reason``.
+        Columns ``scope`` (``"population"`` or a taxon), ``verdict`` and ``reason``.
     evidence : pandas.DataFrame, optional
         The law evidence (columns ``law``, ``value``), for the laws' display names.
     junctions : dict of str to int, optional
@@ -155,7 +142,7 @@ def answer_table(
         mean), the interval (e.g. ``"90% HDI"``), and with verdicts ``verdict`` and ``reason``.
     """
     label = hdi_percent(exponents)
-    rows = exponents[exponents["level"].isin(["population", "taxon"])]
+    rows = exponents[exponents["level"].isin([POPULATION, "taxon"])]
     by_scope = (
         {}
         if verdicts is None
@@ -165,8 +152,8 @@ def answer_table(
     junctions = junctions or {}
     out = []
     for row in rows.itertuples(index=False):
-        population = row.level == "population"
-        scope = "overall" if population else str(row.group)
+        population = row.level == POPULATION
+        scope = POPULATION if population else str(row.group)
         entry = {
             "estimate": "all taxa (population)" if population else str(row.group),
             "junctions": sum(junctions.values()) if population else junctions.get(str(row.group)),
@@ -186,20 +173,14 @@ def _evidence_tables(laws) -> dict:
     values = _law_values(evidence)
     evidence["law"] = [law_display(law, value) for law, value in zip(evidence["law"], evidence["value"])]
     shown = evidence[[c for c in EVIDENCE_SHOWN if c in evidence]].round(3)
-    overall = shown[shown["scope"] == "overall"].drop(columns="scope")
+    population = shown[shown["scope"] == POPULATION].drop(columns="scope")
     verdicts = laws.verdicts.copy()
     verdicts["verdict"] = [_verdict_label(str(v), values) for v in verdicts["verdict"]]
     return {
-        "laws": overall if len(overall) else shown,
+        "laws": population if len(population) else shown,
         "laws_all_scopes": shown if shown["scope"].nunique() > 1 else None,
         "verdicts": verdicts,
     }
-
-
-def _diagnostics_table(result) -> pd.DataFrame:
-    checks = result.sampler_checks()
-    sampler = pd.DataFrame([{"parameter": f"sampler: {k}", "r_hat": v} for k, v in checks.items()])
-    return rounded(pd.concat([result.diagnostics(), sampler], ignore_index=True))
 
 
 def _checks_table(pvalues: pd.DataFrame) -> pd.DataFrame:
@@ -233,7 +214,7 @@ def build_report(
         Report title (say here when the data are simulated).
     hdi_prob : float, optional
         Probability of the intervals; default: the one the fit recorded (``settings["hdi_prob"]``), else
-        :data:`~allobranch.inference.results.HDI_PROB`.
+        :data:`~allobranch.conventions.HDI_PROB`.
     seed : int, optional
         Seed of the posterior predictive replicates; default: the fit's seed.
 
@@ -242,7 +223,7 @@ def build_report(
     pathlib.Path
     """
     s = result.settings
-    hdi_prob = float(hdi_prob if hdi_prob is not None else s.get("hdi_prob", HDI_PROB))
+    hdi_prob = hdi_prob_of(result, hdi_prob)
     seed = int(seed if seed is not None else s.get("seed", 0))
     exponents = result.exponents(hdi_prob)
     label = hdi_percent(exponents)
@@ -290,7 +271,7 @@ def build_report(
             answer_notes=answer_notes,
             answer_heading=f"Branching exponent per taxon ({label})",
             **evidence,
-            verdict_rule=RULE if laws is not None else "",
+            verdict_rule=VERDICT_RULE if laws is not None else "",
             law_figures=None if laws is None else {f"Law comparison. {clip_note()}": figs["law_comparison"]},
             no_laws="No law comparison in this result folder.",
             checks=_checks_table(pvalues),
@@ -306,14 +287,14 @@ def build_report(
                 "Split of the daughters: observed against replicated, by taxon": figs["ppc_split"],
             },
             exponents=rounded(exponents),
-            naive=rounded(result.naive_vs_model(hdi_prob)[list(NAIVE_SHOWN)]),
+            naive=rounded(result.naive_vs_model(hdi_prob)[list(NAIVE_VS_MODEL_COLUMNS)]),
             exponent_figures={"Naive per-junction exponents beside the model": figs["naive_vs_model"]},
             warnings=warnings,
             warning_notes=[*result.notes, *getattr(laws, "notes", [])],
             attempts=attempts_table(s),
             attempts_sentence=attempts_sentence(s),
             parametrization=parametrization_note(s),
-            diagnostics=_diagnostics_table(result),
+            diagnostics=rounded(diagnostics_with_sampler(result)),
             diagnostic_figures={"Rank plots and energy": figs["diagnostics"]},
             data_summary=_data_summary(result),
             validation_flags=t.report.to_frame(),
@@ -331,7 +312,7 @@ def build_report(
                 [{"parameter": k, "scale": v} for k, v in asdict(result.spec.priors).items()]
             ),
             assumptions=ASSUMPTIONS,
-            methods=methods_paragraph(result, label),
+            methods=methods_paragraph(result, hdi_prob),
             provenance={k: v for k, v in result.provenance.items() if k != "command"},
         )
     finally:

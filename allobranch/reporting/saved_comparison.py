@@ -1,10 +1,14 @@
-"""A law comparison read back from the CSV files ``allobranch compare`` writes (for the report).
+"""A law comparison's files: written by :func:`write_comparison`, read back by :meth:`SavedComparison.read`.
 
-Everything is read from the tables: the evidence (``laws.csv``), the per-taxon view (``laws_by_taxon.csv``)
-and the verdicts (``laws_verdicts.csv``). The comparison's warnings are read from ``laws_warnings.csv``
-(one ``message`` per row) when that file exists; otherwise the warnings that the evidence table itself
-records are rebuilt from it (junctions with high Pareto k, Bayes factors from a normal approximation), and
-a note says that the rest (e.g. the law fits' own diagnostics) are in ``laws.md``.
+Files (:data:`~allobranch.conventions.COMPARISON_FILES`): the evidence (``laws.csv``), the per-taxon view
+(``laws_by_taxon.csv``), the verdicts (``laws_verdicts.csv``), the warnings (``laws_warnings.csv``: one
+row per warning with its ``kind`` and ``message``) and a Markdown report for reading (``laws.md``). A
+report is made from the tables only, never from the Markdown.
+
+Folders written before ``laws_warnings.csv`` existed are still read: the warnings that the evidence table
+itself records are rebuilt from it (junctions with high Pareto k, Bayes factors from a normal
+approximation), and a note says that the rest are in ``laws.md``. Their scope ``"overall"`` is read as
+``"population"``.
 """
 
 from __future__ import annotations
@@ -15,12 +19,72 @@ from pathlib import Path
 
 import pandas as pd
 
-from allobranch.comparison.compare import LAWS_TABLE_COLUMNS
+from allobranch.conventions import (
+    COMPARISON_FILES,
+    LAWS_BY_TAXON_FILE,
+    LAWS_FILE,
+    LAWS_REPORT_FILE,
+    LAWS_TABLE_COLUMNS,
+    LAWS_VERDICTS_FILE,
+    LAWS_WARNINGS_FILE,
+    OLD_POPULATION_SCOPE,
+    POPULATION,
+    WARNING_COLUMNS,
+)
+from allobranch.io import prepare_output_dir, write_files
+from allobranch.reporting.warning_groups import warning_kind
 
-#: Files read from a result folder.
-EVIDENCE_FILE, BY_TAXON_FILE, VERDICTS_FILE = "laws.csv", "laws_by_taxon.csv", "laws_verdicts.csv"
-#: Optional file with the comparison's warnings (column ``message``).
-WARNINGS_FILE = "laws_warnings.csv"
+__all__ = ["SavedComparison", "warnings_frame", "warnings_from_evidence", "write_comparison"]
+
+
+def warnings_frame(warnings: list[str]) -> pd.DataFrame:
+    """The comparison's warnings as a table: columns :data:`~allobranch.conventions.WARNING_COLUMNS`.
+
+    Parameters
+    ----------
+    warnings : list of str
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``kind`` (:func:`~allobranch.reporting.warning_groups.warning_kind`) and ``message``, one row each.
+    """
+    rows = [{"kind": warning_kind(str(w)), "message": str(w)} for w in warnings]
+    return pd.DataFrame(rows, columns=list(WARNING_COLUMNS))
+
+
+def write_comparison(result, out: str | os.PathLike, *, force: bool = False) -> list[Path]:
+    """Write a law comparison's files into the folder ``out``, all or nothing.
+
+    Parameters
+    ----------
+    result : LawComparison
+    out : str or os.PathLike
+        Output folder (created if missing).
+    force : bool
+        Replace existing files of the same names (nothing else in the folder is touched).
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written (:data:`~allobranch.conventions.COMPARISON_FILES`).
+
+    Raises
+    ------
+    OutputExistsError
+        If one of the files exists and ``force`` is false.
+    """
+    folder = prepare_output_dir(out, list(COMPARISON_FILES), force=force)
+    return write_files(
+        folder,
+        {
+            LAWS_FILE: lambda p: result.evidence.to_csv(p, index=False),
+            LAWS_BY_TAXON_FILE: lambda p: result.by_taxon.to_csv(p, index=False),
+            LAWS_VERDICTS_FILE: lambda p: result.verdicts.to_csv(p, index=False),
+            LAWS_WARNINGS_FILE: lambda p: warnings_frame(result.warnings).to_csv(p, index=False),
+            LAWS_REPORT_FILE: lambda p: p.write_text(result.to_markdown(), encoding="utf-8"),
+        },
+    )
 
 
 def warnings_from_evidence(evidence: pd.DataFrame) -> list[str]:
@@ -42,7 +106,7 @@ def warnings_from_evidence(evidence: pd.DataFrame) -> list[str]:
             which = ", ".join(f"{law} ({int(n)})" for law, n in zip(group["law"], group["n_high_k"]))
             out.append(
                 f"LOO UNRELIABLE in scope {scope}: junctions with high Pareto k in hypotheses {which}; "
-                "their ELPD terms are not trustworthy (the junctions are named in laws.md)"
+                f"their ELPD terms are not trustworthy (the junctions are named in {LAWS_REPORT_FILE})"
             )
     if "bf_method" in evidence:
         n = int((evidence["bf_method"] == "normal_approx").sum())
@@ -52,6 +116,14 @@ def warnings_from_evidence(evidence: pd.DataFrame) -> list[str]:
                 "tail of the draws): only their order of magnitude is meaningful"
             )
     return out
+
+
+def _read_scoped(path: Path) -> pd.DataFrame:
+    """A table with a ``scope`` column, the older scope name read as :data:`POPULATION`."""
+    frame = pd.read_csv(path)
+    if "scope" in frame:
+        frame["scope"] = frame["scope"].replace(OLD_POPULATION_SCOPE, POPULATION)
+    return frame
 
 
 @dataclass
@@ -77,9 +149,9 @@ class SavedComparison:
     notes: list[str] = field(default_factory=list)
 
     @property
-    def overall(self) -> pd.DataFrame:
-        """Rows of the overall scope."""
-        return self.evidence[self.evidence["scope"] == "overall"].reset_index(drop=True)
+    def population(self) -> pd.DataFrame:
+        """Rows of the population scope."""
+        return self.evidence[self.evidence["scope"] == POPULATION].reset_index(drop=True)
 
     def laws_table(self) -> pd.DataFrame:
         """The long form the law-comparison figure draws (every scope)."""
@@ -98,18 +170,18 @@ class SavedComparison:
         SavedComparison or None
         """
         folder = Path(folder)
-        names = (EVIDENCE_FILE, BY_TAXON_FILE, VERDICTS_FILE)
+        names = (LAWS_FILE, LAWS_BY_TAXON_FILE, LAWS_VERDICTS_FILE)
         if not all((folder / n).is_file() for n in names):
             return None
-        evidence, by_taxon, verdicts = (pd.read_csv(folder / n) for n in names)
+        evidence, by_taxon, verdicts = (_read_scoped(folder / n) for n in names)
         notes = []
-        if (folder / WARNINGS_FILE).is_file():
-            messages = pd.read_csv(folder / WARNINGS_FILE)
+        if (folder / LAWS_WARNINGS_FILE).is_file():
+            messages = pd.read_csv(folder / LAWS_WARNINGS_FILE)
             warnings = [str(m) for m in messages.get("message", pd.Series(dtype=str)).dropna()]
         else:
             warnings = warnings_from_evidence(evidence)
             notes.append(
                 f"The comparison's other warnings (e.g. diagnostics of the law fits) were not saved as a "
-                f"table ({WARNINGS_FILE}); read them in laws.md."
+                f"table ({LAWS_WARNINGS_FILE}); read them in {LAWS_REPORT_FILE}."
             )
         return cls(evidence=evidence, by_taxon=by_taxon, verdicts=verdicts, warnings=warnings, notes=notes)

@@ -12,14 +12,14 @@ from __future__ import annotations
 
 import contextlib
 import os
-import tempfile
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import IO
 
 import matplotlib
 import numpy as np
+
+from allobranch.io import atomic_write
 
 #: Millimetres per inch, for converting journal widths.
 MM_PER_INCH = 25.4
@@ -248,36 +248,6 @@ def figure(
         return plt.subplots(nrows, ncols, figsize=(w / MM_PER_INCH, h / MM_PER_INCH), **subplots_kw)
 
 
-def atomic_write(path: str | os.PathLike, write: Callable[[IO[bytes]], None]) -> Path:
-    """Write a file so that it either appears complete or not at all.
-
-    Parameters
-    ----------
-    path : str or os.PathLike
-        Destination; its directory must exist.
-    write : callable
-        Called with a binary file object opened on a temporary file in the destination directory.
-
-    Returns
-    -------
-    pathlib.Path
-        The destination path.
-    """
-    dest = Path(path)
-    if not dest.parent.is_dir():
-        raise FileNotFoundError(f"the output directory {str(dest.parent)!r} does not exist")
-    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}-", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            write(fh)
-        os.replace(tmp, dest)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
-    return dest
-
-
 def _metadata(fmt: str) -> dict | None:
     """File metadata without creation dates, so the same figure gives the same file."""
     if fmt == "pdf":
@@ -332,7 +302,7 @@ def save_figure(
             dest = stem.with_name(f"{stem.name}.{fmt}")
             written.append(
                 atomic_write(
-                    dest, lambda fh, fmt=fmt: fig.savefig(fh, format=fmt, dpi=dpi, metadata=_metadata(fmt))
+                    dest, lambda p, fmt=fmt: fig.savefig(p, format=fmt, dpi=dpi, metadata=_metadata(fmt))
                 )
             )
     return written

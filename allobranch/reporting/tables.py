@@ -6,8 +6,14 @@ from pathlib import Path
 
 import pandas as pd
 
+from allobranch.conventions import HDI_PROB, NAIVE_VS_MODEL_COLUMNS, hdi_label
+from allobranch.inference.diagnostics import BFMI_MIN, ESS_MIN, RHAT_MAX
+from allobranch.io import write_files
 from allobranch.reporting.attempts import attempts_sentence, attempts_table, parametrization_note
 from allobranch.reporting.html import CAUTION
+
+#: Table formats :func:`export_table` writes, by suffix.
+TABLE_FORMATS: tuple[str, ...] = ("csv", "md", "tex")
 
 #: Columns shown (and their number format) in published tables.
 _ROUND = {"mean": 3, "sd": 3, "hdi_low": 3, "hdi_high": 3, "r_hat": 3, "ess_bulk": 0, "ess_tail": 0}
@@ -34,27 +40,35 @@ def to_latex(df: pd.DataFrame, caption: str = "", label: str = "") -> str:
     )
 
 
-def export_table(
-    df: pd.DataFrame, stem: str | Path, formats: tuple[str, ...] = ("csv", "md", "tex")
-) -> list[Path]:
-    """Write ``df`` as ``stem.csv``, ``stem.md`` and/or ``stem.tex``."""
+def export_table(df: pd.DataFrame, stem: str | Path, formats: tuple[str, ...] = TABLE_FORMATS) -> list[Path]:
+    """Write ``df`` as ``stem.csv``, ``stem.md`` and/or ``stem.tex`` (all or nothing, atomically).
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+    stem : str or Path
+        Destination without suffix, in an existing folder.
+    formats : tuple of str
+        Any of :data:`TABLE_FORMATS`.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written, in the order of ``formats``.
+    """
+    writers = {
+        "csv": lambda p: df.to_csv(p, index=False),
+        "md": lambda p: p.write_text(to_markdown(df) + "\n", encoding="utf-8"),
+        "tex": lambda p: p.write_text(to_latex(df), encoding="utf-8"),
+    }
+    bad = [fmt for fmt in formats if fmt not in writers]
+    if bad:
+        raise ValueError(f"unknown table format(s) {bad}; use {', '.join(TABLE_FORMATS)}")
     stem = Path(stem)
-    paths = []
-    for fmt in formats:
-        path = stem.with_suffix(f".{fmt}")
-        if fmt == "csv":
-            df.to_csv(path, index=False)
-        elif fmt == "md":
-            path.write_text(to_markdown(df) + "\n", encoding="utf-8")
-        elif fmt == "tex":
-            path.write_text(to_latex(df), encoding="utf-8")
-        else:
-            raise ValueError(f"unknown table format {fmt!r}; use csv, md or tex")
-        paths.append(path)
-    return paths
+    return write_files(stem.parent, {f"{stem.name}.{fmt}": writers[fmt] for fmt in formats})
 
 
-def fit_summary_markdown(result, hdi_prob: float = 0.9) -> str:
+def fit_summary_markdown(result, hdi_prob: float = HDI_PROB) -> str:
     """The Markdown summary of a fit: warnings first, then data, exponents, variance, naive comparison."""
     t = result.table
     checks = result.sampler_checks()
@@ -65,8 +79,8 @@ def fit_summary_markdown(result, hdi_prob: float = 0.9) -> str:
         lines += [f"- {w}" for w in warnings] + [""]
     else:
         lines += [
-            "All convergence diagnostics passed (R-hat <= 1.01, bulk and tail ESS >= 400, "
-            "no divergences, E-BFMI >= 0.3).",
+            f"All convergence diagnostics passed (R-hat <= {RHAT_MAX}, bulk and tail ESS >= {ESS_MIN}, "
+            f"no divergences, E-BFMI >= {BFMI_MIN}).",
             "",
         ]
     for note in result.notes:
@@ -80,7 +94,7 @@ def fit_summary_markdown(result, hdi_prob: float = 0.9) -> str:
         f"- validation flags: {len(t.report.flags)}; excluded rows: {len(t.report.excluded)}",
         f"- measurement error: {result.settings.get('error_mode')}",
         "",
-        f"## Exponents (mean, SD, {int(hdi_prob * 100)} % HDI)",
+        f"## Exponents (mean, SD, {hdi_label(hdi_prob)})",
         "",
         to_markdown(result.exponents(hdi_prob).drop(columns=["ess_tail"])),
         "",
@@ -91,21 +105,7 @@ def fit_summary_markdown(result, hdi_prob: float = 0.9) -> str:
         "## Naive per-junction exponents beside the model (naive ignores measurement error and drops "
         "junctions without a root)",
         "",
-        to_markdown(
-            result.naive_vs_model(hdi_prob)[
-                [
-                    "taxon",
-                    "mean",
-                    "hdi_low",
-                    "hdi_high",
-                    "naive_median",
-                    "naive_q25",
-                    "naive_q75",
-                    "n_junctions",
-                    "n_no_root",
-                ]
-            ]
-        ),
+        to_markdown(result.naive_vs_model(hdi_prob)[list(NAIVE_VS_MODEL_COLUMNS)]),
         "",
         "## Sampler",
         "",

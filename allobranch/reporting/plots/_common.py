@@ -9,22 +9,8 @@ import pandas as pd
 from matplotlib.layout_engine import ConstrainedLayoutEngine
 from matplotlib.patches import Patch
 
+from allobranch.conventions import LEVELS, hdi_label
 from allobranch.reporting.style import law_styles
-
-#: Columns of an exponents table (one row per level x group).
-EXPONENT_COLUMNS: tuple[str, ...] = (
-    "level",
-    "group",
-    "taxon",
-    "mean",
-    "sd",
-    "hdi_low",
-    "hdi_high",
-    "r_hat",
-    "ess_bulk",
-)
-#: Allowed values of the exponents table's ``level`` column, top to bottom in a forest plot.
-LEVELS: tuple[str, ...] = ("population", "taxon", "specimen")
 
 #: Laws given as the comparison stage's table or as ``{label: exponent}``.
 LawsLike = pd.DataFrame | Mapping[str, float]
@@ -60,10 +46,7 @@ def check_levels(exponents: pd.DataFrame) -> None:
 
 def hdi_percent(table: pd.DataFrame) -> str:
     """The HDI probability of a table as a label such as ``"90% HDI"`` (``"HDI"`` when not recorded)."""
-    prob = table.attrs.get("hdi_prob")
-    if prob is None:
-        return "HDI"
-    return f"{100 * float(prob):.4g}% HDI"
+    return hdi_label(table.attrs.get("hdi_prob"))
 
 
 def law_values(laws: LawsLike | None) -> list[tuple[str, float]]:

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from allobranch.conventions import EXPONENT_FIGURE_COLUMNS, POPULATION
 from allobranch.reporting.plots._common import (
-    EXPONENT_COLUMNS,
     LawsLike,
     check_levels,
     draw_law_lines,
@@ -20,13 +20,13 @@ from allobranch.reporting.style import DATA_COLOR, house_style, new_axes
 
 #: Marker, marker size, error-bar width and colour of each level in the forest plot.
 LEVEL_STYLE: dict[str, dict] = {
-    "population": {"marker": "D", "ms": 5.0, "lw": 1.6, "color": "#000000"},
+    POPULATION: {"marker": "D", "ms": 5.0, "lw": 1.6, "color": "#000000"},
     "taxon": {"marker": "s", "ms": 4.0, "lw": 1.2, "color": "#333333"},
     "specimen": {"marker": "o", "ms": 3.0, "lw": 0.8, "color": "#777777"},
 }
 #: Tick-label look of each level: the hierarchy reads from weight and shade.
 TICK_STYLE: dict[str, dict] = {
-    "population": {"fontweight": "bold", "color": "#000000"},
+    POPULATION: {"fontweight": "bold", "color": "#000000"},
     "taxon": {"fontweight": "bold", "color": "#333333", "fontstyle": "normal"},
     "specimen": {"fontweight": "normal", "color": "#555555"},
 }
@@ -43,10 +43,10 @@ def _forest_order(exponents: pd.DataFrame) -> list[tuple[int, float, str]]:
     rows: list[tuple[int, float, str]] = []
     y = 0.0
     level = exponents["level"].astype(str)
-    for i in exponents.index[level == "population"]:
+    for i in exponents.index[level == POPULATION]:
         rows.append((i, y, str(exponents.at[i, "group"])))
         y += 1
-    taxa = list(dict.fromkeys(exponents.loc[level != "population", "taxon"].astype(str)))
+    taxa = list(dict.fromkeys(exponents.loc[level != POPULATION, "taxon"].astype(str)))
     for taxon in taxa:
         y += BLOCK_GAP if rows else 0.0
         in_taxon = exponents["taxon"].astype(str) == taxon
@@ -70,7 +70,7 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
     exponents : pandas.DataFrame
         Exponents table: one row per estimated exponent with columns ``level`` (``"population"``,
         ``"taxon"`` or ``"specimen"``), ``group`` (label shown), ``taxon`` (taxon the group belongs to;
-        ``"all"`` for the population), ``mean``, ``sd``, ``hdi_low``, ``hdi_high``, ``r_hat`` and
+        not read on the population row), ``mean``, ``sd``, ``hdi_low``, ``hdi_high``, ``r_hat`` and
         ``ess_bulk``; ``attrs["hdi_prob"]`` gives the interval's probability (e.g. 0.9).
     laws : pandas.DataFrame or mapping of str to float, optional
         Laws to mark with labelled vertical reference lines: the comparison stage's laws table (columns
@@ -89,15 +89,15 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
     Examples
     --------
     >>> import pandas as pd
-    >>> table = pd.DataFrame({"level": ["population", "taxon"], "group": ["all taxa", "A"],
-    ...                       "taxon": ["all", "A"], "mean": [2.6, 2.7], "sd": [0.1, 0.2],
+    >>> table = pd.DataFrame({"level": ["population", "taxon"], "group": ["population", "A"],
+    ...                       "taxon": ["population", "A"], "mean: [2.6, 2.7], "sd": [0.1, 0.2],
     ...                       "hdi_low": [2.4, 2.4], "hdi_high": [2.8, 3.0], "r_hat": [1.0, 1.0],
     ...                       "ess_bulk": [900.0, 800.0]})
     >>> ax = plot_exponents(table, laws={"Murray (a=3)": 3.0})
     >>> len(ax.get_yticklabels())
     2
     """
-    require_columns(exponents, EXPONENT_COLUMNS, "exponents")
+    require_columns(exponents, EXPONENT_FIGURE_COLUMNS, "exponents")
     check_levels(exponents)
     exponents = exponents.reset_index(drop=True)
     pairs = law_values(laws)

@@ -5,11 +5,12 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from allobranch.conventions import LAWS_TABLE_COLUMNS, POPULATION
 from allobranch.reporting.plots._common import padded_limits, require_columns
 from allobranch.reporting.style import SMALL_PT, TEXT_PT, figure, house_style, law_styles
 
-#: Columns of the laws table this plot reads.
-LAWS_COLUMNS: tuple[str, ...] = ("scope", "law", "value", "elpd_diff", "dse", "weight", "log10_bf", "p_rope")
+#: Columns of the laws table (:data:`~allobranch.conventions.LAWS_TABLE_COLUMNS`) this plot reads.
+LAWS_COLUMNS: tuple[str, ...] = tuple(c for c in LAWS_TABLE_COLUMNS if c != "elpd")
 #: Height of one law row and of a scope heading, in millimetres, when the figure is created here.
 ROW_MM = 8.0
 FRAME_MM = 28.0
@@ -44,11 +45,11 @@ def _clip(value: float, lo: float, hi: float) -> tuple[float, int]:
 
 
 def _rows(laws_table: pd.DataFrame) -> tuple[list[tuple[int, float]], list[tuple[str, float]]]:
-    """Law rows ``(index, y)`` and scope headings ``(scope, y)``; "overall" first, then by appearance."""
+    """Law rows ``(index, y)`` and scope headings ``(scope, y)``; the population first, then by appearance."""
     scopes = list(dict.fromkeys(laws_table["scope"].astype(str)))
-    if "overall" in scopes:
-        scopes.remove("overall")
-        scopes.insert(0, "overall")
+    if POPULATION in scopes:
+        scopes.remove(POPULATION)
+        scopes.insert(0, POPULATION)
     rows, headings = [], []
     y = 0.0
     for scope in scopes:
@@ -147,7 +148,7 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
     Parameters
     ----------
     laws_table : pandas.DataFrame
-        One row per hypothesis with ``scope`` (``"overall"`` or a taxon label), ``law`` (label),
+        One row per hypothesis with ``scope`` (``"population"`` or a taxon label), ``law`` (label),
         ``value`` (exponent; NaN for the free model), ``elpd``, ``elpd_diff`` (difference to the best model
         of the same scope as reported by :func:`arviz.compare`: 0 for the best, positive for worse),
         ``dse`` (standard error of that difference), ``weight`` (stacking weight), ``log10_bf`` (log10
@@ -160,7 +161,7 @@ def plot_law_comparison(laws_table: pd.DataFrame, axes=None):
     Returns
     -------
     numpy.ndarray of matplotlib.axes.Axes
-        The two axes. Rows are grouped by scope (``"overall"`` first) under a heading; each ELPD point is
+        The two axes. Rows are grouped by scope (``"population"`` first) under a heading; each ELPD point is
         annotated with its stacking weight (``w``) and each Bayes factor with ``P(ROPE)`` (``P``). The
         free model has no Bayes factor against itself and is marked "reference". ELPD losses above
         :data:`ELPD_DIFF_MAX` and log10 Bayes factors outside :data:`LOG10_BF_LIMITS` are drawn hollow at

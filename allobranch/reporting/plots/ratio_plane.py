@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from allobranch.conventions import EXPONENT_FIGURE_COLUMNS, POPULATION
 from allobranch.geometry.curves import iso_exponent_band, iso_exponent_curve, symmetric_ratio
 from allobranch.reporting.plots._common import (
-    EXPONENT_COLUMNS,
     LawsLike,
     hdi_percent,
     law_values,
@@ -43,8 +43,8 @@ def _flags(geometry: pd.DataFrame) -> np.ndarray:
 
 
 def _population_hdi(exponents: pd.DataFrame) -> tuple[float, float]:
-    require_columns(exponents, EXPONENT_COLUMNS, "exponents")
-    pop = exponents[exponents["level"].astype(str) == "population"]
+    require_columns(exponents, EXPONENT_FIGURE_COLUMNS, "exponents")
+    pop = exponents[exponents["level"].astype(str) == POPULATION]
     if len(pop) != 1:
         raise ValueError(f"the exponents table must have exactly one population row; it has {len(pop)}")
     lo, hi = float(pop["hdi_low"].iloc[0]), float(pop["hdi_high"].iloc[0])
