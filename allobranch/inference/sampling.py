@@ -165,6 +165,8 @@ def sample_once(
         try:
             return _sample_fast(data, spec, lay, arrays, {**kwargs, "cores": cores}), "nutpie", notes
         except Exception as exc:  # noqa: BLE001 - any failure of the fast path falls back, loudly
+            if data.linear is not None:  # PyMC's model has no covariates, traits or tree: never swap models
+                raise
             warnings.warn(
                 f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2
             )

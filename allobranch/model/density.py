@@ -25,7 +25,7 @@ gains the Jacobian ``-log(P)/2``.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numba as nb
 import numpy as np
@@ -226,8 +226,11 @@ def pack(
     w_t = np.where(fixed_t, 0.0, np.clip(np.broadcast_to(w_taxon, n_taxa) if taxon_level else 0.0, 0, 1))
     w_s = np.where(pinned, 0.0, np.clip(np.broadcast_to(w_specimen, n_spec) if specimen_level else 0.0, 0, 1))
     lin = linear if linear is not None and not linear.empty else None
-    if lin is not None and lin.phylo and (not taxon_level or fixed_t.any()):
-        raise ValueError("a phylogeny needs the taxon level and no taxon with a fixed exponent")
+    if lin is not None and lin.phylo and not taxon_level:  # no taxon deviations to correlate
+        lin = replace(lin, eig_vectors=None, eig_values=None)
+        lin = None if lin.empty else lin
+    if lin is not None and lin.phylo and fixed_t.any():
+        raise ValueError("under a tree no taxon's exponent can be fixed on its own")
     white = (whiten is not None and mu_free and (taxon_level or specimen_level)) or lin is not None
     if white and whiten is None:
         whiten = (np.zeros(n_spec), np.zeros(n_spec))
