@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from allobranch.cli.model_options import add_comparative_arguments, comparative_table, spec_fields
 from allobranch.cli.options import add_mapping_arguments, table_from_args
 from allobranch.conventions import FIT_FILES, HDI_PROB, hdi_label
 from allobranch.io import prepare_output_dir
@@ -132,6 +133,7 @@ def spec_from_args(args: argparse.Namespace) -> ModelSpec:
         parametrization=args.parametrization,
         taxon_level=args.taxon_level,
         specimen_level=args.specimen_level,
+        **(spec_fields(args) if hasattr(args, "covariate") else {}),
     )
 
 
@@ -165,7 +167,7 @@ def fit_and_write(table, args: argparse.Namespace, out) -> object:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch fit``."""
-    table = table_from_args(args)
+    table = comparative_table(args, table_from_args(args))
     fit_and_write(table, args, args.out)
     return 0
 
@@ -180,5 +182,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     add_mapping_arguments(parser)
     parser.add_argument("--out", metavar="DIR", required=True, help="folder for the results")
+    add_comparative_arguments(parser)
     add_sampler_arguments(parser)
     parser.set_defaults(func=run)

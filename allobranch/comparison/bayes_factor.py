@@ -76,6 +76,16 @@ CAVEAT = (
 
 
 @dataclass(frozen=True)
+class TaxonPrior:
+    """What a taxon's marginal prior needs beyond the priors' scales: the prior variance its traits add
+    (``sum_k g_k^2 c_k^2``), its diagonal of the scaled tree covariance, and whether a tree is used."""
+
+    trait_var: float = 0.0
+    tree_diag: float = 1.0
+    phylo: bool = False
+
+
+@dataclass(frozen=True)
 class SavageDickey:
     """One Savage–Dickey Bayes factor.
 
@@ -104,28 +114,46 @@ def log_prior_mu(value: float, priors: Priors) -> float:
     return float(stats.norm.logpdf(value, priors.mu_mean, priors.mu_sd))
 
 
-def log_prior_taxon(value: float, priors: Priors, *, seed: int = 0, n_draws: int = PRIOR_DRAWS) -> float:
+def log_prior_taxon(
+    value: float,
+    priors: Priors,
+    *,
+    seed: int = 0,
+    n_draws: int = PRIOR_DRAWS,
+    terms: TaxonPrior | None = None,
+) -> float:
     """Log prior density of one taxon's exponent at ``value`` in the hierarchical model.
 
-    ``a_taxon ~ Normal(mu, tau)``, ``mu ~ Normal(m, s)``, ``tau ~ HalfNormal(t)``. ``mu`` is integrated out
-    exactly (``a_taxon | tau ~ Normal(m, sqrt(s^2 + tau^2))``) and the result averaged over Monte-Carlo
-    draws of ``tau`` from its prior.
+    ``a_taxon = mu + g . gamma + u``, ``mu ~ Normal(m, s)``, trait slopes ``gamma_k ~ Normal(0, c_k)`` (the
+    taxon's centred traits ``g``), and ``u ~ Normal(0, tau^2 (lambda C_tt + 1 - lambda))`` with
+    ``tau ~ HalfNormal(t)``, ``lambda ~ Uniform(0, 1)`` under a tree (``C_tt``: the taxon's diagonal of the
+    scaled tree covariance) and ``lambda = 0`` without one. Given ``tau`` and ``lambda`` the sum is normal
+    (exact: independent normal terms), ``Normal(m, s^2 + sum g_k^2 c_k^2 + tau^2 (lambda C_tt + 1 -
+    lambda))``; ``tau`` and ``lambda`` are integrated by Monte Carlo from their priors. The marginal prior of
+    one taxon is all the Savage-Dickey ratio needs: the tree correlates taxa, but each taxon's own prior is
+    this mixture.
 
     Parameters
     ----------
     value : float
     priors : Priors
     seed : int
-        Seed of the ``tau`` draws.
+        Seed of the ``tau`` (and ``lambda``) draws.
     n_draws : int
-        Number of ``tau`` draws.
+        Number of draws.
+    terms : TaxonPrior, optional
+        The taxon's trait variance and tree diagonal (none: independent taxa, no traits).
 
     Returns
     -------
     float
     """
-    tau = np.abs(np.random.default_rng(seed).standard_normal(n_draws)) * priors.tau_taxon
-    logs = stats.norm.logpdf(value, priors.mu_mean, np.sqrt(priors.mu_sd**2 + tau**2))
+    terms = terms or TaxonPrior()
+    rng = np.random.default_rng(seed)
+    tau = np.abs(rng.standard_normal(n_draws)) * priors.tau_taxon
+    lam = rng.uniform(size=n_draws) if terms.phylo else np.zeros(n_draws)
+    var = priors.mu_sd**2 + terms.trait_var + tau**2 * (lam * terms.tree_diag + 1.0 - lam)
+    logs = stats.norm.logpdf(value, priors.mu_mean, np.sqrt(var))
     return float(logsumexp(logs) - np.log(n_draws))
 
 
@@ -222,10 +250,12 @@ def _parameter_draws(posterior, taxon: str | None) -> np.ndarray:
     return posterior["a_taxon"].sel(taxon=taxon).values.ravel()
 
 
-def _log_prior(value: float, priors: Priors, taxon: str | None, hierarchical: bool, seed: int) -> float:
+def _log_prior(
+    value: float, priors: Priors, taxon: str | None, hierarchical: bool, seed: int, terms: TaxonPrior | None
+) -> float:
     if taxon is None or not hierarchical:
         return log_prior_mu(value, priors)
-    return log_prior_taxon(value, priors, seed=seed)
+    return log_prior_taxon(value, priors, seed=seed, terms=terms)
 
 
 def bayes_factor_table(
@@ -236,6 +266,7 @@ def bayes_factor_table(
     *,
     include_population: bool = True,
     seed: int = 0,
+    taxon_priors: dict[str, TaxonPrior] | None = None,
 ) -> tuple[pd.DataFrame, list[str]]:
     """Savage–Dickey Bayes factors of every law, per scope, with their prior sensitivity.
 
@@ -252,6 +283,8 @@ def bayes_factor_table(
         Test the population exponent ``mu`` (scope ``"population"``).
     seed : int
         Seed of the prior Monte-Carlo draws.
+    taxon_priors : dict, optional
+        Each taxon's :class:`TaxonPrior` when the model has traits or a tree.
 
     Returns
     -------
@@ -277,8 +310,11 @@ def bayes_factor_table(
     rows = []
     for taxon in scopes:
         draws = _parameter_draws(post, taxon)
+        terms = (taxon_priors or {}).get(str(taxon)) if taxon is not None else None
         for law in laws:
-            base = savage_dickey(draws, law.value, _log_prior(law.value, priors, taxon, hierarchical, seed))
+            base = savage_dickey(
+                draws, law.value, _log_prior(law.value, priors, taxon, hierarchical, seed, terms)
+            )
             row = {
                 "scope": POPULATION if taxon is None else str(taxon),
                 "law": law.label,
@@ -288,7 +324,7 @@ def bayes_factor_table(
             }
             for key, (new, lw) in weights.items():
                 alt = savage_dickey(
-                    draws, law.value, _log_prior(law.value, new, taxon, hierarchical, seed), lw
+                    draws, law.value, _log_prior(law.value, new, taxon, hierarchical, seed, terms), lw
                 )
                 row[f"log10_bf_{key}"] = alt.log10_bf
             rows.append(row)

@@ -8,6 +8,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from allobranch.comparative.summaries import covariate_summary, reference_text
 from allobranch.conventions import (
     DIAGNOSTICS_FILE,
     EXPONENT_COLUMNS,
@@ -22,6 +23,10 @@ from allobranch.io import prepare_output_dir, write_files
 from allobranch.reporting.tables import fit_summary_markdown
 
 __all__ = ["FIT_FILES", "hdi_prob_of", "write_fit_outputs"]
+
+#: Slopes of covariates and traits (written when the model has any; columns
+#: :data:`allobranch.comparative.summaries.COVARIATE_COLUMNS`).
+COVARIATES_FILE = "covariates.csv"
 
 
 def hdi_prob_of(result, hdi_prob: float | None = None) -> float:
@@ -73,14 +78,20 @@ def write_fit_outputs(
     list of pathlib.Path
         The files written.
     """
-    out = prepare_output_dir(out, list(FIT_FILES), force=force)
     hdi_prob = hdi_prob_of(result, hdi_prob)
+    covs = covariate_summary(result, hdi_prob)
+    out = prepare_output_dir(out, list(FIT_FILES) + ([COVARIATES_FILE] if len(covs) else []), force=force)
     saved = dataclasses.replace(result, settings={**result.settings, "hdi_prob": hdi_prob})
     exps = result.exponents(hdi_prob)[list(EXPONENT_COLUMNS)]
+    at = reference_text(result)
+    if at:  # where the exponents hold when the model has covariates
+        exps["covariates_at"] = at
     diag = diagnostics_with_sampler(result)
+    extra = {COVARIATES_FILE: lambda p: covs.to_csv(p, index=False)} if len(covs) else {}
     return write_files(
         out,
         {
+            **extra,
             EXPONENTS_FILE: lambda p: exps.to_csv(p, index=False),
             VARIANCE_FILE: lambda p: result.variance_components(hdi_prob).to_csv(p, index=False),
             DIAGNOSTICS_FILE: lambda p: diag.to_csv(p, index=False),
