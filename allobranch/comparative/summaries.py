@@ -108,3 +108,72 @@ def reference_text(result) -> str:
     covariates)."""
     refs = {k: v for k, v in reference_values(result).items() if not k.startswith("trait:")}
     return ", ".join(f"{k} = {v:.4g}" for k, v in refs.items())
+
+
+def exponent_curve(
+    result, covariate: str, *, taxon: str | None = None, n_grid: int = 60, hdi_prob: float = 0.9
+) -> pd.DataFrame:
+    """The exponent along one covariate, other covariates at their reference values, with its HDI band.
+
+    Parameters
+    ----------
+    result : FitResult
+        A fit with the covariate.
+    covariate : str
+    taxon : str, optional
+        Draw that taxon's exponent (its own slope when slopes vary by taxon); the population exponent
+        otherwise.
+    n_grid : int
+        Points along the observed range of the covariate.
+    hdi_prob : float
+        Probability of the band (ArviZ HDI at every grid point).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``x``, ``mean``, ``hdi_low``, ``hdi_high``; ``attrs`` hold ``covariate``, ``reference``,
+        ``group`` and ``hdi_prob``.
+    """
+    import arviz as az
+
+    from allobranch.model.linear import covariate_values
+
+    post = result.idata.posterior
+    k = [str(c) for c in post["covariate"].values].index(covariate)
+    ref = reference_values(result)[covariate]
+    values = covariate_values(result.table, covariate)
+    grid = np.linspace(values.min(), values.max(), n_grid)
+    if taxon is None:
+        level = post["mu"].values.reshape(-1)
+        slope = post["beta"].values[..., k].reshape(-1)
+    else:
+        level = post["a_taxon"].sel(taxon=taxon).values.reshape(-1)
+        src = post["beta_taxon"].sel(taxon=taxon) if "beta_taxon" in post else post["beta"]
+        slope = src.values[..., k].reshape(-1)
+    draws = level[:, None] + slope[:, None] * (grid[None, :] - ref)
+    band = np.array([az.hdi(draws[:, i], hdi_prob=hdi_prob) for i in range(n_grid)])
+    out = pd.DataFrame({"x": grid, "mean": draws.mean(axis=0), "hdi_low": band[:, 0], "hdi_high": band[:, 1]})
+    out.attrs.update(covariate=covariate, reference=ref, group=taxon or "population", hdi_prob=hdi_prob)
+    return out
+
+
+def junction_points(result, covariate: str) -> pd.DataFrame:
+    """Every junction's covariate value and naive exponent (the root of ``r0^a = sum ri^a`` from the
+    readings alone), for plotting beside the model's curve.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``taxon``, ``x``, ``naive_exponent`` (NaN where the readings have no root).
+    """
+    from allobranch.geometry.exponent import junction_geometry
+    from allobranch.model.linear import covariate_values
+
+    geo = junction_geometry(result.table)
+    return pd.DataFrame(
+        {
+            "taxon": geo["taxon"].astype(str).to_numpy(),
+            "x": covariate_values(result.table, covariate),
+            "naive_exponent": geo["exponent"].to_numpy(dtype=float),
+        }
+    )

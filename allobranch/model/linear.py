@@ -211,3 +211,27 @@ def build_linear_terms(table, data, spec) -> LinearTerms | None:
     lin.beta_sd, lin.tau_beta_scale = slope_prior_scales(X + np.asarray(refs)) if cols else (np.zeros(0),) * 2
     lin.gamma_sd = slope_prior_scales(traits)[0] if spec.traits else np.zeros(0)
     return None if lin.empty else lin
+
+
+def junction_exponents_at(
+    post, chain: int, draw: int, specimen_idx: np.ndarray, taxon_idx: np.ndarray, X: np.ndarray | None
+) -> np.ndarray:
+    """Every junction's exponent at one posterior draw: its specimen's exponent plus the covariate terms.
+
+    Parameters
+    ----------
+    post : xarray.Dataset
+        Posterior with ``a_specimen`` and, with covariates, ``beta`` or ``beta_taxon``.
+    chain, draw : int
+    specimen_idx, taxon_idx : ndarray of int (n,)
+    X : ndarray (n, p) or None
+        Covariates minus their reference values (:attr:`LinearTerms.covariates`).
+    """
+    a = np.asarray(post["a_specimen"].values[chain, draw], dtype=float)[specimen_idx]
+    if X is None or X.shape[1] == 0 or "beta" not in post:
+        return a
+    if "beta_taxon" in post:
+        slopes = np.asarray(post["beta_taxon"].values[chain, draw], dtype=float)[taxon_idx]
+    else:
+        slopes = np.broadcast_to(np.asarray(post["beta"].values[chain, draw], dtype=float), X.shape)
+    return a + np.einsum("jk,jk->j", X, slopes)

@@ -27,6 +27,7 @@ from scipy.special import logsumexp
 
 from allobranch.model.data import model_data
 from allobranch.model.kernel import S2_FLOOR
+from allobranch.model.linear import build_linear_terms, junction_exponents_at
 
 #: The checks, in the order they are reported, with a label for tables and axes.
 CHECKS: dict[str, str] = {
@@ -135,8 +136,10 @@ def ppc_checks(result, n_draws: int = PPC_DRAWS, seed: int = 0) -> pd.DataFrame:
     known = float(data.rel_error or 0.0)
     frames = [_frame("split", taxon, junction, "observed", -1, _split(data.log_daughters, data.mask))]
     pairs = _draw_index(post.sizes["chain"], post.sizes["draw"], n_draws)
+    lin = build_linear_terms(result.table, data, result.spec)
+    X = lin.covariates if lin is not None else None
     for k, (c, d) in enumerate(pairs):
-        a = np.asarray(post["a_specimen"].values[c, d], dtype=float)[data.specimen_idx]
+        a = junction_exponents_at(post, c, d, data.specimen_idx, data.taxon_idx, X)
         rel_error = float(post["rel_error"].values[c, d]) if "rel_error" in post else known
         nu = float(post["nu"].values[c, d]) if student and "nu" in post else (30.0 if student else None)
         sasym = _asymmetry_scale(result, post, c, d, data.taxon_idx, taxa)

@@ -98,6 +98,7 @@ def make_figures(
         fig, ax = figure(width=width, aspect=0.75)
         plot_naive_vs_model(result.naive_vs_model(), laws=laws, ax=ax)
         figs["naive_vs_model"] = fig
+        figs.update(comparative_figures(result, laws, width=width))
     if checks is None:
         checks = ppc_checks(result, seed=int(result.settings.get("seed", 0)))
     if pvalues is None:
@@ -107,6 +108,32 @@ def make_figures(
     if laws_table is not None:
         figs["law_comparison"] = _figure_of(plot_law_comparison(laws_table))
     figs["diagnostics"] = _figure_of(plot_diagnostics(result.idata, result.checked_parameters()[:4]))
+    return figs
+
+
+def comparative_figures(result, laws, *, width: str = "single") -> dict:
+    """``covariate_<name>`` (the exponent along each covariate, with the junctions and the laws) and
+    ``tree_exponents`` (taxon exponents beside the tree) when the fit has covariates or a tree."""
+    from allobranch.comparative.summaries import exponent_curve, junction_points
+    from allobranch.reporting.plots.covariate import plot_exponent_curve
+    from allobranch.reporting.plots.phylogeny import plot_tree_exponents
+
+    figs = {}
+    post = result.idata.posterior
+    hdi_prob = float(result.settings.get("hdi_prob", 0.9))
+    if "beta" in post:
+        for name in map(str, post["covariate"].values):
+            fig, ax = figure(width=width, aspect=0.8)
+            curve = exponent_curve(result, name, hdi_prob=hdi_prob)
+            plot_exponent_curve(curve, junction_points(result, name), laws, ax=ax)
+            figs[f"covariate_{name}"] = fig
+    tree = result.settings.get("phylogeny")
+    if tree:
+        tips = list(tree["tips"])
+        fig = plt.figure(figsize=(7.0, 1.0 + 0.22 * len(tips)), layout="constrained")
+        axes = fig.subplots(1, 2, sharey=True, gridspec_kw={"width_ratios": [1, 1.4]})
+        plot_tree_exponents(tree["segments"], tips, result.exponents(hdi_prob), laws, axes=axes)
+        figs["tree_exponents"] = fig
     return figs
 
 

@@ -273,6 +273,8 @@ class ReportParts:
     check_figures: Mapping[str, FigureLike] | None = None
     exponents: pd.DataFrame | None = None
     naive: pd.DataFrame | None = None
+    covariates: pd.DataFrame | None = None
+    covariates_text: str = ""
     exponent_figures: Mapping[str, FigureLike] | None = None
     warnings: Sequence[str | WarningGroup] = ()
     warning_notes: Sequence[str] = ()
@@ -335,6 +337,8 @@ def render_report(parts: ReportParts) -> str:
             "check_figures": figure_views(parts.check_figures),
             "exponents": table_view(parts.exponents, scroll=True),
             "naive": table_view(parts.naive, scroll=True),
+            "covariates": table_view(parts.covariates, scroll=True),
+            "covariates_text": parts.covariates_text,
             "exponent_figures": figure_views(parts.exponent_figures),
         },
         "warning_groups": groups,
@@ -379,7 +383,7 @@ def write_html_report(path: str | os.PathLike, parts: ReportParts | None = None,
 
         ``title``; ``answer`` (the answer table: one row per estimate with its interval and verdict),
         ``answer_figure`` (``{caption: figure}``, shown beside it), ``answer_notes``, ``answer_heading``;
-        ``laws`` (law comparison of the overall scope), ``laws_all_scopes`` (every scope, folded),
+        ``laws`` (law comparison of the population scope), ``laws_all_scopes`` (every scope, folded),
         ``verdicts`` (scope, verdict, reason), ``verdict_rule``, ``law_figures``, ``no_laws`` (shown when
         there is no comparison); ``checks`` (posterior predictive p-values), ``checks_text``,
         ``check_figures``; ``exponents``, ``naive``, ``exponent_figures``; ``warnings`` (strings, grouped by

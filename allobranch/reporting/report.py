@@ -15,6 +15,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import pandas as pd
 
+from allobranch.comparative.summaries import covariate_summary, reference_text
 from allobranch.comparison.verdict import VERDICT_RULE
 from allobranch.conventions import NAIVE_VS_MODEL_COLUMNS, POPULATION, hdi_label
 from allobranch.inference.diagnostics import ESS_MIN, RHAT_MAX
@@ -71,6 +72,25 @@ EVIDENCE_SHOWN: tuple[str, ...] = (
     "p_rope",
     "n_high_k",
 )
+
+
+def covariates_sentence(result) -> str:
+    """What the covariate and tree terms mean, for the report ('' without them)."""
+    parts = []
+    at = reference_text(result)
+    if at:
+        parts.append(
+            f"Each junction's exponent is its specimen's exponent plus a slope times the covariate's distance "
+            f"from its reference value; the specimen, taxon and population exponents hold at {at}."
+        )
+    tree = result.settings.get("phylogeny")
+    if tree:
+        pruned = f"; tips without junctions pruned: {', '.join(tree['pruned'])}" if tree.get("pruned") else ""
+        parts.append(
+            f"Taxon exponents are correlated along the tree in {tree['source']} (Brownian motion scaled by "
+            f"Pagel's lambda, estimated; see the variance table){pruned}."
+        )
+    return " ".join(parts)
 
 
 def methods_paragraph(result, hdi_prob: float | None = None) -> str:
@@ -246,7 +266,9 @@ def build_report(
     answer_notes = [
         f"Exponent a: posterior mean and {label} (highest-density interval) of the hierarchical "
         "model, which accounts for measurement error."
+        + (f" Exponents hold at {reference_text(result)}." if reference_text(result) else "")
     ]
+    covs = covariate_summary(result, hdi_prob_of(result, None))
     answer_notes.append(
         "Verdict: a law, 'none' (of the laws compared) or 'undecided', by the decision rule under Evidence."
         if laws is not None
@@ -288,7 +310,22 @@ def build_report(
             },
             exponents=rounded(exponents),
             naive=rounded(result.naive_vs_model(hdi_prob)[list(NAIVE_VS_MODEL_COLUMNS)]),
-            exponent_figures={"Naive per-junction exponents beside the model": figs["naive_vs_model"]},
+            covariates=rounded(covs) if len(covs) else None,
+            covariates_text=covariates_sentence(result),
+            exponent_figures={
+                "Naive per-junction exponents beside the model": figs["naive_vs_model"],
+                **{
+                    f"Exponent along {name[len('covariate_') :]}: population curve with its interval, "
+                    "junctions' naive exponents (grey), classic laws; dotted line: the reference value": fig
+                    for name, fig in figs.items()
+                    if name.startswith("covariate_")
+                },
+                **(
+                    {"Taxon exponents beside the taxa's tree": figs["tree_exponents"]}
+                    if "tree_exponents" in figs
+                    else {}
+                ),
+            },
             warnings=warnings,
             warning_notes=[*result.notes, *getattr(laws, "notes", [])],
             attempts=attempts_table(s),

@@ -82,8 +82,9 @@ def law_values(laws: LawsLike | None) -> list[tuple[str, float]]:
     return sorted(((label, value) for value, label in seen.items()), key=lambda pair: pair[1])
 
 
-def draw_law_lines(ax, laws: list[tuple[str, float]]) -> None:
-    """Draw a labelled vertical reference line at each law's exponent.
+def draw_law_lines(ax, laws: list[tuple[str, float]], *, horizontal: bool = False) -> None:
+    """Draw a labelled reference line at each law's exponent (vertical; horizontal when the exponent is on
+    the y axis).
 
     Parameters
     ----------
@@ -91,11 +92,13 @@ def draw_law_lines(ax, laws: list[tuple[str, float]]) -> None:
         Target axes.
     laws : list of (str, float)
         Output of :func:`law_values`.
+    horizontal : bool
+        Draw horizontal lines.
     """
     styles = law_styles([v for _, v in laws])
     for label, value in laws:
         st = styles[value]
-        ax.axvline(
+        (ax.axhline if horizontal else ax.axvline)(
             value,
             color=st.color,
             linestyle=st.linestyle,
