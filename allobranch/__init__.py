@@ -30,6 +30,11 @@ _LAZY = {
     "ModelSpec": "allobranch.model.spec",
     "Priors": "allobranch.model.spec",
     "simulate_junctions": "allobranch.model.simulate",
+    "Design": "allobranch.planning.design",
+    "simulate": "allobranch.planning.design",
+    "plan_study": "allobranch.planning.plan",
+    "calibrate": "allobranch.planning.calibrate",
+    "Engine": "allobranch.engine",
     "FitResult": "allobranch.inference.results",
     "fit": "allobranch.inference.fit",
     # law comparison

@@ -370,13 +370,13 @@ def compare_laws(
         scope for scope in [POPULATION, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)
     ]
     for scope in scope_names:
-        per_scope[scope] = {FREE: free.idata}
+        per_scope[scope] = {FREE: free}  # fits, so LOO can recompute a saved fit's log-likelihood
         for law in laws:
             result = fits[(scope, law.label)]
             message = _law_fit_warning(result, law.label, scope)
             if message:
                 warnings.append(message)
-            per_scope[scope][law.label] = result.idata
+            per_scope[scope][law.label] = result
     if "taxon" in scopes and len(taxa) == 1:
         per_scope[taxa[0]] = per_scope[POPULATION]
         warnings.append(f"one taxon ({taxa[0]}): its comparison is the population one (same models)")

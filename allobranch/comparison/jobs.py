@@ -1,30 +1,32 @@
 """The comparison's job plan: every (scope, law) fit is a plain, picklable job with its own seed.
 
 A job's seed is derived from the user's seed and the job's key (scope and law label) only, so results do not
-depend on which scopes were asked for, on the order the jobs run in, or on how many workers run them. Jobs
-run through any ``concurrent.futures``-style executor: local worker processes by default, or one the caller
-passes (for example a distributed engine's executor).
+depend on which scopes were asked for, on the order the jobs run in, or on how many or what kind of workers
+run them. Jobs run through :mod:`allobranch.engine`: local worker processes by default, an executor the
+caller passes, or a Dask distributed cluster (a client or a scheduler's address).
 """
 
 from __future__ import annotations
 
-import multiprocessing
 import os
 import sys
 import zlib
 from collections.abc import Callable, Sequence
-from concurrent.futures import Executor, ProcessPoolExecutor
+from concurrent.futures import Executor
 from dataclasses import dataclass
-
-import numpy as np
+from functools import partial
 
 from allobranch.comparison.laws import FREE, Law, hypothesis_spec
+from allobranch.conventions import POPULATION
+from allobranch.engine import Engine, JobsFailed, default_workers, derived_seed, failures, run  # noqa: F401
 from allobranch.inference.results import FitResult
 from allobranch.intake.table import JunctionTable
 from allobranch.model.spec import ModelSpec
 
-#: Scope label of fits that fix every taxon (or of the free fit, which serves every scope).
-OVERALL = "population"
+#: Scope label of the fits that fix every taxon's exponent (and of the free fit, which serves every scope).
+POPULATION_SCOPE = POPULATION
+#: Deprecated alias of :data:`POPULATION_SCOPE`, kept for one release.
+OVERALL = POPULATION_SCOPE
 
 
 @dataclass(frozen=True)
@@ -34,7 +36,8 @@ class FitJob:
     Attributes
     ----------
     scope : str
-        ``"overall"`` or a taxon label (the free model's job has scope ``"overall"`` and law ``"free"``).
+        :data:`POPULATION_SCOPE` or a taxon label (the free model's job has the population scope and law
+        ``"free"``).
     law : str
         A law's label, or ``"free"``.
     value : float or None
@@ -56,7 +59,7 @@ class FitJob:
         """The model specification of this job, derived from the free model's."""
         if self.value is None:
             return free
-        return hypothesis_spec(free, self.value, None if self.scope == OVERALL else self.scope)
+        return hypothesis_spec(free, self.value, None if self.scope == POPULATION_SCOPE else self.scope)
 
 
 def job_seed(seed: int, scope: str, law: str) -> int:
@@ -66,8 +69,7 @@ def job_seed(seed: int, scope: str, law: str) -> int:
     """
     if law == FREE:
         return int(seed)
-    words = [int(seed), zlib.crc32(scope.encode()), zlib.crc32(law.encode())]
-    return int(np.random.SeedSequence(words).generate_state(1)[0] % (2**31 - 1))
+    return derived_seed(int(seed), zlib.crc32(scope.encode()), zlib.crc32(law.encode()))
 
 
 def plan_jobs(
@@ -75,12 +77,13 @@ def plan_jobs(
 ) -> list[FitJob]:
     """Every fit a comparison needs: the free model (unless given), then each law per scope.
 
-    With one taxon the taxon scope is the overall one (the same models), so it adds no jobs.
+    With one taxon the taxon scope is the population one (the same models), so it adds no jobs.
     """
-    jobs = [FitJob(OVERALL, FREE, None, job_seed(seed, OVERALL, FREE))] if include_free else []
+    top = POPULATION_SCOPE
+    jobs = [FitJob(top, FREE, None, job_seed(seed, top, FREE))] if include_free else []
     wanted = []
-    if OVERALL in scopes or len(taxa) == 1:
-        wanted.append(OVERALL)
+    if top in scopes or len(taxa) == 1:
+        wanted.append(top)
     if "taxon" in scopes and len(taxa) > 1:
         wanted += list(taxa)
     for scope in wanted:
@@ -95,11 +98,6 @@ def run_job(table: JunctionTable, free_spec: ModelSpec, job: FitJob, sampler_kw:
     return fit(table, job.spec(free_spec), **{**sampler_kw, "seed": job.seed})
 
 
-def default_workers(n_jobs: int) -> int:
-    """Worker processes by default: one per processor core, at most one per job."""
-    return max(1, min(n_jobs, os.cpu_count() or 1))
-
-
 def run_jobs(
     table: JunctionTable,
     free_spec: ModelSpec,
@@ -109,6 +107,7 @@ def run_jobs(
     workers: int | None = None,
     executor: Executor | None = None,
     log: Callable[[str], None] | None = None,
+    engine: Engine | None = None,
 ) -> dict[tuple[str, str], FitResult]:
     """Run the jobs and return their fits by key.
 
@@ -121,60 +120,50 @@ def run_jobs(
     sampler_kw : dict
         Sampler settings of every fit (draws, tune, chains, sampler, target_accept, ...).
     workers : int, optional
-        Local worker processes (default :func:`default_workers`); 1 runs the jobs in this process.
-    executor : concurrent.futures.Executor, optional
-        Run the jobs on this executor instead (its ``submit`` must accept top-level functions).
+        Local worker processes (default :func:`~allobranch.engine.default_workers`); 1 runs the jobs in this
+        process.
+    executor : concurrent.futures.Executor or distributed.Client, optional
+        Run the jobs on this executor (or Dask cluster) instead.
     log : callable, optional
-        Called with one line per finished job.
+        Called with one progress line per finished job.
+    engine : Engine, optional
+        Where to run the jobs (instead of ``workers`` / ``executor``), e.g. ``Engine(scheduler=ADDRESS)``.
 
     Returns
     -------
     dict
         ``(scope, law) -> FitResult``.
-    """
-    log = log or (lambda message: None)
-    results: dict[tuple[str, str], FitResult] = {}
-    n = len(jobs)
-    if not jobs:
-        return results
-    workers = default_workers(n) if workers is None else max(1, int(workers))
-    if executor is None and workers == 1:
-        for i, job in enumerate(jobs):
-            results[job.key] = run_job(table, free_spec, job, sampler_kw)
-            log(f"{i + 1}/{n} done: {job.law} ({job.scope})")
-        return results
-    own = executor is None
-    if own:
-        cores = max(1, (os.cpu_count() or 1) // workers)
-        sampler_kw = {**sampler_kw, "cores": cores}
-        executor = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"))
-    from concurrent.futures import as_completed
-    from concurrent.futures.process import BrokenProcessPool
 
-    try:
-        futures = {executor.submit(run_job, table, free_spec, job, sampler_kw): job for job in jobs}
-        done = 0
-        for future in as_completed(futures):
-            job = futures[future]
-            results[job.key] = future.result()
-            done += 1
-            log(f"{done}/{n} done: {job.law} ({job.scope})")
-    except BrokenProcessPool:
-        if not own:
-            raise
-        # worker processes could not start (typically a script without an `if __name__ == "__main__":`
-        # guard, which spawned workers re-run): run the remaining jobs here; seeds make the results the same
-        log(
-            "worker processes could not start; running the fits in this process (add an "
-            '`if __name__ == "__main__":` guard to your script, or pass workers=1)'
-        )
-        for job in jobs:
-            if job.key not in results:
-                results[job.key] = run_job(table, free_spec, job, {**sampler_kw, "cores": None})
-    finally:
-        if own:
-            executor.shutdown(wait=True, cancel_futures=True)
+    Raises
+    ------
+    JobsFailed
+        When any fit raised (after the others have finished); the message names each with its seed.
+    """
+    if engine is None:
+        engine = Engine(workers=workers, executor=executor)
+    pool = engine.pool_size(len(jobs))
+    local_kw = sampler_kw
+    if pool is not None and pool > 1:  # share the cores between the local worker processes
+        local_kw = {**sampler_kw, "cores": max(1, (os.cpu_count() or 1) // pool)}
+    results = run(
+        partial(_run_keyed, table, free_spec, local_kw),
+        jobs,
+        engine,
+        label="compare",
+        progress=True,
+        log=log or (lambda message: None),
+        describe=lambda job: f"{job.law} ({job.scope})",
+        fallback=partial(_run_keyed, table, free_spec, {**sampler_kw, "cores": None}),
+    )
+    failed = failures(results)
+    if failed:
+        raise JobsFailed(failed)
     return results
+
+
+def _run_keyed(table: JunctionTable, free_spec: ModelSpec, sampler_kw: dict, job: FitJob) -> FitResult:
+    """:func:`run_job` with the job last (for :func:`functools.partial`)."""
+    return run_job(table, free_spec, job, sampler_kw)
 
 
 def stderr_log(progress: bool) -> Callable[[str], None]:

@@ -1,10 +1,12 @@
 """PSIS-LOO comparison of the free model and the point laws on the junction log-likelihood.
 
-Every fit stores one log-likelihood term per junction (variable ``loglik``): all of the junction's readings
+Every fit has one log-likelihood term per junction (variable ``loglik``): all of the junction's readings
 together, with its latent true daughter radii integrated out, so the same observed quantities enter every
 model and leaving one junction out leaves out no parameter of its own. :func:`arviz.loo` estimates each
 model's expected log pointwise predictive density (ELPD) and :func:`arviz.compare` ranks the models
-(``elpd_diff`` to the best with its standard error ``dse``) and computes stacking weights.
+(``elpd_diff`` to the best with its standard error ``dse``) and computes stacking weights. A saved fit does
+not keep the log-likelihood (it is as large as draws x junctions); it is recomputed from the posterior and
+the table in blocks of junctions when LOO needs it (:func:`elpd_loo`).
 
 High Pareto k. Where a junction's Pareto ``k`` exceeds ArviZ's threshold (``min(1 - 1/log10(S), 0.7)``
 for ``S`` draws; 0.7 from about 2,200 draws on), importance sampling cannot stand in for refitting without
@@ -30,6 +32,10 @@ from dataclasses import dataclass, field
 import arviz as az
 import numpy as np
 import pandas as pd
+import xarray as xr
+from arviz.stats.stats_utils import ELPDData
+
+from allobranch.inference.results import FitResult
 
 #: Columns of :attr:`LooComparison.table`.
 LOO_COLUMNS: tuple[str, ...] = ("elpd", "elpd_se", "elpd_diff", "dse", "weight", "p_loo", "n_high_k")
@@ -63,14 +69,106 @@ class LooComparison:
     k_threshold: float = 0.7
 
 
-def compare_loo(idatas: Mapping[str, az.InferenceData], var_name: str = "loglik") -> LooComparison:
-    """Run :func:`arviz.loo` on each fit and :func:`arviz.compare` (stacking) on all of them.
+def reff(posterior, n_samples: int) -> float:
+    """Relative effective sample size of the draws, as :func:`arviz.loo` computes it.
+
+    The mean ESS (``az.ess(method="mean")``) over every posterior variable and element, divided by the
+    number of draws; 1 with a single chain (ArviZ 0.23, ``arviz.stats.stats.loo``).
+    """
+    if posterior.sizes["chain"] == 1:
+        return 1.0
+    ess = az.ess(posterior, method="mean")
+    return float(np.hstack([ess[v].values.flatten() for v in ess.data_vars]).mean() / n_samples)
+
+
+def elpd_loo(source: FitResult | az.InferenceData, var_name: str = "loglik") -> ELPDData:
+    """PSIS-LOO of one fit, with pointwise values (:func:`arviz.loo`, ``pointwise=True``).
+
+    A fit that holds its log-likelihood (``source.idata`` or an InferenceData with a ``log_likelihood``
+    group) is passed to ArviZ as it is. A fit without it (a saved and reloaded fit) has it recomputed from
+    its posterior and table a block of junctions at a time
+    (:func:`allobranch.inference.pointwise.loglik_blocks`); each block is smoothed by :func:`arviz.loo` with
+    the whole fit's relative efficiency (:func:`reff`) and the blocks are summed as ArviZ sums junctions:
+    ``elpd = sum(loo_i)``, ``se = sqrt(n var(loo_i))``, ``p_loo = sum`` of the blocks' ``p_loo``.
 
     Parameters
     ----------
-    idatas : mapping of str to arviz.InferenceData
-        Hypothesis label -> fit with a ``log_likelihood`` group holding ``var_name`` (dims chain, draw,
-        junction). At least two.
+    source : FitResult or arviz.InferenceData
+    var_name : str
+        The log-likelihood variable.
+
+    Returns
+    -------
+    arviz.ELPDData
+    """
+    idata = source.idata if isinstance(source, FitResult) else source
+    if "log_likelihood" in idata.groups() and var_name in idata.log_likelihood:
+        return az.loo(idata, pointwise=True, var_name=var_name)
+    if not isinstance(source, FitResult):
+        raise ValueError(
+            f"the fit has no log-likelihood variable {var_name!r}; pass the FitResult to recompute it"
+        )
+    cache = source.__dict__.setdefault("_elpd_loo", {})  # one recomputation per fit, whatever the scopes
+    if var_name not in cache:
+        cache[var_name] = _blocked_loo(source, var_name)
+    return cache[var_name]
+
+
+def _blocked_loo(source: FitResult, var_name: str) -> ELPDData:
+    """:func:`elpd_loo` of a fit whose log-likelihood is recomputed block by block."""
+    from allobranch.inference.pointwise import loglik_blocks
+
+    post = source.idata.posterior
+    n_samples = post.sizes["chain"] * post.sizes["draw"]
+    r_eff = reff(post, n_samples)
+    parts = [
+        az.loo(
+            az.InferenceData(log_likelihood=block.to_dataset(name=var_name)),
+            pointwise=True,
+            var_name=var_name,
+            reff=r_eff,
+        )
+        for _, block in loglik_blocks(source)
+    ]
+    loo_i = xr.concat([part.loo_i for part in parts], dim="junction")
+    n = int(loo_i.size)
+    return ELPDData(
+        data=[
+            float(loo_i.values.sum()),
+            float((n * np.var(loo_i.values)) ** 0.5),
+            float(sum(part.p_loo for part in parts)),
+            n_samples,
+            n,
+            any(bool(part.warning) for part in parts),
+            loo_i.rename("loo_i"),
+            xr.concat([part.pareto_k for part in parts], dim="junction"),
+            "log",
+            parts[0].good_k,
+        ],
+        index=[
+            "elpd_loo",
+            "se",
+            "p_loo",
+            "n_samples",
+            "n_data_points",
+            "warning",
+            "loo_i",
+            "pareto_k",
+            "scale",
+            "good_k",
+        ],
+    )
+
+
+def compare_loo(fits: Mapping[str, FitResult | az.InferenceData], var_name: str = "loglik") -> LooComparison:
+    """Run PSIS-LOO on each fit (:func:`elpd_loo`) and :func:`arviz.compare` (stacking) on all of them.
+
+    Parameters
+    ----------
+    fits : mapping of str to FitResult or arviz.InferenceData
+        Hypothesis label -> fit. An InferenceData must have a ``log_likelihood`` group holding
+        ``var_name`` (dims chain, draw, junction); a FitResult without one has it recomputed in blocks
+        from its posterior and table. At least two.
     var_name : str
         The log-likelihood variable.
 
@@ -78,11 +176,11 @@ def compare_loo(idatas: Mapping[str, az.InferenceData], var_name: str = "loglik"
     -------
     LooComparison
     """
-    if len(idatas) < 2:
+    if len(fits) < 2:
         raise ValueError("comparing needs at least two fitted hypotheses")
     with warnings.catch_warnings():  # high Pareto k is reported by the caller, in its own words
         warnings.simplefilter("ignore", UserWarning)
-        loos = {label: az.loo(idata, pointwise=True, var_name=var_name) for label, idata in idatas.items()}
+        loos = {label: elpd_loo(fit, var_name) for label, fit in fits.items()}
         ranked = az.compare(loos, method="stacking", scale="log")
     k_threshold = float(min(getattr(loo, "good_k", 0.7) for loo in loos.values()))
     rows, high_k = [], {}

@@ -11,6 +11,7 @@ from pathlib import Path
 import arviz as az
 import numpy as np
 import pandas as pd
+import xarray as xr
 
 from allobranch.errors import InputError, Problem
 from allobranch.geometry import junction_geometry, naive_summary
@@ -41,11 +42,16 @@ EXPONENT_COLUMNS = (
 COMPONENTS = {
     "tau_taxon": "between-taxon SD of the exponent",
     "tau_specimen": "between-specimen SD of the exponent (within taxon)",
+    "pagel_lambda": "Pagel's lambda: share of the between-taxon variance that follows the tree (0 none, 1 Brownian)",
     "sigma_dev": "junction-level biological deviation of log parent radius from the law",
     "rel_error": "relative measurement error (log-scale SD), estimated",
     "sigma_asym": "SD of true log daughter radius about its junction mean (asymmetry)",
     "nu": "Student-t degrees of freedom of the deviation",
 }
+
+#: Posterior-predictive draws a saved fit keeps (all chains together; :meth:`FitResult.ppc_table` shows
+#: at most this many by default, and the same ones before and after saving).
+SAVED_PREDICTIVE_DRAWS = 50
 
 
 def _summ(draws: np.ndarray, hdi_prob: float) -> dict[str, float]:
@@ -254,16 +260,15 @@ class FitResult:
         out.attrs["hdi_prob"] = hdi_prob
         return out
 
-    def ppc_table(self, max_draws: int = 50) -> pd.DataFrame:
+    def ppc_table(self, max_draws: int = SAVED_PREDICTIVE_DRAWS) -> pd.DataFrame:
         """Observed and posterior-predictive parent radii (user's unit) by taxon, long format."""
         unit = self.table.unit
         taxa = self.table.data["taxon"].astype(str).to_numpy()
         obs = from_internal_radius(np.exp(self.idata.observed_data["log_parent"].values), unit)
         pred = self.idata.posterior_predictive["log_parent"].values
         pred = pred.reshape(-1, pred.shape[-1])
-        step = max(1, len(pred) // max_draws)
         frames = [pd.DataFrame({"taxon": taxa, "source": "observed", "value": obs, "draw": -1})]
-        for k, row in enumerate(pred[::step][:max_draws]):
+        for k, row in enumerate(pred[_ppc_rows(len(pred), max_draws)]):
             frames.append(
                 pd.DataFrame(
                     {
@@ -282,10 +287,28 @@ class FitResult:
         return json.loads(self.idata.attrs.get("allobranch_provenance", "{}"))
 
     # -- persistence ----------------------------------------------------------------------------------
-    def save(self, path: str | os.PathLike) -> Path:
-        """Write to NetCDF atomically (the junction table and validation report go into the attributes)."""
+    def save(self, path: str | os.PathLike, *, keep_log_likelihood: bool = False) -> Path:
+        """Write to NetCDF atomically (the junction table and validation report go into the attributes).
+
+        The file keeps what later commands need: the posterior and sampler statistics, the observed data,
+        :data:`SAVED_PREDICTIVE_DRAWS` posterior-predictive draws (those :meth:`ppc_table` shows), the table
+        and the provenance. The pointwise log-likelihood (draws x junctions, 3.2 GB per 10^5 junctions at
+        4 x 1000 draws) is left out: it is recomputed exactly from the posterior and the table, in blocks of
+        junctions, when LOO needs it (:func:`allobranch.comparison.loo.elpd_loo`).
+
+        Parameters
+        ----------
+        path : str or path-like
+            Destination (``fit.nc``); its folder must exist.
+        keep_log_likelihood : bool
+            Also store the pointwise log-likelihood.
+
+        Returns
+        -------
+        Path
+        """
         path = Path(path)
-        idata = self.idata.copy()
+        idata = self._lean_idata(keep_log_likelihood)
         idata.attrs["allobranch_table"] = _exact_csv(self.table.data)
         idata.attrs["allobranch_report"] = self.table.report.to_frame().to_json(orient="split")
         idata.attrs["allobranch_settings"] = json.dumps(self.settings, default=str)
@@ -301,6 +324,19 @@ class FitResult:
             if os.path.exists(tmp):
                 os.unlink(tmp)
         return path
+
+    def _lean_idata(self, keep_log_likelihood: bool) -> az.InferenceData:
+        """The groups a saved fit keeps (shared with this fit, not copied), with its attributes."""
+        groups = {g: self.idata[g] for g in self.idata.groups()}
+        if not keep_log_likelihood:
+            groups.pop("log_likelihood", None)
+        if "posterior_predictive" in groups:
+            groups["posterior_predictive"] = _kept_draws(
+                groups["posterior_predictive"], SAVED_PREDICTIVE_DRAWS
+            )
+        idata = az.InferenceData(**groups)
+        idata.attrs.update(self.idata.attrs)
+        return idata
 
     @classmethod
     def load(cls, path: str | os.PathLike) -> FitResult:
@@ -382,6 +418,24 @@ def _not_a_fit(path: Path, exc: Exception) -> InputError:
         "refit with 'allobranch fit' (or allobranch.fit in Python), or give the fit.nc that it wrote",
         "not_a_fit",
     )
+
+
+def _ppc_rows(n_rows: int, max_draws: int) -> np.ndarray:
+    """Positions of the (chain-major) predictive draws shown or kept: every ``n_rows // max_draws``-th."""
+    step = max(1, n_rows // max_draws)
+    return np.arange(0, n_rows, step)[:max_draws]
+
+
+def _kept_draws(group: xr.Dataset, max_draws: int) -> xr.Dataset:
+    """The draws :func:`_ppc_rows` picks from every variable of a (chain, draw, ...) group, as one chain."""
+    n_rows = group.sizes["chain"] * group.sizes["draw"]
+    rows = _ppc_rows(n_rows, max_draws)
+    out = {}
+    for name, var in group.data_vars.items():
+        values = var.transpose("chain", "draw", ...).values
+        out[name] = (var.dims, values.reshape(n_rows, *values.shape[2:])[rows][None])
+    coords = {k: v for k, v in group.coords.items() if k not in ("chain", "draw")}
+    return xr.Dataset(out, coords={**coords, "chain": [0], "draw": rows}, attrs=group.attrs)
 
 
 #: Text columns of saved tables.
