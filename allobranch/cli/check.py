@@ -7,11 +7,11 @@ from pathlib import Path
 
 import pandas as pd
 
-from allobranch.cli.options import add_mapping_arguments, table_from_args
+from allobranch.cli.network_options import save_recipe, write_network_outputs
+from allobranch.cli.options import add_mapping_arguments, input_from_args
 from allobranch.conventions import JUNCTIONS_FILE
 from allobranch.errors import AllobranchError, OutputExistsError
 from allobranch.geometry import NAIVE_NOTE, junction_geometry, naive_summary
-from allobranch.intake.recipe import write_recipe
 from allobranch.intake.table import JunctionTable
 from allobranch.io import prepare_output_dir
 from allobranch.reporting.junctions import write_junctions
@@ -137,18 +137,22 @@ def run(args: argparse.Namespace) -> int:
         if not Path(args.save_recipe).resolve().parent.is_dir():
             raise AllobranchError(f"{args.save_recipe}: the folder for --save-recipe does not exist")
         _refuse_overwrite(Path(args.save_recipe), args.force, "--save-recipe file")
-    table = table_from_args(args)
+    table, network = input_from_args(args)
     geometry = junction_geometry(table)
     print(format_check_report(table, naive_summary(geometry, by=("taxon",))))
     if args.save_recipe:
         try:
-            path = write_recipe(table.mapping, args.save_recipe, overwrite=args.force)
+            path = save_recipe(table, network, args.save_recipe, overwrite=args.force)
         except OSError as exc:
             raise AllobranchError(f"{args.save_recipe}: cannot write the recipe ({exc.strerror})") from None
         print(f"Recipe written to {path}")
     if args.out:
         dest = write_junctions(table, args.out, geometry=geometry, force=args.force)
         print(f"Per-junction geometry written to {dest} (radii in {table.unit})")
+        if network is not None:
+            for path in write_network_outputs(network, geometry, dest, force=args.force)[1:]:
+                print(f"Network figure written to {path}")
+            print(f"{dest} also traces every junction to its segments, rows and generation")
     reasons = geometry["no_root_reason"].dropna().value_counts()
     if len(reasons):
         why = ", ".join(f"{reason}: {count}" for reason, count in reasons.items())

@@ -215,3 +215,113 @@ def network_from_args(args: argparse.Namespace):
     for line in result.describe():
         print(line, file=sys.stderr)
     return result
+
+
+#: Network figures ``check --out`` draws at most (one per specimen, in the table's order).
+MAX_NETWORK_FIGURES = 12
+
+
+def _file_label(text: str) -> str:
+    """A specimen label as a file-name part (letters, digits, ``-``, ``_`` and ``.``)."""
+    return "".join(c if c.isalnum() or c in "-_." else "_" for c in text) or "specimen"
+
+
+def write_network_outputs(network, geometry, junctions_csv: str | Path, *, force: bool = False) -> list[Path]:
+    """Add the tracing columns to ``junctions.csv`` and draw each specimen's network beside it.
+
+    Parameters
+    ----------
+    network : allobranch.networks.NetworkJunctions
+        The derived junctions.
+    geometry : pandas.DataFrame
+        :func:`allobranch.junction_geometry` of ``network.table`` (same rows as ``network.frame``).
+    junctions_csv : str or path-like
+        The per-junction geometry ``check`` has just written; its rows are the network's junctions in
+        order. It is rewritten (atomically) with the columns ``parent_segment``, ``daughter_segments``,
+        ``generation``, ``strahler_order``, ``n_tips``, ``parent_rows``, ``daughter_rows``, ``source`` and
+        ``flags`` added, so every number can be traced to the user's file.
+    force : bool
+        Replace existing figure files.
+
+    Returns
+    -------
+    list of pathlib.Path
+        ``junctions.csv`` and the figures (``network_<specimen>.png``, at most :data:`MAX_NETWORK_FIGURES`).
+
+    Raises
+    ------
+    OutputExistsError
+        If a figure file exists and ``force`` is false.
+    """
+    import os
+    import tempfile
+
+    import pandas as pd
+
+    from allobranch.errors import OutputExistsError
+    from allobranch.networks.assemble import TRACING_COLUMNS
+    from allobranch.reporting.plots.network import plot_network
+    from allobranch.reporting.style import figure, save_figure
+
+    dest = Path(junctions_csv)
+    written = pd.read_csv(dest, dtype={"taxon": str, "specimen": str, "junction": str}, keep_default_na=False)
+    frame = network.frame
+    if (
+        len(written) != len(frame)
+        or (written["junction"].astype(str).to_numpy() != frame["junction"].to_numpy()).any()
+    ):
+        raise ValueError(f"{dest} does not hold the network's junctions in order")
+    extra = frame[[*TRACING_COLUMNS, "flags"]].reset_index(drop=True)
+    merged = pd.concat(
+        [written.drop(columns=[c for c in extra.columns if c in written.columns]), extra], axis=1
+    )
+    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            merged.to_csv(fh, index=False)
+        os.replace(tmp, dest)
+    finally:
+        if os.path.exists(tmp):
+            os.remove(tmp)
+    out = [dest]
+    specimens = list(dict.fromkeys(frame["specimen"]))[:MAX_NETWORK_FIGURES]
+    stems = [dest.parent / f"network_{_file_label(s)}" for s in specimens]
+    clash = [s.with_suffix(".png") for s in stems if s.with_suffix(".png").exists()]
+    if clash and not force:
+        raise OutputExistsError(
+            f"{clash[0]} already exists; use --force to overwrite it or choose another --out"
+        )
+    for specimen, stem in zip(specimens, stems):
+        fig, ax = figure("double", 0.6)
+        plot_network(frame, geometry, specimen=specimen, ax=ax)
+        out += save_figure(fig, stem, formats=("png",))
+        fig.clf()
+    return out
+
+
+def save_recipe(table, network, path: str | Path, *, overwrite: bool = False) -> Path:
+    """Write the recipe of this input: the table's mapping, or for a network the user's mapping and [network].
+
+    Parameters
+    ----------
+    table : JunctionTable
+        The validated table.
+    network : allobranch.networks.NetworkJunctions or None
+        The network it was derived from, if any.
+    path : str or path-like
+        The recipe file.
+    overwrite : bool
+        Replace an existing file.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+    """
+    if network is None:
+        from allobranch.intake.recipe import write_recipe
+
+        return write_recipe(table.mapping, path, overwrite=overwrite)
+    from allobranch.networks.options import write_network_recipe
+
+    return write_network_recipe(network.mapping, network.options, path, overwrite=overwrite)

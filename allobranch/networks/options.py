@@ -34,7 +34,7 @@ from typing import Any
 
 import pandas as pd
 
-from allobranch.errors import Problem, RecipeError
+from allobranch.errors import OutputExistsError, Problem, RecipeError
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.recipe import NETWORK_SIZE_COLUMNS, RECIPE_SECTIONS, _toml_value
 from allobranch.networks.graph import LOOP_RULES, junctions_from_edges
@@ -128,8 +128,14 @@ class NetworkOptions:
     given: tuple[str, ...] = field(default_factory=tuple)
 
     def rule_values(self) -> dict[str, Any]:
-        """The options that were given, for writing back into a recipe."""
-        return {k: getattr(self, k) for k in self.given}
+        """The options given and every rule in effect for this kind of input, for writing into a recipe."""
+        roots = self.roots or ("many" if self.kind == "swc" else "one")
+        rules = {
+            "segments": {"continuations": self.continuations, "roots": roots},
+            "edges": {"continuations": self.continuations, "roots": roots, "loops": self.loops},
+            "swc": {"radius_rule": self.radius_rule, "neurite_types": self.neurite_types, "roots": roots},
+        }[self.kind]
+        return {**{k: getattr(self, k) for k in self.given}, **rules}
 
 
 #: The option names (recipe keys and keyword arguments).
@@ -339,7 +345,7 @@ def junctions_from_options(
         measurement["covariates"] = list(mapping.covariates)
     roots = options.roots or ("many" if options.kind == "swc" else "one")
     if options.kind == "swc":
-        return junctions_from_swc(
+        result = junctions_from_swc(
             options.swc,
             radius_rule=options.radius_rule,
             trim=options.trim,
@@ -350,29 +356,59 @@ def junctions_from_options(
             encoding=mapping.encoding,
             **measurement,
         )
-    common = {
-        "size": options.size,
-        "length": options.length,
-        "taxon": mapping.taxon,
-        "specimen": mapping.specimen,
-        "continuations": options.continuations,
-        "roots": roots,
-        "sheet": mapping.sheet,
-        "encoding": mapping.encoding,
-    }
-    if options.kind == "edges":
-        return junctions_from_edges(
-            options.edges,
-            root=options.root,
-            node_from=options.node_from,
-            node_to=options.node_to,
-            loops=options.loops,
-            **common,
-            **measurement,
+    else:
+        common = {
+            "size": options.size,
+            "length": options.length,
+            "taxon": mapping.taxon,
+            "specimen": mapping.specimen,
+            "continuations": options.continuations,
+            "roots": roots,
+            "sheet": mapping.sheet,
+            "encoding": mapping.encoding,
+        }
+        if options.kind == "edges":
+            result = junctions_from_edges(
+                options.edges,
+                root=options.root,
+                node_from=options.node_from,
+                node_to=options.node_to,
+                loops=options.loops,
+                **common,
+                **measurement,
+            )
+        else:
+            result = junctions_from_segments(
+                table, segment_id=options.segment_id, parent_id=options.parent_id, **common, **measurement
+            )
+    result.mapping, result.options = mapping, options
+    return result
+
+
+def write_network_recipe(
+    mapping: ColumnMapping, options: NetworkOptions, path: str | os.PathLike, *, overwrite: bool = False
+) -> Path:
+    """Write :func:`network_recipe_text` to ``path`` (an existing file only with ``overwrite``).
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    Raises
+    ------
+    OutputExistsError
+        If the file exists and ``overwrite`` is false.
+    """
+    dest = Path(path)
+    if dest.exists() and not overwrite:
+        raise OutputExistsError(
+            f"{dest}: the recipe file already exists; choose another name or remove it first"
         )
-    return junctions_from_segments(
-        table, segment_id=options.segment_id, parent_id=options.parent_id, **common, **measurement
-    )
+    text = network_recipe_text(mapping, options, dest.resolve().parent)
+    with dest.open("w" if overwrite else "x", encoding="utf-8") as fh:
+        fh.write(text)
+    return dest
 
 
 def network_recipe_text(mapping: ColumnMapping, options: NetworkOptions, folder: str | os.PathLike) -> str:

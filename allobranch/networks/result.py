@@ -75,6 +75,12 @@ class NetworkJunctions:
         Network-level findings that did not stop the conversion (e.g. edges removed to break loops).
     continuations : pandas.DataFrame
         Segments with exactly one child (columns :data:`CONTINUATION_COLUMNS`).
+    mapping : ColumnMapping or None
+        The user's mapping (grouping columns of the network table, unit, ...) when the conversion came from
+        :func:`allobranch.networks.options.junctions_from_options`; ``table.mapping`` names the derived
+        frame's columns instead.
+    options : NetworkOptions or None
+        The network options used, likewise.
     """
 
     frame: pd.DataFrame
@@ -84,6 +90,8 @@ class NetworkJunctions:
     notes: list[str] = field(default_factory=list)
     problems: list[Problem] = field(default_factory=list)
     continuations: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=CONTINUATION_COLUMNS))
+    mapping: Any = None
+    options: Any = None
 
     def describe(self) -> list[str]:
         """Lines telling the user how the junctions were derived (rules, notes, network-level problems)."""
