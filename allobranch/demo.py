@@ -4,7 +4,9 @@ Scenario (fiction, for demonstration only): resin casts of the arterial tree fro
 species of the invented genus *Saurovena*, two to four animals each; at every junction the diameters of the
 parent and of its two or three daughters were "measured" in micrometres with about 6 % relative error. The
 true exponents are two cube-law species, one square-law species and one with an exponent of 2.5 that fits
-none of the classic laws. Every number comes from :func:`allobranch.simulate_junctions` with a fixed seed.
+none of the classic laws. In that last species the exponent also falls with vessel size (by 0.4 per tenfold
+larger parent, 2.5 at a parent radius of 63 um), and the four species hang on an invented tree
+(:data:`DEMO_TREE`). Every number comes from :func:`allobranch.simulate_junctions` with a fixed seed.
 """
 
 from __future__ import annotations
@@ -28,11 +30,20 @@ DEMO_EXPONENTS = {
 }
 DEMO_SPECIMENS = (4, 3, 4, 2)
 DEMO_REL_ERROR = 0.06
+#: Size trend: change of the exponent per tenfold larger parent, by species (others have none), and the
+#: parent radius (mm) at which the species exponents above hold (the middle of the sizes on the log scale).
+DEMO_SLOPES = {"Saurovena dunensis": -0.4}
+DEMO_SLOPE_REFERENCE_MM = 0.063
+#: The invented species tree (Newick; branch lengths in arbitrary time units, ultrametric).
+DEMO_TREE = (
+    "((Saurovena_alta:2.0,Saurovena_borealis:2.0):3.0,(Saurovena_caldera:3.5,Saurovena_dunensis:3.5):1.5);"
+)
 #: Files in the demo folder.
 DEMO_FILES = {
     "table": "simulated_saurovena_casts.csv",
     "recipe": "simulated_saurovena_casts.toml",
     "truth": "simulated_truth.json",
+    "tree": "simulated_saurovena_tree.nwk",
 }
 
 RECIPE = """# Column mapping for the SIMULATED Saurovena demo table (allobranch recipe)
@@ -65,6 +76,8 @@ def make_demo(seed: int = DEMO_SEED) -> tuple[pd.DataFrame, dict]:
         rel_error=DEMO_REL_ERROR,
         trifurcation_share=0.12,
         parent_range=(0.01, 0.4),
+        exponent_slope=DEMO_SLOPES,
+        slope_reference=DEMO_SLOPE_REFERENCE_MM,
         seed=seed,
     )
     f = sim.frame
@@ -95,6 +108,9 @@ def make_demo(seed: int = DEMO_SEED) -> tuple[pd.DataFrame, dict]:
         "sigma_dev": 0.03,
         "relative_error": DEMO_REL_ERROR,
         "trifurcation_share": 0.12,
+        "exponent_slope_per_decade_of_parent_size": DEMO_SLOPES,
+        "slope_reference_parent_diameter_um": 2000.0 * DEMO_SLOPE_REFERENCE_MM,
+        "tree": DEMO_TREE,
         "measure": "diameter",
         "unit": "um",
     }
@@ -110,6 +126,7 @@ def write_demo(folder: str | Path, seed: int = DEMO_SEED) -> dict[str, Path]:
     table.to_csv(paths["table"], index=False)
     paths["recipe"].write_text(RECIPE, encoding="utf-8")
     paths["truth"].write_text(json.dumps(truth, indent=2) + "\n", encoding="utf-8")
+    paths["tree"].write_text(DEMO_TREE + "\n", encoding="utf-8")
     return paths
 
 

@@ -68,7 +68,7 @@ def simulate_junctions(
     parent_range: tuple[float, float] = (0.05, 2.0),
     split_concentration: float = 4.0,
     split: str = "dirichlet",
-    exponent_slope: float = 0.0,
+    exponent_slope: float | Mapping[str, float] = 0.0,
     slope_reference: float = 1.0,
     seed: int | None = 0,
 ) -> SimulatedData:
@@ -105,8 +105,9 @@ def simulate_junctions(
         given concentration; a uniform fraction (Dirichlet with concentration 1); log-normal daughters
         about their junction mean (the model's own assumption), rescaled to obey the law; or one daughter
         continuing with most of the power (a share from Beta(8, 2)) and the others as side branches.
-    exponent_slope : float
-        Change of a junction's exponent per tenfold larger parent: the exponent at a junction whose true
+    exponent_slope : float or mapping of str to float
+        Change of a junction's exponent per tenfold larger parent (one value, or one per taxon name; taxa
+        not named have none): the exponent at a junction whose true
         parent radius is ``r`` is ``a_specimen + exponent_slope * log10(r / slope_reference)``, so the
         specimen exponents hold at ``slope_reference`` (mm).
     slope_reference : float
@@ -133,6 +134,13 @@ def simulate_junctions(
     n_junc = _per_group(junctions_per_specimen, len(specimen_labels), "junctions_per_specimen")
     a_specimen = {s: float(a_taxon[t] + tau_specimen * rng.standard_normal()) for t, s in specimen_labels}
 
+    if isinstance(exponent_slope, Mapping):
+        unknown = set(map(str, exponent_slope)) - set(names)
+        if unknown:
+            raise ValueError(f"exponent_slope names unknown taxa: {', '.join(sorted(unknown))}")
+        slopes = {t: float(exponent_slope.get(t, 0.0)) for t in names}
+    else:
+        slopes = dict.fromkeys(names, float(exponent_slope))
     rows, true_rows = [], []
     for (taxon, specimen), n in zip(specimen_labels, n_junc):
         a = a_specimen[specimen]
@@ -140,7 +148,7 @@ def simulate_junctions(
         nominal = np.exp(rng.uniform(lo, hi, size=n))
         k = np.where(rng.uniform(size=n) < trifurcation_share, 3, 2)
         for j in range(n):
-            a_j = a + exponent_slope * np.log10(nominal[j] / slope_reference)
+            a_j = a + slopes[taxon] * np.log10(nominal[j] / slope_reference)
             r_true_d = nominal[j] * _shares(split, int(k[j]), split_concentration, a_j, rng) ** (1.0 / a_j)
             r_true_p = nominal[j] * np.exp(sigma_dev * rng.standard_normal())
             true_vals = np.concatenate([[r_true_p], r_true_d])
@@ -173,7 +181,7 @@ def simulate_junctions(
         "abs_error": float(abs_error),
         "a_taxon": a_taxon,
         "a_specimen": a_specimen,
-        "exponent_slope": float(exponent_slope),
+        "exponent_slope": slopes,
         "slope_reference": float(slope_reference),
     }
     return SimulatedData(frame=frame, truth=truth, true_radii=pd.DataFrame(true_rows), mapping=mapping)
