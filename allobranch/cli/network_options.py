@@ -253,12 +253,9 @@ def write_network_outputs(network, geometry, junctions_csv: str | Path, *, force
     OutputExistsError
         If a figure file exists and ``force`` is false.
     """
-    import os
-    import tempfile
-
     import pandas as pd
 
-    from allobranch.errors import OutputExistsError
+    from allobranch.io import atomic_write, prepare_output_dir
     from allobranch.networks.assemble import TRACING_COLUMNS
     from allobranch.reporting.plots.network import plot_network
     from allobranch.reporting.style import figure, save_figure
@@ -266,35 +263,20 @@ def write_network_outputs(network, geometry, junctions_csv: str | Path, *, force
     dest = Path(junctions_csv)
     written = pd.read_csv(dest, dtype={"taxon": str, "specimen": str, "junction": str}, keep_default_na=False)
     frame = network.frame
-    if (
-        len(written) != len(frame)
-        or (written["junction"].astype(str).to_numpy() != frame["junction"].to_numpy()).any()
-    ):
+    if len(written) != len(frame) or (written["junction"].to_numpy() != frame["junction"].to_numpy()).any():
         raise ValueError(f"{dest} does not hold the network's junctions in order")
     extra = frame[[*TRACING_COLUMNS, "flags"]].reset_index(drop=True)
     merged = pd.concat(
         [written.drop(columns=[c for c in extra.columns if c in written.columns]), extra], axis=1
     )
-    fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=".junctions-", suffix=".csv")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            merged.to_csv(fh, index=False)
-        os.replace(tmp, dest)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-    out = [dest]
+    out = [atomic_write(dest, lambda p: merged.to_csv(p, index=False))]
     specimens = list(dict.fromkeys(frame["specimen"]))[:MAX_NETWORK_FIGURES]
-    stems = [dest.parent / f"network_{_file_label(s)}" for s in specimens]
-    clash = [s.with_suffix(".png") for s in stems if s.with_suffix(".png").exists()]
-    if clash and not force:
-        raise OutputExistsError(
-            f"{clash[0]} already exists; use --force to overwrite it or choose another --out"
-        )
-    for specimen, stem in zip(specimens, stems):
+    names = [f"network_{_file_label(s)}" for s in specimens]
+    prepare_output_dir(dest.parent, [f"{n}.png" for n in names], force=force)
+    for specimen, name in zip(specimens, names):
         fig, ax = figure("double", 0.6)
         plot_network(frame, geometry, specimen=specimen, ax=ax)
-        out += save_figure(fig, stem, formats=("png",))
+        out += save_figure(fig, dest.parent / name, formats=("png",))
         fig.clf()
     return out
 

@@ -6,13 +6,23 @@ network table accepts exactly what a junction table accepts; the messages here s
 
 from __future__ import annotations
 
+import os
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 from allobranch.errors import InputError, Problem
-from allobranch.intake.readers import RawTable
-from allobranch.intake.validate import _blank_rows, _Collector, _label, describe_unusable, parse_numbers
+from allobranch.intake.readers import RawTable, read_table
+from allobranch.intake.validate import (
+    DEFAULT_TAXON,
+    _blank_rows,
+    _Collector,
+    _label,
+    describe_unusable,
+    parse_numbers,
+)
 
 
 def check_columns(raw: RawTable, roles: Sequence[tuple[str | None, str]], option: str = "options") -> None:
@@ -62,16 +72,7 @@ def check_columns(raw: RawTable, roles: Sequence[tuple[str | None, str]], option
 
 def non_blank(raw: RawTable, out: _Collector) -> tuple[np.ndarray, np.ndarray]:
     """Positions and user rows of the non-blank rows; blank rows are listed as excluded in ``out``."""
-    blank = _blank_rows(raw.frame)
-    for r in raw.rows[blank]:
-        out.add(
-            "excluded",
-            r,
-            None,
-            "blank row",
-            "not used; delete it if the row was meant to be empty",
-            "blank_row",
-        )
+    blank = _blank_rows(raw, out)
     keep = np.flatnonzero(~blank)
     if not len(keep):
         out.add(
@@ -196,3 +197,106 @@ def raise_fatal(out: _Collector) -> None:
     """Raise every fatal problem collected so far (ordered by row), with the other findings after them."""
     if out.fatal:
         raise InputError(sorted(out.fatal, key=lambda p: p.row or 0) + out.other)
+
+
+def check_specimen_taxa(
+    taxon: np.ndarray, specimen: np.ndarray, rows: np.ndarray, column: str, out: _Collector
+) -> None:
+    pairs = pd.DataFrame({"taxon": taxon, "specimen": specimen, "row": rows}).drop_duplicates(
+        ["specimen", "taxon"]
+    )
+    for spec, group in pairs.groupby("specimen", sort=False):
+        if len(group) > 1:
+            where = "; ".join(f"'{t}' (row {r})" for t, r in zip(group["taxon"], group["row"]))
+            out.add(
+                "fatal",
+                int(group["row"].iloc[1]),
+                column,
+                f"specimen '{spec}' is listed under more than one taxon: {where}",
+                "a specimen belongs to one taxon; correct the taxon or give the specimens distinct labels",
+                "specimen_in_two_taxa",
+            )
+
+
+@dataclass
+class NetworkRows:
+    """The checked cells of a network table (segment table or edge list).
+
+    Attributes
+    ----------
+    raw : RawTable
+        The table as read.
+    out : _Collector
+        Problems found so far (none fatal) and more to come.
+    rows : numpy.ndarray
+        The user's row of every non-blank row.
+    ids : list of list of (str or None)
+        The id columns' labels, in the order asked for.
+    taxon, specimen : numpy.ndarray of object
+        Group labels (defaults: one taxon; one specimen per taxon).
+    size : numpy.ndarray
+        Sizes.
+    length : numpy.ndarray or None
+        Lengths, when a column is named.
+    """
+
+    raw: RawTable
+    out: _Collector
+    rows: np.ndarray
+    ids: list[list[str | None]]
+    taxon: np.ndarray
+    specimen: np.ndarray
+    size: np.ndarray
+    length: np.ndarray | None
+
+
+def read_network_rows(
+    source: str | os.PathLike | pd.DataFrame,
+    *,
+    ids: Sequence[tuple[str, str, bool]],
+    size: str,
+    length: str | None,
+    taxon: str | None,
+    specimen: str | None,
+    sheet: str | int | None,
+    encoding: str | None,
+) -> NetworkRows:
+    """Read a network table and check its id, group, size and length cells.
+
+    Parameters
+    ----------
+    source : str, path-like or pandas.DataFrame
+        The table.
+    ids : sequence of (column, what, required)
+        Id columns, what they hold (for messages) and whether an empty cell is an error.
+    size, length, taxon, specimen : str or None
+        Columns (``length``, ``taxon`` and ``specimen`` optional).
+    sheet, encoding
+        As in :func:`allobranch.read_junctions`.
+
+    Returns
+    -------
+    NetworkRows
+
+    Raises
+    ------
+    InputError
+        Naming file, row and column: missing columns, blank tables, missing labels, unusable sizes or
+        lengths, a specimen under two taxa.
+    """
+    raw = read_table(source, sheet=sheet, encoding=encoding)
+    roles = [(c, what) for c, what, _ in ids]
+    check_columns(raw, [*roles, (size, "size"), (length, "length"), (taxon, "taxon"), (specimen, "specimen")])
+    out = _Collector(raw.label)
+    keep, rows = non_blank(raw, out)
+    raise_fatal(out)
+    id_labels = [labels(raw, keep, rows, c, what, out, required=req) for c, what, req in ids]
+    taxa = labels(raw, keep, rows, taxon, "taxon", out) if taxon else [DEFAULT_TAXON] * len(keep)
+    specimens = labels(raw, keep, rows, specimen, "specimen", out) if specimen else list(taxa)
+    sizes = positive_numbers(raw, keep, rows, size, "size", out)
+    lengths = positive_numbers(raw, keep, rows, length, "length", out)
+    taxa_arr = np.array([x or "" for x in taxa], dtype=object)
+    spec_arr = np.array([x or "" for x in specimens], dtype=object)
+    if specimen:
+        check_specimen_taxa(taxa_arr, spec_arr, rows, taxon or specimen, out)
+    return NetworkRows(raw, out, rows, id_labels, taxa_arr, spec_arr, sizes, lengths)

@@ -27,13 +27,10 @@ import pandas as pd
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import breadth_first_order, connected_components
 
-from allobranch.intake.readers import read_table
-from allobranch.intake.validate import DEFAULT_TAXON, _Collector
-from allobranch.networks.cells import check_columns, labels, non_blank, positive_numbers, raise_fatal
+from allobranch.networks.cells import raise_fatal, read_network_rows
 from allobranch.networks.result import ROOT_RULES, NetworkJunctions, check_rule
 from allobranch.networks.segments import (
     SegmentForest,
-    check_specimen_taxa,
     derive_from_forest,
     rows_text,
 )
@@ -153,31 +150,18 @@ def read_edge_forest(
     """
     check_rule("loops", loops, LOOP_RULES)
     check_rule("roots", roots, ROOT_RULES)
-    raw = read_table(source, sheet=sheet, encoding=encoding)
-    check_columns(
-        raw,
-        [
-            (node_from, "from-node"),
-            (node_to, "to-node"),
-            (size, "size"),
-            (length, "length"),
-            (taxon, "taxon"),
-            (specimen, "specimen"),
-        ],
+    cells = read_network_rows(
+        source,
+        ids=[(node_from, "from-node id", True), (node_to, "to-node id", True)],
+        size=size,
+        length=length,
+        taxon=taxon,
+        specimen=specimen,
+        sheet=sheet,
+        encoding=encoding,
     )
-    out = _Collector(raw.label)
-    keep, rows = non_blank(raw, out)
-    raise_fatal(out)
-    a = labels(raw, keep, rows, node_from, "from-node id", out)
-    b = labels(raw, keep, rows, node_to, "to-node id", out)
-    taxa = labels(raw, keep, rows, taxon, "taxon", out) if taxon else [DEFAULT_TAXON] * len(keep)
-    specimens = labels(raw, keep, rows, specimen, "specimen", out) if specimen else list(taxa)
-    sizes = positive_numbers(raw, keep, rows, size, "size", out)
-    lengths = positive_numbers(raw, keep, rows, length, "length", out)
-    taxa_arr = np.array([t or "" for t in taxa], dtype=object)
-    spec_arr = np.array([s or "" for s in specimens], dtype=object)
-    if specimen:
-        check_specimen_taxa(taxa_arr, spec_arr, rows, taxon or specimen, out)
+    out, rows, (a, b) = cells.out, cells.rows, cells.ids
+    taxa_arr, spec_arr, sizes, lengths = cells.taxon, cells.specimen, cells.size, cells.length
     raise_fatal(out)
 
     names = np.array([f"{u}{EDGE_SEP}{v}" for u, v in zip(a, b)], dtype=object)
@@ -290,7 +274,7 @@ def read_edge_forest(
         size=sizes[idx],
         length=None if lengths is None else lengths[idx],
         rows=rows[idx].astype(np.int64),
-        source=raw.label,
+        source=cells.raw.label,
         size_column=size,
         junction=np.asarray(lower_all, dtype=object),
         problems=list(out.other),

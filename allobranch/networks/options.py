@@ -34,9 +34,10 @@ from typing import Any
 
 import pandas as pd
 
-from allobranch.errors import OutputExistsError, Problem, RecipeError
+from allobranch.errors import Problem, RecipeError
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.recipe import NETWORK_SIZE_COLUMNS, RECIPE_SECTIONS, _toml_value
+from allobranch.io import atomic_write, prepare_output_dir
 from allobranch.networks.graph import LOOP_RULES, junctions_from_edges
 from allobranch.networks.result import CONTINUATION_RULES, ROOT_RULES, NetworkJunctions
 from allobranch.networks.segments import junctions_from_segments
@@ -401,14 +402,9 @@ def write_network_recipe(
         If the file exists and ``overwrite`` is false.
     """
     dest = Path(path)
-    if dest.exists() and not overwrite:
-        raise OutputExistsError(
-            f"{dest}: the recipe file already exists; choose another name or remove it first"
-        )
+    prepare_output_dir(dest.parent, [dest.name], force=overwrite)
     text = network_recipe_text(mapping, options, dest.resolve().parent)
-    with dest.open("w" if overwrite else "x", encoding="utf-8") as fh:
-        fh.write(text)
-    return dest
+    return atomic_write(dest, lambda p: p.write_text(text, encoding="utf-8"))
 
 
 def network_recipe_text(mapping: ColumnMapping, options: NetworkOptions, folder: str | os.PathLike) -> str:

@@ -18,10 +18,9 @@ import numpy as np
 import pandas as pd
 
 from allobranch.errors import Problem
-from allobranch.intake.readers import read_table
-from allobranch.intake.validate import DEFAULT_TAXON, _Collector
+from allobranch.intake.validate import _Collector
 from allobranch.networks.assemble import Runs, assemble_junctions, join_groups
-from allobranch.networks.cells import check_columns, labels, non_blank, positive_numbers, raise_fatal
+from allobranch.networks.cells import raise_fatal, read_network_rows
 from allobranch.networks.result import (
     CONTINUATION_COLUMNS,
     CONTINUATION_RULES,
@@ -84,25 +83,6 @@ class SegmentForest:
 def rows_text(rows: list[int]) -> str:
     shown = ", ".join(map(str, rows[:SHOWN_ROWS]))
     return shown + (", ..." if len(rows) > SHOWN_ROWS else "")
-
-
-def check_specimen_taxa(
-    taxon: np.ndarray, specimen: np.ndarray, rows: np.ndarray, column: str, out: _Collector
-) -> None:
-    pairs = pd.DataFrame({"taxon": taxon, "specimen": specimen, "row": rows}).drop_duplicates(
-        ["specimen", "taxon"]
-    )
-    for spec, group in pairs.groupby("specimen", sort=False):
-        if len(group) > 1:
-            where = "; ".join(f"'{t}' (row {r})" for t, r in zip(group["taxon"], group["row"]))
-            out.add(
-                "fatal",
-                int(group["row"].iloc[1]),
-                column,
-                f"specimen '{spec}' is listed under more than one taxon: {where}",
-                "a specimen belongs to one taxon; correct the taxon or give the specimens distinct labels",
-                "specimen_in_two_taxa",
-            )
 
 
 def link_parents(
@@ -280,45 +260,32 @@ def read_segment_forest(
         ids that are not segment ids, cycles, several roots, missing/unusable/non-positive sizes.
     """
     check_rule("roots", roots, ROOT_RULES)
-    raw = read_table(source, sheet=sheet, encoding=encoding)
-    check_columns(
-        raw,
-        [
-            (segment_id, "segment id"),
-            (parent_id, "parent id"),
-            (size, "size"),
-            (length, "length"),
-            (taxon, "taxon"),
-            (specimen, "specimen"),
-        ],
+    cells = read_network_rows(
+        source,
+        ids=[(segment_id, "segment id", True), (parent_id, "parent id", False)],
+        size=size,
+        length=length,
+        taxon=taxon,
+        specimen=specimen,
+        sheet=sheet,
+        encoding=encoding,
     )
-    out = _Collector(raw.label)
-    keep, rows = non_blank(raw, out)
-    raise_fatal(out)
-    ids = labels(raw, keep, rows, segment_id, "segment id", out)
-    parent_ids = labels(raw, keep, rows, parent_id, "parent id", out, required=False)
-    taxa = labels(raw, keep, rows, taxon, "taxon", out) if taxon else [DEFAULT_TAXON] * len(keep)
-    specimens = labels(raw, keep, rows, specimen, "specimen", out) if specimen else list(taxa)
-    sizes = positive_numbers(raw, keep, rows, size, "size", out)
-    lengths = positive_numbers(raw, keep, rows, length, "length", out)
-    taxa_arr = np.array([t or "" for t in taxa], dtype=object)
-    spec_arr = np.array([s or "" for s in specimens], dtype=object)
+    out, rows, (ids, parent_ids) = cells.out, cells.rows, cells.ids
+    spec_arr = cells.specimen
     id_arr = np.array([s or "" for s in ids], dtype=object)
-    if specimen:
-        check_specimen_taxa(taxa_arr, spec_arr, rows, taxon or specimen, out)
     parent = link_parents(spec_arr, id_arr, parent_ids, rows, (segment_id, parent_id), out)
     raise_fatal(out)
     check_forest(parent, spec_arr, id_arr, rows, parent_id, roots, out)
     raise_fatal(out)
     return SegmentForest(
-        taxon=taxa_arr,
+        taxon=cells.taxon,
         specimen=spec_arr,
         ids=id_arr,
         parent=parent,
-        size=sizes,
-        length=lengths,
+        size=cells.size,
+        length=cells.length,
         rows=rows.astype(np.int64),
-        source=raw.label,
+        source=cells.raw.label,
         size_column=size,
         problems=list(out.other),
     )
