@@ -77,5 +77,29 @@ class RecipeError(InputError):
     """A recipe (TOML mapping file) or a set of mapping options is wrong."""
 
 
+#: Where a problem with a command-line option or a keyword argument comes from, in messages.
+OPTIONS_ORIGIN = "<options>"
+
+
+def option_error(message: str, hint: str, code: str, origin: str = OPTIONS_ORIGIN) -> RecipeError:
+    """The error for one unusable option or recipe value (no row or column to name).
+
+    Parameters
+    ----------
+    message, hint : str
+        What is wrong and what to do.
+    code : str
+        The problem's code.
+    origin : str
+        Recipe file, or :data:`OPTIONS_ORIGIN` for command-line options and keyword arguments.
+
+    Returns
+    -------
+    RecipeError
+        To be raised by the caller.
+    """
+    return RecipeError([Problem("fatal", origin, None, None, message, hint, code)])
+
+
 class OutputExistsError(AllobranchError):
     """An output directory or file already exists and would be overwritten."""

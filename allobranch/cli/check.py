@@ -18,13 +18,7 @@ from allobranch.reporting.junctions import write_junctions
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
-    """Add the ``check`` sub-command.
-
-    Parameters
-    ----------
-    subparsers : argparse._SubParsersAction
-        The top-level parser's sub-command collection.
-    """
+    """Add the ``check`` sub-command to the top-level parser's ``subparsers``."""
     parser = subparsers.add_parser(
         "check",
         help="validate a junction table and describe it",
@@ -117,19 +111,8 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``allobranch check``.
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments (mapping options, ``out``, ``save_recipe``, ``force``).
-
-    Returns
-    -------
-    int
-        0 when the table is usable; unusable input raises an :class:`~allobranch.errors.AllobranchError`,
-        which the command-line entry point reports with exit code 2.
-    """
+    """Run ``allobranch check``: exit code 0 when the table is usable (unusable input raises an
+    :class:`~allobranch.errors.AllobranchError`, which the entry point reports with exit code 2)."""
     # Check the destinations before doing any work, so a run fails early rather than half-way.
     if args.out:
         prepare_output_dir(args.out, [JUNCTIONS_FILE], force=args.force)

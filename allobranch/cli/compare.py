@@ -6,7 +6,7 @@ import argparse
 import sys
 import time
 
-from allobranch.cli.fit import add_sampler_arguments, print_exponents, spec_from_args
+from allobranch.cli.fit import add_sampler_arguments, print_exponents, sampler_kwargs, spec_from_args
 from allobranch.cli.options import add_mapping_arguments, add_worker_argument, table_from_args
 from allobranch.comparison.laws import CLASSIC_LAWS, resolve_laws
 from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
@@ -16,13 +16,7 @@ from allobranch.io import prepare_output_dir
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
-    """Add the ``compare`` sub-command.
-
-    Parameters
-    ----------
-    subparsers : argparse._SubParsersAction
-        The top-level parser's sub-command collection.
-    """
+    """Add the ``compare`` sub-command to the top-level parser's ``subparsers``."""
     classic = ", ".join(f"{law.label} ({law.value:g})" for law in CLASSIC_LAWS)
     parser = subparsers.add_parser(
         "compare",
@@ -76,18 +70,8 @@ def print_verdicts(verdicts) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``allobranch compare``.
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments.
-
-    Returns
-    -------
-    int
-        0 on success; bad input raises :class:`~allobranch.errors.AllobranchError` (exit code 2).
-    """
+    """Run ``allobranch compare``: exit code 0 on success (bad input raises
+    :class:`~allobranch.errors.AllobranchError`, which the entry point reports with exit code 2)."""
     started = time.perf_counter()
     prepare_output_dir(args.out, list(COMPARISON_FILES), force=args.force)  # fail before the long fits
     laws = resolve_laws(args.laws)  # and before reading the table
@@ -107,17 +91,11 @@ def run(args: argparse.Namespace) -> int:
         laws,
         delta=args.delta,
         scopes=scopes,
-        seed=args.seed,
-        draws=args.draws,
-        tune=args.tune,
-        chains=args.chains,
-        sampler=args.sampler,
-        target_accept=args.target_accept,
         spec=None if free else spec_from_args(args),
         progress=not args.quiet,
         fit=free,
-        escalate=args.escalate,
         workers=args.workers,
+        **sampler_kwargs(args),
     )
     written = write_comparison(result, args.out, force=args.force)
     for w in result.warnings:

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from allobranch.cli.compare import print_verdicts
-from allobranch.cli.fit import add_sampler_arguments, fit_and_write
+from allobranch.cli.fit import add_sampler_arguments, fit_and_write, sampler_kwargs
 from allobranch.cli.options import add_worker_argument
 from allobranch.conventions import FIGURES_DIR, REPORT_FILE
 from allobranch.demo import DEMO_FILES, demo_folder, write_demo
@@ -29,17 +29,7 @@ def run(args: argparse.Namespace) -> int:
     print(format_check_report(table, ab.naive_summary(geometry, by=("taxon",))))
     result = fit_and_write(table, args, out)
     laws = ab.compare_laws(
-        table,
-        fit=result,
-        seed=args.seed,
-        draws=args.draws,
-        tune=args.tune,
-        chains=args.chains,
-        sampler=args.sampler,
-        target_accept=args.target_accept,
-        escalate=args.escalate,
-        workers=args.workers,
-        progress=not args.quiet,
+        table, fit=result, workers=args.workers, progress=not args.quiet, **sampler_kwargs(args)
     )
     ab.write_comparison(laws, out, force=args.force)
     print_verdicts(laws.verdicts)

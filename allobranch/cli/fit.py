@@ -108,6 +108,13 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--force", action="store_true", help="replace existing result files in --out")
 
 
+def sampler_kwargs(args: argparse.Namespace) -> dict:
+    """The sampler options of :func:`add_sampler_arguments` as keyword arguments of ``fit`` and
+    ``compare_laws`` (seed, draws, tune, chains, sampler, target_accept, escalate)."""
+    names = ("seed", "draws", "tune", "chains", "sampler", "target_accept", "escalate")
+    return {name: getattr(args, name) for name in names}
+
+
 def print_exponents(exponents, title: str, *, diagnostics: bool = True) -> None:
     """Print the population and taxon rows of an exponents table under ``title`` (with the HDI level).
 
@@ -143,18 +150,7 @@ def fit_and_write(table, args: argparse.Namespace, out) -> object:
     from allobranch.reporting.fit_outputs import write_fit_outputs
 
     prepare_output_dir(out, list(FIT_FILES), force=args.force)  # fail before the long fit, not after
-    result = ab.fit(
-        table,
-        spec_from_args(args),
-        draws=args.draws,
-        tune=args.tune,
-        chains=args.chains,
-        seed=args.seed,
-        sampler=args.sampler,
-        target_accept=args.target_accept,
-        escalate=args.escalate,
-        progress=not args.quiet,
-    )
+    result = ab.fit(table, spec_from_args(args), **sampler_kwargs(args), progress=not args.quiet)
     for note in result.notes:
         print(f"NOTE: {note}", file=sys.stderr)
     write_fit_outputs(result, out, hdi_prob=args.hdi, force=True)

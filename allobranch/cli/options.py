@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING
 
 from allobranch.cli.model_options import covariate_columns
 from allobranch.cli.network_options import add_network_arguments, network_from_args
-from allobranch.errors import Problem, RecipeError
+from allobranch.errors import option_error
 from allobranch.intake import read_junctions
 from allobranch.intake.mapping import MEASURES, ColumnMapping
 from allobranch.intake.recipe import load_recipe, mapping_from_options
@@ -170,38 +170,15 @@ def input_from_args(args: argparse.Namespace) -> tuple[JunctionTable, NetworkJun
     if network is not None:
         return network.table, network
     if args.table is None:
-        raise RecipeError(
-            [
-                Problem(
-                    "fatal",
-                    "<options>",
-                    None,
-                    None,
-                    "no junction table given",
-                    "give TABLE, or a network: --edges FILE --root ID, or --swc FILE|DIR",
-                    "no_table",
-                )
-            ]
+        raise option_error(
+            "no junction table given",
+            "give TABLE, or a network: --edges FILE --root ID, or --swc FILE|DIR",
+            "no_table",
         )
     return read_junctions(args.table, mapping_from_args(args)), None
 
 
 def table_from_args(args: argparse.Namespace) -> JunctionTable:
-    """Read and validate ``args.table`` (or derive it from a network) with the mapping given by the options.
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments from a parser prepared with :func:`add_mapping_arguments`.
-
-    Returns
-    -------
-    JunctionTable
-        The validated junction table.
-
-    Raises
-    ------
-    allobranch.errors.InputError
-        When the table or the mapping cannot be used (the CLI prints the message and exits with code 2).
-    """
+    """The validated junction table of :func:`input_from_args` (read from ``args.table`` or derived from a
+    network), without the network; raises :class:`~allobranch.errors.InputError` as it does."""
     return input_from_args(args)[0]

@@ -50,7 +50,7 @@ def resolve_mapping(
     Returns
     -------
     ColumnMapping
-        The checked mapping.
+        The mapping given, read from the recipe or built from the keywords; checked.
 
     Raises
     ------

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from allobranch.errors import InputError, Problem, RecipeError
+from allobranch.errors import OPTIONS_ORIGIN, InputError, Problem, option_error
 
 #: File extensions read as each kind of table.
 TEXT_EXTENSIONS: tuple[str, ...] = (".csv", ".txt", ".tsv", ".tab", "")
@@ -91,7 +91,9 @@ def _fatal(label: str, message: str, hint: str, code: str, row: int | None = Non
     return InputError([Problem("fatal", label, row, None, message, hint, code)])
 
 
-def check_encoding(encoding: str | None, *, origin: str = "<options>", key: str = "encoding") -> str | None:
+def check_encoding(
+    encoding: str | None, *, origin: str = OPTIONS_ORIGIN, key: str = "encoding"
+) -> str | None:
     """Check that a text encoding is one Python can decode with.
 
     Parameters
@@ -131,18 +133,11 @@ def check_encoding(encoding: str | None, *, origin: str = "<options>", key: str 
             pass
         else:
             return name
-    raise RecipeError(
-        [
-            Problem(
-                "fatal",
-                origin,
-                None,
-                None,
-                f"{key}: {encoding!r} is not a text encoding known to Python",
-                f"give a Python codec name, e.g. {', '.join(ENCODING_EXAMPLES)}",
-                "unknown_encoding",
-            )
-        ]
+    raise option_error(
+        f"{key}: {encoding!r} is not a text encoding known to Python",
+        f"give a Python codec name, e.g. {', '.join(ENCODING_EXAMPLES)}",
+        "unknown_encoding",
+        origin,
     )
 
 

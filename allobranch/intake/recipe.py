@@ -35,7 +35,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from allobranch.errors import OutputExistsError, Problem, RecipeError
+from allobranch.errors import OPTIONS_ORIGIN, OutputExistsError, Problem, RecipeError
 from allobranch.intake.mapping import MEASURES, ColumnMapping
 from allobranch.intake.readers import check_encoding
 from allobranch.intake.units import canonical_unit
@@ -48,7 +48,6 @@ RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
     "input": ("sheet", "encoding"),
 }
 
-OPTIONS_ORIGIN = "<options>"
 #: Recipe sections read elsewhere (the model's options: :func:`allobranch.comparative.options.load_model_options`;
 #: a network to derive the junctions from: :func:`allobranch.networks.options.load_network_recipe`); the
 #: mapping reader passes over them.
@@ -195,7 +194,7 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
     Returns
     -------
     ColumnMapping
-        The checked mapping.
+        The recipe's mapping, checked.
 
     Raises
     ------
@@ -389,7 +388,7 @@ def mapping_from_options(
     Returns
     -------
     ColumnMapping
-        The checked mapping.
+        The base mapping with the options over it, checked.
 
     Raises
     ------

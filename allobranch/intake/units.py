@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from allobranch.errors import Problem, RecipeError
+from allobranch.errors import OPTIONS_ORIGIN, option_error
 from allobranch.intake.mapping import MEASURES
 
 #: Millimetres per unit for every canonical unit; ``None`` means "no physical length" (pixels).
@@ -39,7 +39,7 @@ UNIT_ALIASES: dict[str, str] = {
 ALLOWED_UNITS: tuple[str, ...] = (*MM_PER_UNIT, *UNIT_ALIASES)
 
 
-def canonical_unit(unit: str, *, origin: str = "<options>", key: str = "unit") -> str:
+def canonical_unit(unit: str, *, origin: str = OPTIONS_ORIGIN, key: str = "unit") -> str:
     """Return the canonical spelling of a length unit.
 
     Parameters
@@ -74,18 +74,11 @@ def canonical_unit(unit: str, *, origin: str = "<options>", key: str = "unit") -
                 return candidate
             if candidate in UNIT_ALIASES:
                 return UNIT_ALIASES[candidate]
-    raise RecipeError(
-        [
-            Problem(
-                "fatal",
-                origin,
-                None,
-                None,
-                f"unknown length unit {unit!r} for '{key}'",
-                f"use one of: {', '.join(ALLOWED_UNITS)}",
-                "unknown_unit",
-            )
-        ]
+    raise option_error(
+        f"unknown length unit {unit!r} for '{key}'",
+        f"use one of: {', '.join(ALLOWED_UNITS)}",
+        "unknown_unit",
+        origin,
     )
 
 
@@ -110,18 +103,8 @@ def radius_factor(unit: str, measure: str) -> float:
     0.0005
     """
     if measure not in MEASURES:
-        raise RecipeError(
-            [
-                Problem(
-                    "fatal",
-                    "<options>",
-                    None,
-                    None,
-                    f"unknown measure {measure!r}",
-                    f"use one of: {', '.join(MEASURES)}",
-                    "unknown_measure",
-                )
-            ]
+        raise option_error(
+            f"unknown measure {measure!r}", f"use one of: {', '.join(MEASURES)}", "unknown_measure"
         )
     mm = MM_PER_UNIT[canonical_unit(unit)]
     scale = 1.0 if mm is None else mm

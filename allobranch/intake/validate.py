@@ -162,12 +162,21 @@ def _label(value: object) -> str | None:
     return str(value).strip()
 
 
-def _blank_rows(frame: pd.DataFrame) -> np.ndarray:
-    if frame.shape[1] == 0:
-        return np.zeros(len(frame), dtype=bool)
-    blank = np.ones(len(frame), dtype=bool)
+def _blank_rows(raw: RawTable, out: _Collector) -> np.ndarray:
+    """Which rows of ``raw`` are blank; each is recorded in ``out`` as excluded (never dropped silently)."""
+    frame = raw.frame
+    blank = np.ones(len(frame), dtype=bool) if frame.shape[1] else np.zeros(len(frame), dtype=bool)
     for col in frame.columns:
         blank &= np.array([_is_empty(v) for v in frame[col].tolist()], dtype=bool)
+    for r in raw.rows[blank]:
+        out.add(
+            "excluded",
+            r,
+            None,
+            "blank row",
+            "not used; delete it if the row was meant to be empty",
+            "blank_row",
+        )
     return blank
 
 
@@ -514,16 +523,7 @@ def build_junction_table(
     """
     _check_columns(raw, mapping)
     out = _Collector(raw.label)
-    blank = _blank_rows(raw.frame)
-    for r in raw.rows[blank]:
-        out.add(
-            "excluded",
-            r,
-            None,
-            "blank row",
-            "not used; delete it if the row was meant to be empty",
-            "blank_row",
-        )
+    blank = _blank_rows(raw, out)
     if blank.all():
         out.add(
             "fatal",
@@ -614,16 +614,7 @@ def _build_repeats(
                 "missing_column",
             )
         return pd.DataFrame(columns=list(REPEAT_COLUMNS)), out
-    blank = _blank_rows(raw.frame)
-    for r in raw.rows[blank]:
-        out.add(
-            "excluded",
-            r,
-            None,
-            "blank row",
-            "not used; delete it if the row was meant to be empty",
-            "blank_row",
-        )
+    blank = _blank_rows(raw, out)
     sub = raw.frame.loc[~blank]
     rows = raw.rows[~blank]
 

@@ -91,7 +91,7 @@ def attempts_sentence(settings: Mapping) -> str:
     Parameters
     ----------
     settings : mapping
-        A fit's settings (``FitResult.settings``).
+        ``FitResult.settings``, whose ``attempts`` list it reads.
 
     Returns
     -------

@@ -61,12 +61,12 @@ def write_junctions(
     Returns
     -------
     pathlib.Path
-        The file written.
+        ``out/junctions.csv``.
 
     Raises
     ------
     OutputExistsError
-        If the file exists and ``force`` is false, or ``out`` is a file.
+        When ``junctions.csv`` is already in ``out`` (without ``force``) or ``out`` is a file.
     """
     folder = prepare_output_dir(out, [JUNCTIONS_FILE], force=force)
     frame = junction_table(table, geometry)

@@ -12,7 +12,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 
 #: Kinds of warning, in the order they are shown: label and the pattern that recognises a message.
-#: Law-fit messages ("fit of murray (overall): R-hat ...") come before the sampler kinds they contain.
+#: Law-fit messages ("fit of murray (population): R-hat ...") come before the sampler kinds they contain.
 WARNING_KINDS: tuple[tuple[str, str], ...] = (
     ("law fits with convergence problems", r"^fit of (?!the free model)"),
     ("R-hat above threshold (chains disagree)", r"R-hat above"),
@@ -73,7 +73,7 @@ def group_warnings(messages: Iterable[str]) -> list[WarningGroup]:
     Examples
     --------
     >>> groups = group_warnings(["3 divergent transition(s): ...", "R-hat above 1.01 for 2 parameter(s)",
-    ...                          "fit of murray (overall): R-hat above 1.01 ...", "something new"])
+    ...                          "fit of murray (population): R-hat above 1.01 ...", "something new"])
     >>> [(g.kind, g.count) for g in groups]  # doctest: +NORMALIZE_WHITESPACE
     [('law fits with convergence problems', 1), ('R-hat above threshold (chains disagree)', 1),
      ('divergent transitions', 1), ('other warnings', 1)]
