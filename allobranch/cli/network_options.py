@@ -44,7 +44,7 @@ def add_network_arguments(parser: argparse.ArgumentParser) -> None:
     parser : argparse.ArgumentParser
         The sub-command's parser (which also has the column-mapping options).
     """
-    from allobranch.networks.options import CHOICES
+    from allobranch.networks.rules import CHOICES
 
     group = parser.add_argument_group(
         "network input",

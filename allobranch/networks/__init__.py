@@ -15,28 +15,39 @@ say what was done so it can be reported.
 
 from __future__ import annotations
 
-from allobranch.networks.generations import AVERAGED_CAVEAT, GenerationExponents, generation_exponents
-from allobranch.networks.graph import LOOP_RULES, junctions_from_edges
-from allobranch.networks.layout import DendrogramLayout, dendrogram_layout
-from allobranch.networks.result import CONTINUATION_RULES, ROOT_RULES, NetworkJunctions
-from allobranch.networks.segments import junctions_from_segments
-from allobranch.networks.swc import NEURITE_TYPES, RADIUS_RULES, junctions_from_swc, read_swc, write_swc
+from importlib import import_module
 
-__all__ = [
-    "AVERAGED_CAVEAT",
-    "CONTINUATION_RULES",
-    "DendrogramLayout",
-    "GenerationExponents",
-    "LOOP_RULES",
-    "NEURITE_TYPES",
-    "NetworkJunctions",
-    "RADIUS_RULES",
-    "ROOT_RULES",
-    "dendrogram_layout",
-    "generation_exponents",
-    "junctions_from_edges",
-    "junctions_from_segments",
-    "junctions_from_swc",
-    "read_swc",
-    "write_swc",
-]
+#: Public names and the module each comes from; imported on first use, so that building the command-line
+#: parser (which reads :mod:`allobranch.networks.rules`) does not import the converters' libraries.
+_LAZY: dict[str, str] = {
+    "AVERAGED_CAVEAT": "allobranch.networks.generations",
+    "GenerationExponents": "allobranch.networks.generations",
+    "generation_exponents": "allobranch.networks.generations",
+    "junctions_from_edges": "allobranch.networks.graph",
+    "DendrogramLayout": "allobranch.networks.layout",
+    "dendrogram_layout": "allobranch.networks.layout",
+    "NetworkJunctions": "allobranch.networks.result",
+    "junctions_from_segments": "allobranch.networks.segments",
+    "junctions_from_swc": "allobranch.networks.swc",
+    "read_swc": "allobranch.networks.swc",
+    "write_swc": "allobranch.networks.swc",
+    "CONTINUATION_RULES": "allobranch.networks.rules",
+    "LOOP_RULES": "allobranch.networks.rules",
+    "NEURITE_TYPES": "allobranch.networks.rules",
+    "RADIUS_RULES": "allobranch.networks.rules",
+    "ROOT_RULES": "allobranch.networks.rules",
+}
+
+__all__ = sorted(_LAZY)
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        value = getattr(import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'allobranch.networks' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))

@@ -28,15 +28,13 @@ from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import breadth_first_order, connected_components
 
 from allobranch.networks.cells import raise_fatal, read_network_rows
-from allobranch.networks.result import ROOT_RULES, NetworkJunctions, check_rule
+from allobranch.networks.result import NetworkJunctions, check_rule
+from allobranch.networks.rules import LOOP_RULES, ROOT_RULES
 from allobranch.networks.segments import (
     SegmentForest,
     derive_from_forest,
     rows_text,
 )
-
-#: Loop handling: keep the widest spanning tree (each removed edge the thinnest of its loop), or refuse.
-LOOP_RULES: tuple[str, ...] = ("break_thinnest", "error")
 
 #: Joins the two node ids of an edge in its segment name.
 EDGE_SEP = "-"

@@ -38,25 +38,17 @@ from allobranch.errors import Problem, RecipeError
 from allobranch.intake.mapping import ColumnMapping
 from allobranch.intake.recipe import NETWORK_SIZE_COLUMNS, RECIPE_SECTIONS, _toml_value
 from allobranch.io import atomic_write, prepare_output_dir
-from allobranch.networks.graph import LOOP_RULES, junctions_from_edges
-from allobranch.networks.result import CONTINUATION_RULES, ROOT_RULES, NetworkJunctions
+from allobranch.networks.graph import junctions_from_edges
+from allobranch.networks.result import NetworkJunctions
+from allobranch.networks.rules import CHOICES
 from allobranch.networks.segments import junctions_from_segments
-from allobranch.networks.swc import NEAR_POINTS, NEURITE_TYPES, RADIUS_RULES, junctions_from_swc
+from allobranch.networks.swc import NEAR_POINTS, junctions_from_swc
 
 #: The recipe section holding the network options.
 NETWORK_SECTION = "network"
 
 #: Kinds of network input.
 NETWORK_KINDS: tuple[str, ...] = ("segments", "edges", "swc")
-
-#: Allowed values of the options that take one of a few words.
-CHOICES: dict[str, tuple[str, ...]] = {
-    "continuations": CONTINUATION_RULES,
-    "roots": ROOT_RULES,
-    "loops": LOOP_RULES,
-    "radius_rule": RADIUS_RULES,
-    "neurite_types": tuple(NEURITE_TYPES),
-}
 
 #: Options that only apply to one kind of input.
 KIND_OF: dict[str, str] = {

@@ -14,14 +14,6 @@ from allobranch.intake import read_junctions
 from allobranch.intake.table import JunctionTable
 from allobranch.networks.assemble import DAUGHTER_SEP, daughter_columns
 
-#: Continuation handling: merge a run of single-child segments into one segment, or keep the pieces
-#: (then a junction's parent is the piece just above the branch point and its daughters the pieces just
-#: below). A continuation is never a junction in either case.
-CONTINUATION_RULES: tuple[str, ...] = ("merge", "keep")
-
-#: How many roots a specimen may have: exactly one, or any number (a forest of separate trees).
-ROOT_RULES: tuple[str, ...] = ("one", "many")
-
 #: Columns of :attr:`NetworkJunctions.continuations`.
 CONTINUATION_COLUMNS: tuple[str, ...] = ("taxon", "specimen", "segment", "child", "source", "row")
 
@@ -31,7 +23,7 @@ def check_rule(option: str, value: object, allowed: tuple[str, ...]) -> str:
 
     Examples
     --------
-    >>> check_rule("continuations", "merge", CONTINUATION_RULES)
+    >>> check_rule("continuations", "merge", ("merge", "keep"))
     'merge'
     """
     if value in allowed:

@@ -23,12 +23,11 @@ from allobranch.networks.assemble import Runs, assemble_junctions, join_groups
 from allobranch.networks.cells import raise_fatal, read_network_rows
 from allobranch.networks.result import (
     CONTINUATION_COLUMNS,
-    CONTINUATION_RULES,
-    ROOT_RULES,
     NetworkJunctions,
     check_rule,
     validate_frame,
 )
+from allobranch.networks.rules import CONTINUATION_RULES, ROOT_RULES
 from allobranch.networks.tree import build_topology, cycles, unreachable
 
 #: Separator between the pieces of a merged segment in its name and rows.

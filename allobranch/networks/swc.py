@@ -44,27 +44,13 @@ from allobranch.errors import InputError, Problem
 from allobranch.intake.validate import DEFAULT_TAXON, _Collector
 from allobranch.networks.assemble import Runs, assemble_junctions
 from allobranch.networks.cells import raise_fatal
-from allobranch.networks.result import ROOT_RULES, NetworkJunctions, check_rule, validate_frame
+from allobranch.networks.result import NetworkJunctions, check_rule, validate_frame
+from allobranch.networks.rules import NEURITE_TYPES, RADIUS_RULES, ROOT_RULES, SOMA
 from allobranch.networks.segments import check_forest, link_parents
 from allobranch.networks.tree import Topology, build_topology
 
 #: The seven fields of an SWC line, in order.
 SWC_FIELDS: tuple[str, ...] = ("id", "type", "x", "y", "z", "radius", "parent")
-
-#: SWC type codes.
-SOMA, AXON, BASAL, APICAL = 1, 2, 3, 4
-
-#: Type selections and the SWC type codes of the branch points they keep (``None``: every non-soma type).
-NEURITE_TYPES: dict[str, tuple[int, ...] | None] = {
-    "all": None,
-    "dendrite": (BASAL, APICAL),
-    "basal": (BASAL,),
-    "apical": (APICAL,),
-    "axon": (AXON,),
-}
-
-#: Radius rules (see the module notes).
-RADIUS_RULES: tuple[str, ...] = ("trimmed_median", "near_branch", "median")
 
 #: Default trim at each end of a section, in radii of the section's sample at that end.
 TRIM_RADII = 2.0
