@@ -68,7 +68,10 @@ def test_hand_tree_merge_joins_continuations_with_their_child():
     # generation, order and tips do not depend on the continuation rule
     assert out["generation"].tolist() == [0, 1] and out["strahler_order"].tolist() == [2, 2]
     # both continuations are listed with their child and row
-    assert res.continuations[["segment", "child", "row"]].to_numpy().tolist() == [["a", "b", 2], ["c", "g", 4]]
+    assert res.continuations[["segment", "child", "row"]].to_numpy().tolist() == [
+        ["a", "b", 2],
+        ["c", "g", 4],
+    ]
     assert res.rules["continuations"] == "merge"
     assert any("2 continuation segment(s)" in note and "length-weighted" in note for note in res.notes)
 
@@ -79,7 +82,9 @@ def test_merge_without_lengths_takes_the_plain_mean():
 
 
 def test_derived_frame_is_validated_in_the_users_unit_and_measure():
-    res = junctions_from_segments(HAND, segment_id="id", parent_id="up", size="r", measure="diameter", unit="um")
+    res = junctions_from_segments(
+        HAND, segment_id="id", parent_id="up", size="r", measure="diameter", unit="um"
+    )
     # 1.8 um diameter = 0.9 um radius = 0.0009 mm (the table's internal unit)
     assert res.table.data["parent"].iloc[0] == pytest.approx((2.0 + 1.8) / 2 / 2 / 1000)
     assert res.frame["parent"].iloc[0] == pytest.approx(1.9)  # the frame keeps the user's numbers
@@ -102,8 +107,13 @@ def test_flags_point_back_at_the_segment_row(tmp_path):
 
 def test_taxa_and_specimens_are_kept_apart():
     two = pd.concat([HAND.assign(spec="s1", tax="x"), HAND.assign(spec="s2", tax="y")], ignore_index=True)
-    res = junctions_from_segments(two, segment_id="id", parent_id="up", size="r", taxon="tax", specimen="spec")
-    assert res.frame[["taxon", "specimen"]].drop_duplicates().to_numpy().tolist() == [["x", "s1"], ["y", "s2"]]
+    res = junctions_from_segments(
+        two, segment_id="id", parent_id="up", size="r", taxon="tax", specimen="spec"
+    )
+    assert res.frame[["taxon", "specimen"]].drop_duplicates().to_numpy().tolist() == [
+        ["x", "s1"],
+        ["y", "s2"],
+    ]
     assert len(res.frame) == 4 and res.table.n_junctions == 4
 
 
@@ -131,7 +141,10 @@ def test_unknown_parent_id_is_named(tmp_path):
 
 def test_cycles_are_listed_with_their_members(tmp_path):
     bad = pd.concat(
-        [HAND, pd.DataFrame({"id": ["x", "y", "z"], "up": ["y", "x", "y"], "r": [1.0, 1.0, 0.5], "len": 1.0})],
+        [
+            HAND,
+            pd.DataFrame({"id": ["x", "y", "z"], "up": ["y", "x", "y"], "r": [1.0, 1.0, 0.5], "len": 1.0}),
+        ],
         ignore_index=True,
     )
     msg = _error(bad, tmp_path)
@@ -141,7 +154,9 @@ def test_cycles_are_listed_with_their_members(tmp_path):
 
 
 def test_several_roots_refused_unless_allowed(tmp_path):
-    bad = pd.concat([HAND, pd.DataFrame({"id": ["p", "q", "s"], "up": [None, "p", "p"], "r": [1.0, 0.8, 0.7]})])
+    bad = pd.concat(
+        [HAND, pd.DataFrame({"id": ["p", "q", "s"], "up": [None, "p", "p"], "r": [1.0, 0.8, 0.7]})]
+    )
     msg = _error(bad, tmp_path)
     assert "row 9, column 'up'" in msg and "2 root segments" in msg and "'a' (row 2), 'p' (row 9)" in msg
     res = junctions_from_segments(bad, segment_id="id", parent_id="up", size="r", roots="many")
@@ -332,8 +347,13 @@ def test_loops_refused_on_request_and_roots_checked():
 
 def test_root_per_specimen():
     two = pd.concat([GRAPH.assign(s="p"), GRAPH.assign(s="q")], ignore_index=True)
-    res = junctions_from_edges(two, node_from="a", node_to="b", size="r", specimen="s", root={"p": "0", "q": "6"})
+    res = junctions_from_edges(
+        two, node_from="a", node_to="b", size="r", specimen="s", root={"p": "0", "q": "6"}
+    )
     # from node 6 the same graph is entered through 4-6: the branch points are 2 and 1 in that order
-    assert res.frame.groupby("specimen")["junction"].apply(list).to_dict() == {"p": ["1", "2"], "q": ["2", "1"]}
+    assert res.frame.groupby("specimen")["junction"].apply(list).to_dict() == {
+        "p": ["1", "2"],
+        "q": ["2", "1"],
+    }
     with pytest.raises(InputError, match="no root node given for specimen 'q'"):
         junctions_from_edges(two, node_from="a", node_to="b", size="r", specimen="s", root={"p": "0"})

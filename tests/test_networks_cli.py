@@ -54,8 +54,14 @@ def test_check_writes_traced_junctions_figures_and_a_recipe_that_reruns(segments
     written = pd.read_csv(out / "junctions.csv", dtype=str)
     # by hand: junction b (parent b, row 3; daughters d row 5, c row 4), junction d (parent row 5; f 7, e 6)
     assert written["junction"].tolist() == ["b", "d"]
-    assert written["parent_segment"].tolist() == ["b", "d"] and written["daughter_segments"].tolist() == ["d;c", "f;e"]
-    assert written["parent_rows"].tolist() == ["3", "5"] and written["daughter_rows"].tolist() == ["5;4", "7;6"]
+    assert written["parent_segment"].tolist() == ["b", "d"] and written["daughter_segments"].tolist() == [
+        "d;c",
+        "f;e",
+    ]
+    assert written["parent_rows"].tolist() == ["3", "5"] and written["daughter_rows"].tolist() == [
+        "5;4",
+        "7;6",
+    ]
     assert written["generation"].tolist() == ["0", "1"] and written["strahler_order"].tolist() == ["2", "2"]
     assert written["source"].tolist() == [str(segments)] * 2
     assert (out / "network_x.png").is_file()

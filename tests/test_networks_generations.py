@@ -75,7 +75,9 @@ def test_weibel_conducting_zone_fit_is_near_the_cube_law():
 
 def test_bad_tables_are_refused_with_rows():
     gap = AIRWAYS.drop(index=3)
-    with pytest.raises(InputError, match=r"row 5, column 'generation': generations 2 and 4 are not consecutive"):
+    with pytest.raises(
+        InputError, match=r"row 5, column 'generation': generations 2 and 4 are not consecutive"
+    ):
         generation_exponents(gap, size="diameter_cm")
     twice = pd.concat([AIRWAYS.iloc[:3], AIRWAYS.iloc[[1]]], ignore_index=True)
     with pytest.raises(InputError, match=r"row 5, column 'generation': generation 1 appears twice"):

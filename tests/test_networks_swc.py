@@ -59,7 +59,9 @@ def test_sections_soma_and_junctions_by_hand(hand):
     # the dendrite's first branch point has generation 0 (the soma is not counted)
     assert out["generation"].tolist() == [0, 1] and out["n_tips"].tolist() == [3, 2]
     assert res.table.unit == "um"
-    assert any("1 soma branch point(s) and 2 neurite(s) leaving the soma are not junctions" in n for n in res.notes)
+    assert any(
+        "1 soma branch point(s) and 2 neurite(s) leaving the soma are not junctions" in n for n in res.notes
+    )
 
 
 def test_near_branch_reads_next_to_the_junction(hand):
@@ -85,7 +87,9 @@ def test_trimmed_median_leaves_out_the_ends(tmp_path):
     # section, so its sample nearest the middle (s = 5.5 of 10.5, x = 6, radius 1.2) is used and counted
     res = junctions_from_swc(path)
     assert res.frame["parent"].iloc[0] == 1.2
-    assert any("section(s) too short" in n and n.startswith("3 ") for n in res.notes)  # the section and both tips
+    assert any(
+        "section(s) too short" in n and n.startswith("3 ") for n in res.notes
+    )  # the section and both tips
     # trim 0 keeps every sample: the plain median
     assert junctions_from_swc(path, trim=0.0).frame["parent"].iloc[0] == np.median(r)
 
@@ -113,7 +117,9 @@ def test_folder_of_files_with_taxa_from_subfolders(tmp_path):
 
 
 def test_bad_lines_are_named_with_line_and_field(tmp_path):
-    bad = HAND_SWC.replace("5 3 8 1 0 1.6 4", "5 3 8 1 0 thick 4").replace("7 3 8 -1 0 1.5 4", "7 3 8 -1 0 1.5")
+    bad = HAND_SWC.replace("5 3 8 1 0 1.6 4", "5 3 8 1 0 thick 4").replace(
+        "7 3 8 -1 0 1.5 4", "7 3 8 -1 0 1.5"
+    )
     with pytest.raises(InputError) as info:
         parse_swc(bad, "cell.swc")
     msg = str(info.value)
@@ -140,7 +146,9 @@ def test_swc_round_trip_gives_the_segment_tables_junctions(tmp_path):
     samples = trace_swc(seg, seed=6, noise=0.0, swelling=0.0, decay_radii=1e-9)
     path = write_swc(samples, tmp_path / "sim.swc", SIMULATED_NOTE)
     assert SIMULATED_NOTE in path.read_text()
-    pd.testing.assert_frame_equal(parse_swc(swc_text(samples)).drop(columns="line"), samples, check_dtype=False, atol=1e-6)
+    pd.testing.assert_frame_equal(
+        parse_swc(swc_text(samples)).drop(columns="line"), samples, check_dtype=False, atol=1e-6
+    )
     got = junctions_from_swc(path, radius_rule="median").frame
     want = junctions_from_segments(seg, segment_id="segment", parent_id="parent", size="radius").frame
     assert len(got) == len(want) == 40
@@ -150,7 +158,9 @@ def test_swc_round_trip_gives_the_segment_tables_junctions(tmp_path):
     for c in ("generation", "strahler_order", "n_tips"):
         assert got[c].tolist() == want[c].tolist()
     # the simulator's law holds exactly: every naive exponent is 3 (to the rounding of the file)
-    np.testing.assert_allclose(junction_geometry(junctions_from_swc(path, radius_rule="median").table)["exponent"], 3.0, rtol=1e-3)
+    np.testing.assert_allclose(
+        junction_geometry(junctions_from_swc(path, radius_rule="median").table)["exponent"], 3.0, rtol=1e-3
+    )
 
 
 def test_default_rule_recovers_the_exponent_through_taper_and_swelling(tmp_path):
@@ -160,7 +170,9 @@ def test_default_rule_recovers_the_exponent_through_taper_and_swelling(tmp_path)
     seg = simulate_segments(400, exponent=2.5, seed=11)
     path = write_swc(trace_swc(seg, seed=12, noise=0.05, swelling=0.4), tmp_path / "sim.swc", SIMULATED_NOTE)
     median = {
-        rule: float(np.nanmedian(junction_geometry(junctions_from_swc(path, radius_rule=rule).table)["exponent"]))
+        rule: float(
+            np.nanmedian(junction_geometry(junctions_from_swc(path, radius_rule=rule).table)["exponent"])
+        )
         for rule in ("trimmed_median", "near_branch")
     }
     assert abs(median["trimmed_median"] - 2.5) < 0.1
