@@ -463,12 +463,12 @@ def write_recipe(mapping: ColumnMapping, path: str | os.PathLike, *, overwrite: 
     Returns
     -------
     pathlib.Path
-        The file written.
+        ``path``, now holding the recipe (written atomically).
 
     Raises
     ------
     OutputExistsError
-        If the file exists and ``overwrite`` is false.
+        When ``path`` is already there and ``overwrite`` is not set.
     """
     dest = Path(path)
     if dest.exists() and not overwrite:
