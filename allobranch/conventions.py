@@ -52,21 +52,12 @@ def hdi_label(hdi_prob: float | None) -> str:
 
 
 # -- column sets of the output tables --------------------------------------------------------------------
-#: Columns of the exponents table (:meth:`FitResult.exponents`, ``exponents.csv``), in order: the tidy
-#: summary first (level, group, mean, sd, interval, R-hat, bulk ESS), then the rest.
-EXPONENT_COLUMNS: tuple[str, ...] = (
-    "level",
-    "group",
-    "mean",
-    "sd",
-    "hdi_low",
-    "hdi_high",
-    "r_hat",
-    "ess_bulk",
-    "taxon",
-    "ess_tail",
-    "fixed",
-)
+#: The tidy summary of one estimated quantity, and the columns of the exponents table
+#: (:meth:`FitResult.exponents`, ``exponents.csv``), in order: the tidy summary first (level, group, mean, sd, interval, R-hat, bulk ESS), then the rest.
+SUMMARY_STATS: tuple[str, ...] = ("mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk")
+EXPONENT_COLUMNS: tuple[str, ...] = ("level", "group", *SUMMARY_STATS, "taxon", "ess_tail", "fixed")
+#: Columns of ``covariates.csv``: slopes of covariates and traits, and the covariates' reference values.
+COVARIATE_COLUMNS: tuple[str, ...] = ("term", "group", *SUMMARY_STATS, "reference", "meaning")
 #: Columns a figure needs from an exponents table.
 EXPONENT_FIGURE_COLUMNS: tuple[str, ...] = tuple(
     c for c in EXPONENT_COLUMNS if c not in ("ess_tail", "fixed")
@@ -142,6 +133,9 @@ EXPONENTS_FILE, VARIANCE_FILE, DIAGNOSTICS_FILE, SUMMARY_FILE = (
 )
 #: Every file of a fit's result folder.
 FIT_FILES: tuple[str, ...] = (EXPONENTS_FILE, VARIANCE_FILE, DIAGNOSTICS_FILE, SUMMARY_FILE, FIT_FILE)
+#: Written beside them when the model has covariates or traits (:data:`COVARIATE_COLUMNS`), and by
+#: ``compare`` when it has covariates (each slope against zero).
+COVARIATES_FILE, SLOPES_FILE = "covariates.csv", "slopes.csv"
 #: Files of a law comparison: evidence, per-taxon view, verdicts, warnings and the Markdown report.
 LAWS_FILE, LAWS_BY_TAXON_FILE, LAWS_VERDICTS_FILE, LAWS_WARNINGS_FILE, LAWS_REPORT_FILE = (
     "laws.csv",

@@ -38,6 +38,14 @@ MODEL_KEYS: dict[str, tuple[type | tuple[type, ...], str]] = {
 }
 
 
+def _option_error(message: str, hint: str) -> RecipeError:
+    return RecipeError([Problem("fatal", "<options>", None, None, message, hint, "bad_option")])
+
+
+def _recipe_error(path: Path, message: str, hint: str) -> Problem:
+    return Problem("fatal", str(path), None, None, message, hint, "bad_recipe")
+
+
 def _names(text: str | None) -> list[str]:
     return [v.strip() for v in (text or "").split(",") if v.strip()]
 
@@ -106,41 +114,15 @@ def recipe_model_options(recipe: str | None) -> dict[str, Any]:
     problems = []
     if not isinstance(section, dict):
         section = {}
-        problems.append(
-            Problem(
-                "fatal",
-                str(path),
-                None,
-                None,
-                "[model] must be a section",
-                "write [model] on its own line",
-                "bad_recipe",
-            )
-        )
+        problems.append(_recipe_error(path, "[model] must be a section", "write [model] on its own line"))
     for key, value in section.items():
         if key not in MODEL_KEYS:
             problems.append(
-                Problem(
-                    "fatal",
-                    str(path),
-                    None,
-                    None,
-                    f"[model] {key}: unknown key",
-                    f"allowed keys: {', '.join(MODEL_KEYS)}",
-                    "bad_recipe",
-                )
+                _recipe_error(path, f"[model] {key}: unknown key", f"allowed keys: {', '.join(MODEL_KEYS)}")
             )
         elif not isinstance(value, MODEL_KEYS[key][0]):
             problems.append(
-                Problem(
-                    "fatal",
-                    str(path),
-                    None,
-                    None,
-                    f"[model] {key}: expected {MODEL_KEYS[key][1]}",
-                    "correct the value",
-                    "bad_recipe",
-                )
+                _recipe_error(path, f"[model] {key}: expected {MODEL_KEYS[key][1]}", "correct the value")
             )
     if problems:
         raise RecipeError(problems)
@@ -171,32 +153,10 @@ def model_settings(args: argparse.Namespace) -> dict[str, Any]:
         "tree": args.tree or rec.get("tree"),
     }
     if out["trait"] and not out["traits"]:
-        raise RecipeError(
-            [
-                Problem(
-                    "fatal",
-                    "<options>",
-                    None,
-                    None,
-                    "--trait given without --traits FILE",
-                    "name the trait table with --traits",
-                    "bad_option",
-                )
-            ]
-        )
+        raise _option_error("--trait given without --traits FILE", "name the trait table with --traits")
     if out["traits"] and not out["trait"]:
-        raise RecipeError(
-            [
-                Problem(
-                    "fatal",
-                    "<options>",
-                    None,
-                    None,
-                    "--traits given without --trait COL",
-                    "name the trait column(s) to use with --trait",
-                    "bad_option",
-                )
-            ]
+        raise _option_error(
+            "--traits given without --trait COL", "name the trait column(s) to use with --trait"
         )
     return out
 
@@ -225,18 +185,9 @@ def spec_fields(args: argparse.Namespace) -> dict[str, Any]:
     s = model_settings(args)
     unknown = set(s["covariate_ref"]) - set(s["covariates"])
     if unknown:
-        raise RecipeError(
-            [
-                Problem(
-                    "fatal",
-                    "<options>",
-                    None,
-                    None,
-                    f"--covariate-ref names {', '.join(sorted(unknown))}, which is not a --covariate",
-                    "add it to --covariate or drop the reference",
-                    "bad_option",
-                )
-            ]
+        raise _option_error(
+            f"--covariate-ref names {', '.join(sorted(unknown))}, which is not a --covariate",
+            "add it to --covariate or drop the reference",
         )
     return {
         "covariates": tuple(s["covariates"]),

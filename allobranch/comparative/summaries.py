@@ -6,19 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-#: Columns of ``covariates.csv``.
-COVARIATE_COLUMNS: tuple[str, ...] = (
-    "term",
-    "group",
-    "mean",
-    "sd",
-    "hdi_low",
-    "hdi_high",
-    "r_hat",
-    "ess_bulk",
-    "reference",
-    "meaning",
-)
+from allobranch.conventions import COVARIATE_COLUMNS, SUMMARY_STATS
+
 #: Group label of slopes shared by all taxa.
 ALL_TAXA = "all taxa"
 
@@ -27,7 +16,7 @@ def _summary(draws: np.ndarray, hdi_prob: float) -> dict[str, float]:
     from allobranch.inference.results import _summ
 
     s = _summ(np.asarray(draws), hdi_prob)
-    return {k: s[k] for k in ("mean", "sd", "hdi_low", "hdi_high", "r_hat", "ess_bulk")}
+    return {k: s[k] for k in SUMMARY_STATS}
 
 
 def covariate_summary(result, hdi_prob: float = 0.9) -> pd.DataFrame:
@@ -42,7 +31,7 @@ def covariate_summary(result, hdi_prob: float = 0.9) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        Columns :data:`COVARIATE_COLUMNS`; empty when the model has no covariate or trait. ``reference`` is
+        Columns :data:`~allobranch.conventions.COVARIATE_COLUMNS`; empty when the model has no covariate or trait. ``reference`` is
         the covariate's value at which the specimen, taxon and population exponents are reported (a trait's
         mean over taxa for a trait).
     """

@@ -19,6 +19,7 @@ from scipy import stats
 from allobranch.comparison.bayes_factor import savage_dickey
 from allobranch.comparison.loo import compare_loo
 from allobranch.comparison.verdict import BF_DECLARE, BF_REJECT, LOO_CLEAR_ELPD, LOO_CLEAR_SE
+from allobranch.conventions import SLOPES_FILE
 from allobranch.model.data import model_data
 from allobranch.model.linear import build_linear_terms
 
@@ -127,10 +128,6 @@ def compare_covariates(
     out = pd.DataFrame(rows, columns=list(SLOPE_COLUMNS))
     out.attrs["hdi_prob"] = hdi_prob
     return out
-
-
-#: File written beside the law comparison when the model has covariates.
-SLOPES_FILE = "slopes.csv"
 
 
 def write_slopes(slopes: pd.DataFrame, out, *, force: bool = False):

@@ -486,28 +486,9 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxo
         s_dlt = np.zeros(ns)
         s_lpp = np.zeros(ns)  # noqa: E702
         s_dp = np.ones(ns)
-    return (
-        mu,
-        lt_t,
-        a_t,
-        lp_t,
-        t_dr,
-        t_dp,
-        t_dlt,
-        t_lpr,
-        t_lpp,
-        t_lplt,
-        lt_s,
-        a_s,
-        lp_s,
-        s_dr,
-        s_dp,
-        s_dlt,
-        s_lpr,
-        s_lpp,
-        s_lplt,
-        p,
-    )
+    taxon = (lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt)
+    specimen = (lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt)
+    return mu, taxon, specimen, p
 
 
 @nb.njit(cache=True, nogil=True)
@@ -568,28 +549,9 @@ def _logp_grad_plain(x, ints, floats, grad):
     (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
         _views(ints, floats)
     )
-    (
-        mu,
-        lt_t,
-        a_t,
-        lp_t,
-        t_dr,
-        t_dp,
-        t_dlt,
-        t_lpr,
-        t_lpp,
-        t_lplt,
-        lt_s,
-        a_s,
-        lp_s,
-        s_dr,
-        s_dp,
-        s_dlt,
-        s_lpr,
-        s_lpp,
-        s_lplt,
-        p,
-    ) = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
+    mu, taxon, specimen, p = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
+    (lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt) = taxon
+    (lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt) = specimen
     sdev = math.exp(x[p])
     nu = math.exp(x[p + 1]) if student else 30.0
     total, d_as, d_sdev, d_nu = _junction_likelihood(ints, floats, a_s, sdev, nu)
@@ -650,28 +612,8 @@ def _expand(x, ints, floats, out):
     (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
         _views(ints, floats)
     )
-    (
-        mu,
-        lt_t,
-        a_t,
-        lp_t,
-        t_dr,
-        t_dp,
-        t_dlt,
-        t_lpr,
-        t_lpp,
-        t_lplt,
-        lt_s,
-        a_s,
-        lp_s,
-        s_dr,
-        s_dp,
-        s_dlt,
-        s_lpr,
-        s_lpp,
-        s_lplt,
-        p,
-    ) = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
+    mu, taxon, specimen, p = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
+    lt_t, a_t, lt_s, a_s = taxon[0], taxon[1], specimen[0], specimen[1]
     k = 0
     out[k] = mu
     k += 1

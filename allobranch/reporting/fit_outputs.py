@@ -10,6 +10,7 @@ import pandas as pd
 
 from allobranch.comparative.summaries import covariate_summary, reference_text
 from allobranch.conventions import (
+    COVARIATES_FILE,
     DIAGNOSTICS_FILE,
     EXPONENT_COLUMNS,
     EXPONENTS_FILE,
@@ -23,10 +24,6 @@ from allobranch.io import prepare_output_dir, write_files
 from allobranch.reporting.tables import fit_summary_markdown
 
 __all__ = ["FIT_FILES", "hdi_prob_of", "write_fit_outputs"]
-
-#: Slopes of covariates and traits (written when the model has any; columns
-#: :data:`allobranch.comparative.summaries.COVARIATE_COLUMNS`).
-COVARIATES_FILE = "covariates.csv"
 
 
 def hdi_prob_of(result, hdi_prob: float | None = None) -> float:
