@@ -1,9 +1,9 @@
 """Validation by simulation: simulation-based calibration (reduced and full) and recovery of taxon exponents.
 
 The reduced calibration (eight tiny datasets, under a minute) runs by default; the others sample many
-models and are marked slow (run with ``--runslow``). They use the calibration
-loop of ``benchmarks/calibration.py`` (Talts et al. 2018, arXiv:1804.06788) so test and benchmark share one
-implementation. Coverage thresholds are loose binomial bounds (scipy.stats.binomtest), not rules of thumb.
+models and are marked slow (run with ``--runslow``). They use ``benchmarks/calibration.py``, which runs the
+library's calibration loop (:mod:`allobranch.planning.calibrate`; Talts et al. 2018, arXiv:1804.06788), so
+test, benchmark and ``allobranch calibrate`` share one implementation. Coverage thresholds are loose binomial bounds (scipy.stats.binomtest), not rules of thumb.
 """
 
 from __future__ import annotations
@@ -35,22 +35,20 @@ def calibration():
     return _load("calibration")
 
 
-@pytest.mark.skip(
-    reason="benchmarks/calibration.py swaps data into a compiled PyMC model and checks it against "
-    "allobranch.fit, which now samples the compiled fast density; the script must be ported to that route"
-)
 def test_reduced_calibration_runs_and_covers(calibration) -> None:
-    # Eight datasets from the prior: the pipeline runs end to end (including the check that swapping data
-    # into the compiled model reproduces allobranch.fit exactly), ranks lie in range, and the number of
-    # 90 % intervals covering the truth is not implausibly low for X ~ Binomial(n, 0.9): at least the
-    # 1 % quantile (scipy.stats.binom.ppf), i.e. 5 of the 8 population-exponent intervals (P(X <= 4) =
-    # 0.005) and 18 of the 24 taxon intervals (P(X <= 17) = 0.007).
-    frame = calibration.run(8, base_seed=9100, verify=True, log=lambda m: None)
-    assert set(frame["quantity"]) == set(calibration.QUANTITIES)
+    # Eight datasets from the prior through the library's calibration loop (each an ordinary allobranch.fit):
+    # ranks lie in range, and the number of 90 % intervals covering the truth is not implausibly low for
+    # X ~ Binomial(n, 0.9): at least the 1 % quantile (scipy.stats.binom.ppf), i.e. 5 of the 8
+    # population-exponent intervals (P(X <= 4) = 0.005) and 18 of the 24 taxon intervals (P(X <= 17) = 0.007).
+    from allobranch.engine import Engine
+
+    frame = calibration.run(8, base_seed=9100, engine=Engine(workers=1), progress=False)
+    assert (frame["status"] == "ok").all()
+    assert {"mu", "a_taxon", "sigma_dev"} <= set(frame["quantity"])
     assert frame["dataset"].nunique() == 8
     assert ((frame["rank"] >= 0) & (frame["rank"] <= frame["n_draws"])).all()
-    # the ranks are not all at one end (a sampler stuck at its start, or a swapped-in dataset that did not
-    # reach the model, puts every true value outside the draws)
+    # the ranks are not all at one end (a sampler stuck at its start, or a table that did not reach the
+    # model, puts every true value outside the draws)
     assert frame["rank"].nunique() > 1
     mu = frame[frame["quantity"] == "mu"]
     taxa = frame[frame["quantity"] == "a_taxon"]
@@ -63,15 +61,18 @@ def test_reduced_calibration_runs_and_covers(calibration) -> None:
 @pytest.mark.slow
 def test_full_calibration_coverage(calibration) -> None:
     # 100 datasets drawn exactly from the model's assumptions: coverage of the 90 % HDI of every exponent
-    # (mu and the taxa) must be consistent with 0.90 (exact binomial test, scipy.stats.binomtest, at the
-    # 0.001 level) and within 85-95 %, and the ranks uniform (chi-square, scipy.stats.chisquare).
-    frame = calibration.run(100, base_seed=7000, verify=True, log=lambda m: None, generator="exact")
-    table = calibration.coverage_table(frame).set_index("quantity")
-    row = table.loc["exponents (mu + a_taxon)"]
-    assert 0.85 <= row["coverage"] <= 0.95, row
-    assert row["binom_p"] > 0.001, row
+    # must be consistent with 0.90 (exact binomial test, scipy.stats.binomtest, at the 0.001 level) and within
+    # 85-95 %, and the ranks uniform (chi-square, scipy.stats.chisquare) for mu and the taxon exponents.
+    from allobranch.engine import Engine
+
+    frame = calibration.run(100, base_seed=7000, generator="exact", engine=Engine(workers=1), progress=False)
+    table = calibration.summary(frame).set_index("quantity")
+    exponents = frame[frame["quantity"].isin(["mu", "a_taxon"])]
+    k, n = int(exponents["covered"].sum()), len(exponents)
+    assert 0.85 <= k / n <= 0.95, (k, n)
+    assert stats.binomtest(k, n, p=0.9).pvalue > 0.001, (k, n)
     for q in ("mu", "a_taxon"):
-        assert table.loc[q, "rank_chi2_p"] > 0.001, table.loc[q]
+        assert table.loc[q, "chi2_p"] > 0.001, table.loc[q]
 
 
 @pytest.mark.slow

@@ -15,7 +15,7 @@ from collections.abc import Sequence
 from allobranch.errors import AllobranchError
 
 #: Sub-command modules, in the order shown by ``--help``.
-SUBCOMMANDS: tuple[str, ...] = ("check", "fit", "compare", "figures", "report", "demo")
+SUBCOMMANDS: tuple[str, ...] = ("check", "fit", "compare", "figures", "report", "demo", "plan", "calibrate")
 
 EXIT_OK = 0
 EXIT_FAILED = 1  # the job ran but its result is not usable (e.g. failed diagnostics when asked to be strict)

@@ -6,6 +6,7 @@ import argparse
 import sys
 import time
 
+from allobranch.cli.engine_options import add_engine_arguments, executor_from_args
 from allobranch.cli.fit import add_sampler_arguments, print_exponents, sampler_kwargs, spec_from_args
 from allobranch.cli.options import add_mapping_arguments, add_worker_argument, table_from_args
 from allobranch.comparison.laws import CLASSIC_LAWS, resolve_laws
@@ -59,6 +60,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     add_sampler_arguments(parser)
     add_worker_argument(parser)
+    add_engine_arguments(parser, workers=False)  # --scheduler: the fits on a Dask cluster
     parser.set_defaults(func=run)
 
 
@@ -96,6 +98,7 @@ def run(args: argparse.Namespace) -> int:
         fit=free,
         workers=args.workers,
         **sampler_kwargs(args),
+        executor=executor_from_args(args),
     )
     written = write_comparison(result, args.out, force=args.force)
     for w in result.warnings:

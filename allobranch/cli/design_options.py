@@ -1,0 +1,85 @@
+"""Options describing a simulated study design, shared by ``plan`` and ``calibrate``."""
+
+from __future__ import annotations
+
+import argparse
+
+from allobranch.cli.fit import positive_int
+from allobranch.model.simulate import SPLITS
+from allobranch.planning.design import Design
+
+#: The design every option defaults to (one taxon, three specimens, 30 junctions, 5 % relative error).
+DEFAULT = Design()
+#: Numeric design options: flag, design field, type, metavar and help (the default is appended).
+SHAPE_OPTIONS: tuple[tuple[str, str, type, str, str], ...] = (
+    ("--taxa", "taxa", positive_int, "N", "number of taxa"),
+    ("--specimens", "specimens", positive_int, "N", "specimens per taxon"),
+    ("--junctions", "junctions", positive_int, "N", "junctions per specimen"),
+    ("--trifurcations", "trifurcations", float, "SHARE", "share of junctions with three daughters"),
+)
+#: The true exponent and spreads (``plan`` only: ``calibrate`` draws them from the priors).
+TRUTH_OPTIONS: tuple[tuple[str, str, type, str, str], ...] = (
+    ("--exponent", "exponent", float, "A", "true population exponent"),
+    ("--tau-taxon", "tau_taxon", float, "SD", "true SD of the taxon exponents"),
+    ("--tau-specimen", "tau_specimen", float, "SD", "true SD of the specimen exponents within a taxon"),
+    (
+        "--sigma-dev",
+        "sigma_dev",
+        float,
+        "SD",
+        "true junction deviation of the log parent radius from the law",
+    ),
+)
+
+
+def add_design_arguments(parser: argparse.ArgumentParser, *, truth: bool = True) -> None:
+    """Add the design options.
+
+    Parameters
+    ----------
+    parser : argparse.ArgumentParser
+    truth : bool
+        Also add the true exponent and spreads (``plan``); ``calibrate`` draws them from the priors.
+    """
+    g = parser.add_argument_group("design (simulated tables)")
+    for flag, name, kind, metavar, text in SHAPE_OPTIONS + (TRUTH_OPTIONS if truth else ()):
+        default = getattr(DEFAULT, name)
+        g.add_argument(
+            flag, dest=name, type=kind, default=default, metavar=metavar, help=f"{text} (default {default:g})"
+        )
+    g.add_argument(
+        "--split",
+        choices=SPLITS,
+        default=DEFAULT.split,
+        help="how daughters share the parent (default %(default)s)",
+    )
+    error = g.add_mutually_exclusive_group()
+    error.add_argument(
+        "--rel-error",
+        type=float,
+        dest="rel_error",
+        metavar="F",
+        help=f"relative measurement error of every reading, e.g. 0.05 for 5%% (default {DEFAULT.error:g})",
+    )
+    error.add_argument(
+        "--abs-error",
+        type=float,
+        dest="abs_error",
+        metavar="MM",
+        help="absolute measurement error (SD, mm) instead",
+    )
+
+
+def design_from_args(args: argparse.Namespace) -> Design:
+    """The :class:`~allobranch.planning.design.Design` the options describe.
+
+    Raises
+    ------
+    allobranch.errors.InputError
+        When a value is out of range (the message names the option's design field).
+    """
+    kind, size = ("absolute", args.abs_error) if args.abs_error is not None else ("relative", args.rel_error)
+    fields = {
+        name: getattr(args, name) for _, name, *_ in SHAPE_OPTIONS + TRUTH_OPTIONS if hasattr(args, name)
+    }
+    return Design(**fields, split=args.split, error_kind=kind, error=DEFAULT.error if size is None else size)
