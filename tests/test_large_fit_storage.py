@@ -58,11 +58,18 @@ def test_blocks_cover_every_junction_once_within_the_byte_limit() -> None:
         ),  # as many junctions as specimens
         ({"taxa": 1, "specimens": 2, "junctions": 15}, ab.ModelSpec(deviation="student_t")),
         ({"taxa": 1, "specimens": 2, "junctions": 10, "error_kind": "absolute", "error": 0.01}, None),
+        # a linear predictor: the exponent depends on a junction covariate (slopes by taxon)
+        (
+            {"taxa": 2, "specimens": 2, "junctions": 10},
+            ab.ModelSpec(covariates=("log_parent_size",), covariates_by_taxon=True),
+        ),
     ],
 )
 def test_recomputed_log_likelihood_equals_the_fits_own(design, spec) -> None:
     # the fit's log-likelihood (computed for all junctions at once) is the reference
     res = _fit(seed=2, spec=spec, **design)
+    if spec is not None and spec.covariates:  # the slopes enter the recomputed terms
+        assert {"beta", "beta_taxon"} & set(res.idata.posterior.data_vars)
     blocks = list(pointwise.loglik_blocks(res, chunk_bytes=8 * 200 * 4))
     assert len(blocks) == -(-res.table.n_junctions // 4)
     again = xr.concat([b for _, b in blocks], dim="junction")

@@ -17,22 +17,27 @@ log-likelihood in memory.
 from __future__ import annotations
 
 from collections.abc import Iterator
-from dataclasses import fields, replace
+from dataclasses import fields, is_dataclass, replace
+from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from allobranch.errors import InputError
 from allobranch.inference.results import FitResult
-from allobranch.model.data import ModelData, model_data
+from allobranch.model.data import model_data
+from allobranch.model.linear import build_linear_terms
 from allobranch.model.structure import BuiltModel, data_arrays, model_form
 
 #: Bytes of log-likelihood values held at once: a block of junctions times every draw (256 MiB).
 CHUNK_BYTES = 2**28
 #: Posterior-predictive draws kept by :func:`add_predictive` (all chains together).
 PREDICTIVE_DRAWS = 50
-#: ModelData fields that belong to groups, not junctions (never sliced).
-GROUP_FIELDS: frozenset[str] = frozenset({"specimen_taxon_idx", "taxa", "specimens"})
+#: Fields of the model data (and of its linear terms) that belong to taxa or specimens, not junctions:
+#: never sliced, even when a table has as many junctions as groups.
+GROUP_FIELDS: frozenset[str] = frozenset(
+    {"specimen_taxon_idx", "taxa", "specimens", "traits", "eig_vectors", "eig_values", "trait_names"}
+)
 
 
 def evaluator(result: FitResult) -> BuiltModel:
@@ -59,6 +64,7 @@ def evaluator(result: FitResult) -> BuiltModel:
             "pointwise log-likelihood cannot be recomputed; refit, or load the fit.nc that the fit wrote"
         )
     data = model_data(result.table)
+    data = replace(data, linear=build_linear_terms(result.table, data, result.spec))  # as the fit built it
     form = result.settings.get("form") or model_form(data, result.spec)
     sigma_asym = None
     if form == "fast":
@@ -79,13 +85,14 @@ def evaluator(result: FitResult) -> BuiltModel:
     )
 
 
-def slice_junctions(data: ModelData, rows: slice) -> ModelData:
-    """The model data of a block of junctions (group labels and indices unchanged).
+def slice_junctions(data: Any, rows: slice, n: int | None = None) -> Any:
+    """The model data of a block of junctions (group labels, indices and group-level terms unchanged).
 
-    Every field whose first dimension runs over junctions is sliced; the groups' fields
-    (:data:`GROUP_FIELDS`) and scalars are kept.
+    Every field whose first dimension runs over the table's ``n`` junctions is sliced, also inside nested
+    dataclasses (the linear predictor's junction covariates); the groups' fields (:data:`GROUP_FIELDS`)
+    and scalars are kept.
     """
-    n = data.n_junctions
+    n = data.n_junctions if n is None else n
     changes = {}
     for f in fields(data):
         value = getattr(data, f.name)
@@ -95,6 +102,8 @@ def slice_junctions(data: ModelData, rows: slice) -> ModelData:
             changes[f.name] = value[rows]
         elif isinstance(value, list) and len(value) == n:
             changes[f.name] = value[rows]
+        elif is_dataclass(value) and not isinstance(value, type):
+            changes[f.name] = slice_junctions(value, rows, n)
     return replace(data, **changes)
 
 
