@@ -47,6 +47,14 @@ def _x(points: pd.DataFrame) -> tuple[np.ndarray, str]:
     return points["n_junctions"].to_numpy(dtype=float), "junctions per table"
 
 
+def _x_axis(ax, x: np.ndarray) -> None:
+    """A log axis for values spanning a factor of 10 or more; ticks at the values themselves."""
+    if len(x) > 1 and np.all(x > 0) and x.max() / x.min() >= 10:
+        ax.set_xscale("log")
+    ax.set_xticks(x, [f"{v:g}" for v in x])
+    ax.minorticks_off()
+
+
 def plot_verdict_probabilities(points: pd.DataFrame, *, target: float | None = None, ax=None):
     """Probability of each verdict against the swept design variable.
 
@@ -79,8 +87,7 @@ def plot_verdict_probabilities(points: pd.DataFrame, *, target: float | None = N
         ax.set_ylim(-0.03, 1.03)
         ax.set_xlabel(label)
         ax.set_ylabel("probability of the verdict")
-        if len(x) > 1 and np.all(x > 0) and x.max() / x.min() >= 10:
-            ax.set_xscale("log")
+        _x_axis(ax, x)
         ax.legend(loc="best", frameon=False)
     return ax
 
@@ -108,6 +115,5 @@ def plot_interval_width(points: pd.DataFrame, *, ax=None):
         ax.set_xlabel(label)
         ax.set_ylabel("mean interval width of the exponent")
         ax.set_ylim(bottom=0)
-        if len(x) > 1 and np.all(x > 0) and x.max() / x.min() >= 10:
-            ax.set_xscale("log")
+        _x_axis(ax, x)
     return ax
