@@ -217,3 +217,29 @@ def test_law_fit_with_a_covariate_and_tree_keeps_both(cli_folder) -> None:
     fit = ab.fit(table, spec, seed=1, **FAST)
     post = fit.idata.posterior
     assert "beta" in post and float(post["mu"].std()) == 0.0 and fit.settings["sampler"] == "nutpie"
+
+
+def test_a_saved_fit_keeps_its_tree_and_traits(cli_folder, tmp_path) -> None:
+    # fit.nc -> FitResult.load: the tree and trait values come back, so LOO can be recomputed and the law
+    # comparison sees the same model.
+    from allobranch.inference.pointwise import log_likelihood
+
+    d = cli_folder
+    table = ab.read_junctions(
+        d / "junctions.csv", parent="parent", daughters=["d1", "d2"], taxon="taxon", rel_error=0.05
+    )
+    table = ab.attach_traits(
+        ab.attach_tree(table, d / "tree.nwk"), d / "traits.csv", ["log_mass"], taxon_column="species"
+    )
+    fit = ab.fit(table, ab.ModelSpec(covariates=("log_parent_size",), traits=("log_mass",)), seed=2, **FAST)
+    fit.save(tmp_path / "fit.nc")
+    back = ab.FitResult.load(tmp_path / "fit.nc")
+    assert back.table.phylogeny is not None and back.table.phylogeny.tips == fit.table.phylogeny.tips
+    assert back.table.taxon_traits["log_mass"].to_dict() == fit.table.taxon_traits["log_mass"].to_dict()
+    ll_new = log_likelihood(back).values
+    ll_old = (
+        fit.idata.log_likelihood["loglik"].values
+        if "log_likelihood" in fit.idata.groups()
+        else log_likelihood(fit).values
+    )
+    np.testing.assert_allclose(ll_new, ll_old, rtol=1e-10)

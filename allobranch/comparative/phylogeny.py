@@ -94,13 +94,9 @@ def read_tree(path: str | os.PathLike, taxa: list[str]) -> Phylogeny:
         If the file cannot be read or parsed, a branch has no or a negative length, two tips share a name,
         or a taxon is not in the tree.
     """
-    import dendropy
-
     source = str(path)
-    text = None
     try:
         text = Path(path).read_text(encoding="utf-8-sig")
-        tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True)
     except FileNotFoundError:
         raise _fatal(
             source, "the tree file does not exist", "check the path given to --tree", "missing_file"
@@ -109,6 +105,15 @@ def read_tree(path: str | os.PathLike, taxa: list[str]) -> Phylogeny:
         raise _fatal(
             source, f"cannot read the tree file ({exc})", "give a Newick text file", "unreadable"
         ) from None
+    return parse_tree(text, taxa, source=source)
+
+
+def parse_tree(text: str, taxa: list[str], *, source: str = "<tree>") -> Phylogeny:
+    """:func:`read_tree` on Newick text (``source`` names it in messages)."""
+    import dendropy
+
+    try:
+        tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True)
     except Exception as exc:  # noqa: BLE001 - DendroPy's parse errors have several types
         if "Duplicate taxon labels" in str(exc):
             dup = str(exc).split("Duplicate taxon labels:")[-1].strip()
@@ -241,3 +246,21 @@ def attach_tree(table: JunctionTable, tree: str | os.PathLike | Phylogeny) -> Ju
             )
         )
     return dataclasses.replace(table, phylogeny=phylo, report=report)
+
+
+def restore_attachments(table: JunctionTable, settings: dict) -> JunctionTable:
+    """Re-attach the tree and trait values a fit recorded in its settings to a table rebuilt from a saved
+    fit (no-op for what is already attached or was not used)."""
+    import pandas as pd
+
+    tree = settings.get("phylogeny")
+    if tree and table.phylogeny is None:
+        phylo = parse_tree(tree["newick"], [str(t) for t in table.taxa], source=tree.get("source", "<tree>"))
+        phylo.pruned = list(tree.get("pruned", []))
+        table = dataclasses.replace(table, phylogeny=phylo)
+    traits = settings.get("trait_values")
+    if traits and table.taxon_traits is None:
+        frame = pd.DataFrame(traits)
+        frame.index.name = "taxon"
+        table = dataclasses.replace(table, taxon_traits=frame)
+    return table

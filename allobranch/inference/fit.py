@@ -12,6 +12,7 @@ import arviz as az
 import numpy as np
 import xarray as xr
 
+from allobranch.conventions import HDI_PROB
 from allobranch.errors import InputError
 from allobranch.inference import sampling
 from allobranch.inference.results import FitResult
@@ -60,7 +61,7 @@ def _draw_params(post: xr.Dataset, c: int, d: int, built: BuiltModel) -> dict:
     elif "beta" in post:
         beta = np.broadcast_to(post["beta"].values[c, d], (post.sizes["taxon"], post.sizes["covariate"]))
     return {
-        "a_spec": post["a_specimen"].values[c, d],
+        "a_specimen": post["a_specimen"].values[c, d],
         "beta_taxon": beta,
         "sigma_dev": get("sigma_dev"),
         "rel_error": get("rel_error"),
@@ -76,6 +77,8 @@ def linear_settings(lin, table: JunctionTable) -> dict:
     refs = {name: float(v) for name, v in zip(lin.covariate_names, lin.covariate_ref)}
     refs.update({f"trait:{name}": float(v) for name, v in zip(lin.trait_names, lin.trait_ref)})
     out: dict = {"linear_reference": refs}
+    if lin.q and table.taxon_traits is not None:  # what a saved fit needs to redo its priors
+        out["trait_values"] = {c: table.taxon_traits[c].astype(float).to_dict() for c in lin.trait_names}
     if lin.phylo and table.phylogeny is not None:
         ph = table.phylogeny
         out["phylogeny"] = {
@@ -140,6 +143,7 @@ def fit(
     escalate: bool = True,
     progress: bool = True,
     cores: int | None = None,
+    hdi_prob: float = HDI_PROB,
 ) -> FitResult:
     """Fit the hierarchical errors-in-variables model.
 
@@ -166,6 +170,9 @@ def fit(
         Show a progress display.
     cores : int, optional
         Chains run at once (default: as many as there are processor cores, at most ``chains``).
+    hdi_prob : float
+        Probability of the highest-density intervals the result's tables and report show (recorded in
+        ``settings["hdi_prob"]``).
 
     Returns
     -------
@@ -255,6 +262,7 @@ def fit(
         "tune": tune,
         "chains": chains,
         "seed": seed,
+        "hdi_prob": float(hdi_prob),
         "sampler": used,
         "target_accept": plan.target_accept,
         "seconds": round(seconds, 2),

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from allobranch.comparative.phylogeny import restore_attachments
 from allobranch.errors import InputError, Problem
 from allobranch.geometry import junction_geometry, naive_summary
 from allobranch.inference import diagnostics as dg
@@ -395,11 +396,12 @@ class FitResult:
             source=prov.get("source", "<DataFrame>"),
             repeats=repeats,
         )
+        settings = json.loads(attrs.get("allobranch_settings", "{}"))
         return cls(
             idata=idata,
-            table=table,
+            table=restore_attachments(table, settings),  # the tree and traits the fit used
             spec=ModelSpec.from_dict(prov["spec"]),
-            settings=json.loads(attrs.get("allobranch_settings", "{}")),
+            settings=settings,
             notes=json.loads(attrs.get("allobranch_notes", "[]")),
         )
 

@@ -144,12 +144,9 @@ class JunctionTable:
         return self.data[["taxon", "specimen"]].drop_duplicates().reset_index(drop=True)
 
     def digest(self) -> str:
-        """SHA-256 of the validated content (for provenance)."""
+        """SHA-256 of the validated junctions (for provenance; attached traits and trees are recorded by the
+        fit separately)."""
         h = hashlib.sha256(pd.util.hash_pandas_object(self.data, index=False).to_numpy().tobytes())
         if self.repeats is not None:
             h.update(pd.util.hash_pandas_object(self.repeats, index=False).to_numpy().tobytes())
-        if self.taxon_traits is not None:
-            h.update(pd.util.hash_pandas_object(self.taxon_traits).to_numpy().tobytes())
-        if self.phylogeny is not None:
-            h.update(self.phylogeny.digest().encode())
         return h.hexdigest()

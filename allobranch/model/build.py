@@ -75,10 +75,10 @@ def _exponents(data: ModelData, spec: ModelSpec, layout: GroupLayout) -> pt.Tens
             # a point law for a taxon holds for every junction of that taxon, so its specimens are pinned
             # too (their unused raw values are non-centred, have no likelihood and do not affect the rest)
             a_free = pt.where(layout.pinned, parent_a, a_free)
-        a_spec = pm.Deterministic("a_specimen", a_free, dims="specimen")
+        a_specimen = pm.Deterministic("a_specimen", a_free, dims="specimen")
     else:
-        a_spec = pm.Deterministic("a_specimen", parent_a, dims="specimen")
-    return a_spec
+        a_specimen = pm.Deterministic("a_specimen", parent_a, dims="specimen")
+    return a_specimen
 
 
 def _measurement_sd(data: ModelData, spec: ModelSpec) -> pt.TensorVariable | float:
@@ -136,14 +136,14 @@ def build_model(
         layout = group_layout(data, spec, arrays if form == "fast" else None)
     with pm.Model(coords=coords) as model:
         sh = {name: pm.Data(name, value) for name, value in arrays.items()}
-        a_spec = pt.maximum(_exponents(data, spec, layout), A_FLOOR)
+        a_specimen = pt.maximum(_exponents(data, spec, layout), A_FLOOR)
         rel_error = _measurement_sd(data, spec)
         sigma_dev = pm.HalfNormal("sigma_dev", spec.priors.sigma_dev)
         nu = _nu(spec)
         student = spec.deviation == "student_t"
         if form == "fast":
             ll, _ = JunctionLoglik("fast", student)(
-                a_spec,
+                a_specimen,
                 sigma_dev,
                 nu,
                 sh["log_parent_obs"],
@@ -159,7 +159,7 @@ def build_model(
         elif form == "full":
             sigma_asym = pm.HalfNormal("sigma_asym", spec.priors.sigma_asym)
             ll, _ = JunctionLoglik("full", student, rel_error_free=not isinstance(rel_error, float))(
-                a_spec,
+                a_specimen,
                 sigma_dev,
                 pt.as_tensor_variable(rel_error),
                 sigma_asym,
@@ -177,13 +177,13 @@ def build_model(
                 total = total + _student_constant(nu, data.n_junctions)
             pm.Potential("junction_loglik", total)
         else:
-            _latent_likelihood(data, spec, sh, a_spec, rel_error, sigma_dev, nu)
+            _latent_likelihood(data, spec, sh, a_specimen, rel_error, sigma_dev, nu)
     return BuiltModel(
         model=model, data=data, spec=spec, form=form, sigma_asym=sigma_asym_taxa, arrays=arrays, layout=layout
     )
 
 
-def _latent_likelihood(data, spec, sh, a_spec, rel_error, sigma_dev, nu) -> None:
+def _latent_likelihood(data, spec, sh, a_specimen, rel_error, sigma_dev, nu) -> None:
     """Textbook form: every true daughter radius is a parameter."""
     rows, cols = np.nonzero(data.mask)
     obs = data.log_daughters[rows, cols]
@@ -201,7 +201,7 @@ def _latent_likelihood(data, spec, sh, a_spec, rel_error, sigma_dev, nu) -> None
     )
     s2 = rel_error**2 + data.var_abs_daughters[rows, cols] + kernel.S2_FLOOR
     pm.Normal("log_daughters", mu=u, sigma=pt.sqrt(s2), observed=obs)
-    a_j = a_spec[data.specimen_idx][:, None]
+    a_j = a_specimen[data.specimen_idx][:, None]
     t = pt.where(data.mask, a_j * U, NEG_LARGE)
     law = (pt.logsumexp(t, axis=1, keepdims=True) / a_j)[:, 0]
     sd = pt.sqrt(sigma_dev**2 + rel_error**2 + data.var_abs_parent + kernel.S2_FLOOR)

@@ -216,15 +216,17 @@ def pack(
     FastDensity
     """
     n, K = arrays["mu_post"].shape
-    spec_taxon = np.asarray(specimen_taxon_idx, dtype=np.int64)
-    n_spec = len(spec_taxon)
+    specimen_taxon = np.asarray(specimen_taxon_idx, dtype=np.int64)
+    n_specimens = len(specimen_taxon)
     mu_free = fixed_exponent is None
     if not mu_free:
         taxon_level = specimen_level = False
     fixed_t = np.asarray(fixed_taxa_mask, dtype=bool) if len(fixed_taxa_mask) else np.zeros(n_taxa, bool)
-    pinned = fixed_t[spec_taxon]
+    pinned = fixed_t[specimen_taxon]
     w_t = np.where(fixed_t, 0.0, np.clip(np.broadcast_to(w_taxon, n_taxa) if taxon_level else 0.0, 0, 1))
-    w_s = np.where(pinned, 0.0, np.clip(np.broadcast_to(w_specimen, n_spec) if specimen_level else 0.0, 0, 1))
+    w_s = np.where(
+        pinned, 0.0, np.clip(np.broadcast_to(w_specimen, n_specimens) if specimen_level else 0.0, 0, 1)
+    )
     lin = linear if linear is not None and not linear.empty else None
     if lin is not None and lin.phylo and not taxon_level:  # no taxon deviations to correlate
         lin = replace(lin, eig_vectors=None, eig_values=None)
@@ -233,7 +235,7 @@ def pack(
         raise ValueError("under a tree no taxon's exponent can be fixed on its own")
     white = (whiten is not None and mu_free and (taxon_level or specimen_level)) or lin is not None
     if white and whiten is None:
-        whiten = (np.zeros(n_spec), np.zeros(n_spec))
+        whiten = (np.zeros(n_specimens), np.zeros(n_specimens))
     condition_mu = bool(condition_mu and mu_free and (taxon_level or specimen_level)) and not white
     if condition_mu and taxon_level:
         w_t = np.where(fixed_t, 0.0, 1.0)
@@ -267,7 +269,7 @@ def pack(
         shapes.append((n_taxa,))
     if specimen_level:
         names += ["tau_specimen_log__", "r_specimen"]
-        shapes += [(), (n_spec,)]
+        shapes += [(), (n_specimens,)]
     names.append("sigma_dev_log__")
     shapes.append(())
     if student:
@@ -293,7 +295,7 @@ def pack(
     )
     out_shape_of = {
         "a_taxon": (n_taxa,),
-        "a_specimen": (n_spec,),
+        "a_specimen": (n_specimens,),
         "beta": (p_cov,),
         "tau_beta": (p_cov,),
         "beta_taxon": (n_taxa, p_cov),
@@ -315,7 +317,7 @@ def pack(
         n,
         K,
         n_taxa,
-        n_spec,
+        n_specimens,
         mu_free,
         taxon_level,
         specimen_level,
@@ -330,7 +332,7 @@ def pack(
         [
             head,
             np.asarray(arrays["specimen_idx"], dtype=np.int64),
-            spec_taxon,
+            specimen_taxon,
             fixed_t.astype(np.int64),
             pinned.astype(np.int64),
         ]
@@ -363,24 +365,24 @@ def pack(
             w_t,
             w_s,
             fixed_vals,
-            np.nan_to_num(np.asarray(whiten[0], dtype=float)) if white else np.zeros(n_spec),
-            np.nan_to_num(np.asarray(whiten[1], dtype=float)) if white else np.zeros(n_spec),
-            *_linear_buffers(lin, arrays["specimen_idx"], n_spec, n_taxa, n),
+            np.nan_to_num(np.asarray(whiten[0], dtype=float)) if white else np.zeros(n_specimens),
+            np.nan_to_num(np.asarray(whiten[1], dtype=float)) if white else np.zeros(n_specimens),
+            *_linear_buffers(lin, arrays["specimen_idx"], n_specimens, n_taxa, n),
         ]
     )
     ints[_NINT], ints[_NFLOAT] = len(ints), len(floats)
     return FastDensity(ints=ints, floats=floats, layout=layout)
 
 
-def _linear_buffers(lin: LinearTerms | None, specimen_idx: np.ndarray, n_spec: int, n_taxa: int, n: int):
+def _linear_buffers(lin: LinearTerms | None, specimen_idx: np.ndarray, n_specimens: int, n_taxa: int, n: int):
     """The float blocks read by :func:`allobranch.model.density_parts._linear_views`."""
     if lin is None:
         return [np.zeros(n_taxa)]  # eigenvalues only (unused)
     X = np.asarray(lin.covariates, dtype=float).reshape(n, lin.p)
-    counts = np.bincount(specimen_idx, minlength=n_spec).astype(float)
-    xbar = np.zeros((n_spec, lin.p))
+    counts = np.bincount(specimen_idx, minlength=n_specimens).astype(float)
+    xbar = np.zeros((n_specimens, lin.p))
     for k in range(lin.p):
-        xbar[:, k] = np.bincount(specimen_idx, X[:, k], minlength=n_spec) / np.maximum(counts, 1.0)
+        xbar[:, k] = np.bincount(specimen_idx, X[:, k], minlength=n_specimens) / np.maximum(counts, 1.0)
     V = np.asarray(lin.eig_vectors, dtype=float) if lin.phylo else np.zeros((0, 0))
     lam = np.maximum(np.asarray(lin.eig_values, dtype=float), EIGEN_FLOOR) if lin.phylo else np.zeros(n_taxa)
     return [
@@ -432,7 +434,7 @@ def _group_level(r, parent, log_tau, w, fixed, fixed_vals, use_fixed):
 
 
 @nb.njit(cache=True, nogil=True)
-def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon):
+def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon):
     """Exponents of every level from the unconstrained vector, with what the gradient needs."""
     nt, ns = ints[_NT], ints[_NS]
     p = 0
@@ -465,7 +467,7 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxo
             t_dp[i] = 0.0 if fixed_t[i] else 1.0
     par_s = np.empty(ns)
     for s in range(ns):
-        par_s[s] = a_t[spec_taxon[s]]
+        par_s[s] = a_t[specimen_taxon[s]]
     if ints[_SPEC]:
         lt_s = x[p]
         r_s = x[p + 1 : p + 1 + ns]
@@ -546,10 +548,26 @@ def _logp_grad_plain(x, ints, floats, grad):
     """Log density and gradient with ``x[0]`` the population exponent itself (when it is free)."""
     _n, nt, ns = ints[_N], ints[_NT], ints[_NS]
     student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
+    (
+        specimen_idx,
+        specimen_taxon,
+        fixed_t,
+        pinned,
+        y0,
+        mu_post,
+        g,
+        c,
+        ybar,
+        M,
+        s0sq,
+        lld,
+        w_t,
+        w_s,
+        fixed_vals,
+    ) = _views(ints, floats)
+    mu, taxon, specimen, p = _hierarchy(
+        x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon
     )
-    mu, taxon, specimen, p = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
     (lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt) = taxon
     (lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt) = specimen
     sdev = math.exp(x[p])
@@ -570,7 +588,7 @@ def _logp_grad_plain(x, ints, floats, grad):
     # specimen level -> taxon exponents
     d_at = np.zeros(nt)
     for s in range(ns):
-        d_at[spec_taxon[s]] += d_as[s] * s_dp[s] + s_lpp[s]
+        d_at[specimen_taxon[s]] += d_as[s] * s_dp[s] + s_lpp[s]
     if ints[_TAXON]:
         hn, dhn = _half_normal_log(lt_t, floats[_TT_SCALE])
         lp += hn
@@ -609,10 +627,26 @@ def _expand(x, ints, floats, out):
     if ints[_MU_COND]:
         x = x.copy()
         x[0] = _conditioned_mu(x, ints, floats)[0]
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
+    (
+        specimen_idx,
+        specimen_taxon,
+        fixed_t,
+        pinned,
+        y0,
+        mu_post,
+        g,
+        c,
+        ybar,
+        M,
+        s0sq,
+        lld,
+        w_t,
+        w_s,
+        fixed_vals,
+    ) = _views(ints, floats)
+    mu, taxon, specimen, p = _hierarchy(
+        x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon
     )
-    mu, taxon, specimen, p = _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, spec_taxon)
     lt_t, a_t, lt_s, a_s = taxon[0], taxon[1], specimen[0], specimen[1]
     k = 0
     out[k] = mu

@@ -32,9 +32,9 @@ _LOG2PI = math.log(2.0 * math.pi)
 def _views(ints, floats):
     n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
     p = _HEAD
-    spec_idx = ints[p : p + n]
+    specimen_idx = ints[p : p + n]
     p += n  # noqa: E702
-    spec_taxon = ints[p : p + ns]
+    specimen_taxon = ints[p : p + ns]
     p += ns  # noqa: E702
     fixed_t = ints[p : p + nt]
     p += nt  # noqa: E702
@@ -61,7 +61,23 @@ def _views(ints, floats):
     w_s = floats[q : q + ns]
     q += ns  # noqa: E702
     fixed_vals = floats[q : q + nt]
-    return spec_idx, spec_taxon, fixed_t, pinned, y0, mu, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals
+    return (
+        specimen_idx,
+        specimen_taxon,
+        fixed_t,
+        pinned,
+        y0,
+        mu,
+        g,
+        c,
+        ybar,
+        M,
+        s0sq,
+        lld,
+        w_t,
+        w_s,
+        fixed_vals,
+    )
 
 
 @nb.njit(cache=True, nogil=True)
@@ -132,9 +148,23 @@ def _junction_likelihood_j(ints, floats, a_j, sdev, nu):
     with its derivatives in every junction's exponent, the deviation scale and ``nu``."""
     n = ints[_N]
     student = ints[_STUDENT] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
-    )
+    (
+        specimen_idx,
+        specimen_taxon,
+        fixed_t,
+        pinned,
+        y0,
+        mu_post,
+        g,
+        c,
+        ybar,
+        M,
+        s0sq,
+        lld,
+        w_t,
+        w_s,
+        fixed_vals,
+    ) = _views(ints, floats)
     a_eff = np.empty(n)
     for j in range(n):
         a_eff[j] = a_j[j] if a_j[j] > A_FLOOR else A_FLOOR
@@ -157,11 +187,11 @@ def _junction_likelihood(ints, floats, a_s, sdev, nu):
     """:func:`_junction_likelihood_j` when every junction takes its specimen's exponent ``a_s``; the
     derivatives are summed by specimen."""
     ns = ints[_NS]
-    spec_idx = _views(ints, floats)[0]
-    total, d_aj, d_sdev, d_nu = _junction_likelihood_j(ints, floats, a_s[spec_idx], sdev, nu)
+    specimen_idx = _views(ints, floats)[0]
+    total, d_aj, d_sdev, d_nu = _junction_likelihood_j(ints, floats, a_s[specimen_idx], sdev, nu)
     d_as = np.zeros(ns)
-    for j in range(spec_idx.shape[0]):
-        d_as[spec_idx[j]] += d_aj[j]
+    for j in range(specimen_idx.shape[0]):
+        d_as[specimen_idx[j]] += d_aj[j]
     return total, d_as, d_sdev, d_nu
 
 

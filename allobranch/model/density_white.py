@@ -98,11 +98,25 @@ def _forward(x, ints, floats):
     nt, ns = ints[_NT], ints[_NS]
     p, q = ints[_P], ints[_Q]
     taxon_level = ints[_TAXON] != 0
-    spec_level = ints[_SPEC] != 0
+    specimen_level = ints[_SPEC] != 0
     phylo = ints[_PHYLO] != 0
-    (spec_idx, spec_taxon, fixed_t, pinned, y0, mu_post, g, c, ybar, M, s0sq, lld, w_t, w_s, fixed_vals) = (
-        _views(ints, floats)
-    )
+    (
+        specimen_idx,
+        specimen_taxon,
+        fixed_t,
+        pinned,
+        y0,
+        mu_post,
+        g,
+        c,
+        ybar,
+        M,
+        s0sq,
+        lld,
+        w_t,
+        w_s,
+        fixed_vals,
+    ) = _views(ints, floats)
     ahat, prec = _pilot_views(ints, floats)
     X, xbar, G, V, lam_eig, beta_sd, tb_scale, gamma_sd = _linear_views(ints, floats)
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
@@ -138,7 +152,7 @@ def _forward(x, ints, floats):
             lam = 1.0 / (1.0 + np.exp(-x[k_tt + 1]))
             lp += np.log(lam) + np.log(1.0 - lam)
     T_s = 0.0 + 0.0j
-    if spec_level:
+    if specimen_level:
         lt_s = x[k_ts]
         T_s = np.exp(2.0 * lt_s)
         lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TS_SCALE]) - 0.5 * T_s / floats[_TS_SCALE] ** 2 + lt_s
@@ -147,7 +161,7 @@ def _forward(x, ints, floats):
     for s in range(ns):
         v = ahat[s] + 0.0j
         for kk in range(p):
-            v -= xbar[s, kk] * beta_t[spec_taxon[s], kk]
+            v -= xbar[s, kk] * beta_t[specimen_taxon[s], kk]
         ah[s] = v
     # messages up: each free specimen's marginal about its taxon
     upP = np.zeros(nt, dtype=np.complex128)
@@ -155,9 +169,9 @@ def _forward(x, ints, floats):
     for s in range(ns):
         if pinned[s] or prec[s] <= 0.0:
             continue
-        v = T_s + 1.0 / prec[s] if spec_level else (1.0 + 0.0j) / prec[s]
-        upP[spec_taxon[s]] += 1.0 / v
-        upM[spec_taxon[s]] += ah[s] / v
+        v = T_s + 1.0 / prec[s] if specimen_level else (1.0 + 0.0j) / prec[s]
+        upP[specimen_taxon[s]] += 1.0 / v
+        upM[specimen_taxon[s]] += ah[s] / v
     gt = np.zeros(nt, dtype=np.complex128)
     for t in range(nt):
         for m in range(q):
@@ -229,8 +243,8 @@ def _forward(x, ints, floats):
     # specimens
     a_s = np.empty(ns, dtype=np.complex128)
     for s in range(ns):
-        parent = a_t[spec_taxon[s]]
-        if not spec_level:
+        parent = a_t[specimen_taxon[s]]
+        if not specimen_level:
             a_s[s] = parent
         elif pinned[s]:
             a_s[s] = parent
@@ -247,14 +261,14 @@ def _forward(x, ints, floats):
 def junction_exponents(ints, floats, a_s, beta_t):
     """Every junction's exponent: its specimen's plus the covariate terms with its taxon's slopes."""
     n, p = ints[_N], ints[_P]
-    spec_idx, spec_taxon = _views(ints, floats)[:2]
+    specimen_idx, specimen_taxon = _views(ints, floats)[:2]
     X = _linear_views(ints, floats)[0]
     a_j = np.empty(n)
     for j in range(n):
-        s = spec_idx[j]
+        s = specimen_idx[j]
         v = a_s[s]
         for kk in range(p):
-            v += X[j, kk] * beta_t[spec_taxon[s], kk]
+            v += X[j, kk] * beta_t[specimen_taxon[s], kk]
         a_j[j] = v
     return a_j
 
@@ -265,9 +279,9 @@ def logp_grad_white(x, ints, floats, grad):
     n, nt, ns, p = ints[_N], ints[_NT], ints[_NS], ints[_P]
     student = ints[_STUDENT] != 0
     taxon_level = ints[_TAXON] != 0
-    spec_level = ints[_SPEC] != 0
+    specimen_level = ints[_SPEC] != 0
     phylo = ints[_PHYLO] != 0
-    spec_idx, spec_taxon, fixed_t, pinned = _views(ints, floats)[:4]
+    specimen_idx, specimen_taxon, fixed_t, pinned = _views(ints, floats)[:4]
     ahat, prec = _pilot_views(ints, floats)
     X, xbar, G, V = _linear_views(ints, floats)[:4]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
@@ -283,18 +297,18 @@ def logp_grad_white(x, ints, floats, grad):
     d_as = np.zeros(ns)
     dB = np.zeros((nt, p))
     for j in range(n):
-        s = spec_idx[j]
+        s = specimen_idx[j]
         d_as[s] += d_aj[j]
         for kk in range(p):
-            dB[spec_taxon[s], kk] += X[j, kk] * d_aj[j]
+            dB[specimen_taxon[s], kk] += X[j, kk] * d_aj[j]
     for i in range(grad.shape[0]):
         grad[i] = 0.0
     # specimen deviations (analytic), and each taxon exponent's total derivative through its specimens
     G_t = np.zeros(nt)
-    if spec_level:
+    if specimen_level:
         T_s = math.exp(2.0 * x[k_ts])
         for s in range(ns):
-            t = spec_taxon[s]
+            t = specimen_taxon[s]
             if pinned[s]:
                 grad[k_zs + s] = -x[k_zs + s]
                 G_t[t] += d_as[s]
@@ -307,7 +321,7 @@ def logp_grad_white(x, ints, floats, grad):
             G_t[t] += d_as[s] * ks - dev * (ks - 1.0)
     else:
         for s in range(ns):
-            G_t[spec_taxon[s]] += d_as[s]
+            G_t[specimen_taxon[s]] += d_as[s]
     # taxon deviations (analytic): each moves one eigen-coordinate w_i = mean_i + sd_i z_i
     if taxon_level:
         for i in range(nt):
@@ -325,7 +339,7 @@ def logp_grad_white(x, ints, floats, grad):
     for i in range(n_h):
         if taxon_level and k_zt <= i < k_zt + nt:
             continue
-        if spec_level and k_zs <= i < k_zs + ns:
+        if specimen_level and k_zs <= i < k_zs + ns:
             continue
         xc[i] += 1j * kernel.H
         a_si, bt_i, lp_i, _, _, _, _, _ = _forward(xc, ints, floats)

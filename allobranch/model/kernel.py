@@ -346,15 +346,15 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_junction, sdev, nu, student):
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def aggregate_gradient(g, dll, spec_idx, n_spec):
+def aggregate_gradient(g, dll, specimen_idx, n_specimens):
     """Chain rule: upstream gradient ``g`` (n,) times per-junction derivatives, summed by parameter.
 
-    Returns the gradient for the specimen exponents (n_spec,) and for the four scalars.
+    Returns the gradient for the specimen exponents (n_specimens,) and for the four scalars.
     """
-    da = np.zeros(n_spec)
+    da = np.zeros(n_specimens)
     ds = np.zeros(4)
     for j in range(g.shape[0]):
-        da[spec_idx[j]] += g[j] * dll[j, 0]
+        da[specimen_idx[j]] += g[j] * dll[j, 0]
         for d in range(4):
             ds[d] += g[j] * dll[j, d + 1]
     return da, ds

@@ -2,9 +2,9 @@
 
 Two forms, chosen by :func:`allobranch.model.build.build_model`:
 
-* ``"fast"`` -- measurement error and asymmetry scale fixed: inputs ``a_spec, sigma_dev, nu`` and the
+* ``"fast"`` -- measurement error and asymmetry scale fixed: inputs ``a_specimen, sigma_dev, nu`` and the
   precomputed daughter posteriors; analytic derivatives.
-* ``"full"`` -- measurement error and asymmetry scale sampled: inputs ``a_spec, sigma_dev, rel_error,
+* ``"full"`` -- measurement error and asymmetry scale sampled: inputs ``a_specimen, sigma_dev, rel_error,
   sigma_asym, nu`` and the raw data; complex-step derivatives.
 
 The Op returns the summed log-likelihood and its gradient from one kernel call. The Ops run in PyTensor's Python/C mode and
@@ -25,19 +25,23 @@ from allobranch.model import kernel
 N_PARAMS = {"fast": 3, "full": 5}
 
 
-def _fast_call(student, a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
-    return kernel.fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_spec[spec_idx], sdev, nu, student)
+def _fast_call(student, a_specimen, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, specimen_idx):
+    return kernel.fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_specimen[specimen_idx], sdev, nu, student)
 
 
-def _full_call(student, rel_error_free, a_spec, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, spec_idx):
+def _full_call(
+    student, rel_error_free, a_specimen, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, specimen_idx
+):
     skip = np.array([False, False, not rel_error_free, False, not student])
-    return kernel.junction_terms(y0, Y, M, V0, V, a_spec[spec_idx], sdev, rel_error, sasym, nu, student, skip)
+    return kernel.junction_terms(
+        y0, Y, M, V0, V, a_specimen[specimen_idx], sdev, rel_error, sasym, nu, student, skip
+    )
 
 
 class JunctionLoglik(Op):
     """Summed junction log-likelihood (scalar) and its gradient (flat vector), in one kernel call.
 
-    The gradient output is ``[d a_spec..., d scalar parameters...]``; :meth:`grad` scales it by the
+    The gradient output is ``[d a_specimen..., d scalar parameters...]``; :meth:`grad` scales it by the
     upstream gradient. Per-junction terms are evaluated after sampling by
     :meth:`allobranch.model.build.BuiltModel.pointwise`.
     """
@@ -75,8 +79,8 @@ class JunctionLoglik(Op):
         p = N_PARAMS[self.kind]
         _, flat = self(*inputs)
         flat = flat * output_grads[0]
-        n_spec = inputs[0].shape[0]
-        grads = [flat[:n_spec]] + [flat[n_spec + i] for i in range(p - 1)]
+        n_specimens = inputs[0].shape[0]
+        grads = [flat[:n_specimens]] + [flat[n_specimens + i] for i in range(p - 1)]
         return grads + [DisconnectedType()() for _ in inputs[p:]]
 
 
@@ -100,29 +104,42 @@ def _register_numba() -> None:
         if op.kind == "fast":
 
             @numba_njit
-            def fast(a_spec, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, spec_idx):
+            def fast(a_specimen, sdev, nu, y0, mu, g, c, ybar, M, s0sq, lld, specimen_idx):
                 ll, dll, _, _ = kernel.fast_terms(
-                    y0, mu, g, c, ybar, M, s0sq, lld, a_spec[spec_idx], sdev.item(), nu.item(), student
+                    y0,
+                    mu,
+                    g,
+                    c,
+                    ybar,
+                    M,
+                    s0sq,
+                    lld,
+                    a_specimen[specimen_idx],
+                    sdev.item(),
+                    nu.item(),
+                    student,
                 )
-                da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, spec_idx, a_spec.shape[0])
-                out = np.empty(a_spec.shape[0] + 2)
-                out[: a_spec.shape[0]] = da
-                out[a_spec.shape[0]] = ds[0]
-                out[a_spec.shape[0] + 1] = ds[3]
+                da, ds = kernel.aggregate_gradient(
+                    np.ones(ll.shape[0]), dll, specimen_idx, a_specimen.shape[0]
+                )
+                out = np.empty(a_specimen.shape[0] + 2)
+                out[: a_specimen.shape[0]] = da
+                out[a_specimen.shape[0]] = ds[0]
+                out[a_specimen.shape[0] + 1] = ds[3]
                 return np.asarray(ll.sum()), out
 
             return fast
         skip = np.array([False, False, not rel_error_free, False, not student])
 
         @numba_njit
-        def full(a_spec, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, spec_idx):
+        def full(a_specimen, sdev, rel_error, sasym, nu, y0, Y, M, V0, V, specimen_idx):
             ll, dll, _, _ = kernel.junction_terms(
                 y0,
                 Y,
                 M,
                 V0,
                 V,
-                a_spec[spec_idx],
+                a_specimen[specimen_idx],
                 sdev.item(),
                 rel_error.item(),
                 sasym.item(),
@@ -130,10 +147,10 @@ def _register_numba() -> None:
                 student,
                 skip,
             )
-            da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, spec_idx, a_spec.shape[0])
-            out = np.empty(a_spec.shape[0] + 4)
-            out[: a_spec.shape[0]] = da
-            out[a_spec.shape[0] :] = ds
+            da, ds = kernel.aggregate_gradient(np.ones(ll.shape[0]), dll, specimen_idx, a_specimen.shape[0])
+            out = np.empty(a_specimen.shape[0] + 4)
+            out[: a_specimen.shape[0]] = da
+            out[a_specimen.shape[0] :] = ds
             return np.asarray(ll.sum()), out
 
         return full

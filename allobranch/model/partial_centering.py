@@ -85,10 +85,15 @@ class PilotEstimate:
 
 
 def _specimen_loglik(
-    arrays: dict, spec_idx: np.ndarray, n_spec: int, a_spec: np.ndarray, sdev: float, student: bool
+    arrays: dict,
+    specimen_idx: np.ndarray,
+    n_specimens: int,
+    a_specimen: np.ndarray,
+    sdev: float,
+    student: bool,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Per-specimen log-likelihood and its derivative in the specimen's exponent (normal deviation)."""
-    a = np.clip(a_spec, *PILOT_BOUNDS)
+    a = np.clip(a_specimen, *PILOT_BOUNDS)
     ll, dll, _, _ = kernel.fast_terms(
         arrays["log_parent_obs"],
         arrays["mu_post"],
@@ -98,17 +103,22 @@ def _specimen_loglik(
         arrays["daughter_mask"],
         arrays["s0sq"],
         arrays["ll_daughters"],
-        a[spec_idx],
+        a[specimen_idx],
         float(sdev),
         30.0,
         student,
     )
-    return (np.bincount(spec_idx, ll, minlength=n_spec), np.bincount(spec_idx, dll[:, 0], minlength=n_spec))
+    return (
+        np.bincount(specimen_idx, ll, minlength=n_specimens),
+        np.bincount(specimen_idx, dll[:, 0], minlength=n_specimens),
+    )
 
 
-def _pilot_specimens(arrays: dict, spec_idx: np.ndarray, n_spec: int) -> tuple[np.ndarray, np.ndarray, float]:
+def _pilot_specimens(
+    arrays: dict, specimen_idx: np.ndarray, n_specimens: int
+) -> tuple[np.ndarray, np.ndarray, float]:
     """Specimen exponents by safeguarded Newton steps, their curvature SDs, and the ML deviation."""
-    n = spec_idx.shape[0]
+    n = specimen_idx.shape[0]
     one = np.zeros(n, dtype=np.int64)
 
     def common_negll(params: np.ndarray) -> float:
@@ -136,19 +146,19 @@ def _pilot_specimens(arrays: dict, spec_idx: np.ndarray, n_spec: int) -> tuple[n
     )
     sdev = float(np.exp(res.x))
 
-    a = np.full(n_spec, a0)
+    a = np.full(n_specimens, a0)
     h = 1e-4
     for _ in range(30):
-        _, g = _specimen_loglik(arrays, spec_idx, n_spec, a, sdev, False)
-        _, g2 = _specimen_loglik(arrays, spec_idx, n_spec, a + h, sdev, False)
+        _, g = _specimen_loglik(arrays, specimen_idx, n_specimens, a, sdev, False)
+        _, g2 = _specimen_loglik(arrays, specimen_idx, n_specimens, a + h, sdev, False)
         curv = (g2 - g) / h
         step = np.where(curv < 0, -g / np.where(curv < 0, curv, -1.0), np.sign(g) * 0.25)
         step = np.clip(step, -0.5, 0.5)
         a = np.clip(a + step, *PILOT_BOUNDS)
         if np.max(np.abs(step)) < 1e-5:
             break
-    _, g = _specimen_loglik(arrays, spec_idx, n_spec, a, sdev, False)
-    _, g2 = _specimen_loglik(arrays, spec_idx, n_spec, a + h, sdev, False)
+    _, g = _specimen_loglik(arrays, specimen_idx, n_specimens, a, sdev, False)
+    _, g2 = _specimen_loglik(arrays, specimen_idx, n_specimens, a + h, sdev, False)
     curv = (g2 - g) / h
     with np.errstate(divide="ignore", invalid="ignore"):
         sd = np.where(curv < 0, 1.0 / np.sqrt(-curv), np.inf)
@@ -228,8 +238,8 @@ def pilot(
     -------
     PilotEstimate
     """
-    n_spec = len(specimen_taxon_idx)
-    a_s, sd_s, sdev = _pilot_specimens(arrays, np.asarray(specimen_idx, dtype=np.int64), n_spec)
+    n_specimens = len(specimen_taxon_idx)
+    a_s, sd_s, sdev = _pilot_specimens(arrays, np.asarray(specimen_idx, dtype=np.int64), n_specimens)
     tau_s = _spread(a_s, sd_s, specimen_taxon_idx, tau_specimen_prior) if specimen_level else 0.0
     a_t, sd_t = _pool(a_s, sd_s, tau_s, specimen_taxon_idx, n_taxa)
     tau_t = _spread(a_t, sd_t, np.zeros(n_taxa, dtype=int), tau_taxon_prior) if taxon_level else 0.0

@@ -240,7 +240,7 @@ class BuiltModel:
 
     def pointwise(
         self,
-        a_spec: np.ndarray,
+        a_specimen: np.ndarray,
         sigma_dev: float,
         rel_error: float | None = None,
         sigma_asym: float | None = None,
@@ -254,7 +254,7 @@ class BuiltModel:
         (n_taxa, n_covariates) are the slopes of the covariates, when the model has any.
         """
         d = self.data
-        a_j = np.asarray(a_spec, dtype=float)[d.specimen_idx]
+        a_j = np.asarray(a_specimen, dtype=float)[d.specimen_idx]
         if beta_taxon is not None and d.linear is not None and d.linear.p:
             a_j = a_j + np.einsum("jk,jk->j", d.linear.covariates, np.asarray(beta_taxon)[d.taxon_idx])
         a_j = np.maximum(a_j, A_FLOOR)
