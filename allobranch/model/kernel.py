@@ -3,18 +3,18 @@
 For every junction the true daughter radii are integrated out analytically (Gaussian, second-order
 delta method) under a structural prior on the daughters' asymmetry; see :mod:`allobranch.model.build` for
 the model in words. On the log scale, with ``y`` the observed log daughters (centred on their junction
-mean), ``s_i^2`` their measurement variances and ``tau = sigma_asym^2``:
+mean), ``s_i^2`` their measurement variances and ``asym_var = sigma_asym^2``:
 
-* prior on the true log daughters ``u``: flat along the common level, ``Normal(0, tau)`` for each
-  daughter's deviation from the junction mean: precision ``Q = (I - 11'/k) / tau``;
+* prior on the true log daughters ``u``: flat along the common level, ``Normal(0, asym_var)`` for each
+  daughter's deviation from the junction mean: precision ``Q = (I - 11'/k) / asym_var``;
 * posterior ``u | y ~ Normal(mu, Sigma)`` with ``Sigma^{-1} = diag(1/s^2) + Q``. By the Sherman-Morrison
-  formula (exact algebra), with ``g_i = 1 / (1/s_i^2 + 1/tau)``, ``G = sum g_i`` and ``c = k tau - G``:
+  formula (exact algebra), with ``g_i = 1 / (1/s_i^2 + 1/asym_var)``, ``G = sum g_i`` and ``c = k asym_var - G``:
   ``Sigma = diag(g) + g g' / c`` and ``mu = Sigma (y / s^2)``;
 * predicted log parent ``m(u) = logsumexp(a u) / a`` expanded to second order about ``mu``: gradient
-  ``w = softmax(a mu)``, Hessian ``a (diag w - w w')``, so ``E[m] = m(mu) + (a/2) tr(H Sigma) / a`` and
+  ``w = softmax(a mu)``, Hessian ``a (diag w - w w')``, so ``E[m] = m(mu) + tr(H Sigma) / 2 = m(mu) + (a/2) tr((diag w - w w') Sigma)`` and
   ``Var[m] = w' Sigma w``;
 * parent: ``log y_0 ~ Normal(E[m], sigma_dev^2 + s_0^2 + w' Sigma w)`` (or Student-t with that scale);
-* daughters: the exact Gaussian marginal density of the daughters' contrasts given ``tau`` (the level is
+* daughters: the exact Gaussian marginal density of the daughters' contrasts given ``asym_var`` (the level is
   flat and drops out), which is what identifies ``sigma_asym``.
 
 Derivatives with respect to the exponent and the scalar hyper-parameters are computed by the complex-step
@@ -52,7 +52,7 @@ def _one(y0, y, present, v0, v, a, sdev, rel_error, sasym, nu, student, mu_buf, 
             k += 1
             ybar += y[i]
     ybar /= k
-    tau = sasym * sasym
+    asym_var = sasym * sasym
     srel2 = rel_error * rel_error
     G = 0.0 + 0.0j
     B = 0.0 + 0.0j
@@ -62,7 +62,7 @@ def _one(y0, y, present, v0, v, a, sdev, rel_error, sasym, nu, student, mu_buf, 
     for i in range(K):
         if present[i]:
             s2 = srel2 + max(v[i], 0.0) + S2_FLOOR
-            g = s2 * tau / (s2 + tau)
+            g = s2 * asym_var / (s2 + asym_var)
             s2_buf[i] = s2
             g_buf[i] = g
             yc = y[i] - ybar
@@ -71,7 +71,7 @@ def _one(y0, y, present, v0, v, a, sdev, rel_error, sasym, nu, student, mu_buf, 
             sum_log_s2 += np.log(s2)
             sum_log_g += np.log(g)
             yy += yc * yc / s2
-    c = k * tau - G
+    c = k * asym_var - G
     tmax = -1e300
     for i in range(K):
         if present[i]:
@@ -107,9 +107,9 @@ def _one(y0, y, present, v0, v, a, sdev, rel_error, sasym, nu, student, mu_buf, 
         ll_parent = -0.5 * (_LOG2PI + np.log(var)) - 0.5 * r * r / var
     ll_daughters = (
         -0.5 * sum_log_s2
-        - 0.5 * (k - 1) * (_LOG2PI + np.log(tau))
+        - 0.5 * (k - 1) * (_LOG2PI + np.log(asym_var))
         + 0.5 * sum_log_g
-        - 0.5 * np.log(c / (k * tau))
+        - 0.5 * np.log(c / (k * asym_var))
         - 0.5 * (yy - bmu)
     )
     return ll_parent + ll_daughters, mean + ybar, var
@@ -222,7 +222,7 @@ def precompute(Y, M, V, rel_error, tau_j):
                 k += 1
                 yb += Y[j, i]
         yb /= k
-        tau = tau_j[j]
+        asym_var = tau_j[j]
         G = 0.0
         B = 0.0
         sls2 = 0.0
@@ -231,7 +231,7 @@ def precompute(Y, M, V, rel_error, tau_j):
         for i in range(K):
             if M[j, i]:
                 s2 = rel_error * rel_error + max(V[j, i], 0.0) + S2_FLOOR
-                gi = s2 * tau / (s2 + tau)
+                gi = s2 * asym_var / (s2 + asym_var)
                 g[j, i] = gi
                 yc = Y[j, i] - yb
                 G += gi
@@ -239,7 +239,7 @@ def precompute(Y, M, V, rel_error, tau_j):
                 sls2 += math.log(s2)
                 slg += math.log(gi)
                 yy += yc * yc / s2
-        cj = k * tau - G
+        cj = k * asym_var - G
         bmu = 0.0
         for i in range(K):
             if M[j, i]:
@@ -251,9 +251,9 @@ def precompute(Y, M, V, rel_error, tau_j):
         ybar[j] = yb
         lld[j] = (
             -0.5 * sls2
-            - 0.5 * (k - 1) * (_LOG2PI + math.log(tau))
+            - 0.5 * (k - 1) * (_LOG2PI + math.log(asym_var))
             + 0.5 * slg
-            - 0.5 * math.log(cj / (k * tau))
+            - 0.5 * math.log(cj / (k * asym_var))
             - 0.5 * (yy - bmu)
         )
     return mu, g, c, ybar, lld
@@ -262,8 +262,8 @@ def precompute(Y, M, V, rel_error, tau_j):
 def daughter_loglik(Y, M, V, rel_error: float, sasym: float) -> float:
     """Sum over junctions of the daughters' contrast log-density (used to estimate the asymmetry scale by
     maximum marginal likelihood)."""
-    tau = np.full(Y.shape[0], sasym * sasym)
-    return float(precompute(Y, M, V, rel_error, tau)[4].sum())
+    asym_var = np.full(Y.shape[0], sasym * sasym)
+    return float(precompute(Y, M, V, rel_error, asym_var)[4].sum())
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
