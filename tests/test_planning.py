@@ -124,6 +124,7 @@ def test_plan_tables_are_consistent(small_plan) -> None:
     assert small_plan.delta == pytest.approx(0.15)
     text = small_plan.to_markdown()
     assert "Probability of each verdict" in text and "Failed replicates" in text
+    assert "Design: 1 taxon x 2 specimens x 8 junctions" in text
 
 
 def test_plan_figures_take_an_axes_and_return_it(small_plan) -> None:

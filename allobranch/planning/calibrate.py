@@ -328,7 +328,7 @@ class CalibrationResult:
         lines = [
             "# Simulation-based calibration (simulated designs)",
             "",
-            f"Design: {d['taxa']} taxa x {d['specimens']} specimens x {d['junctions']} junctions, "
+            f"Design: {Design(**d).describe()}, "
             f"{d['error_kind']} error {d['error']:g}, {d['split']} daughter split, trifurcation share "
             f"{d['trifurcations']:g}. Truth drawn from the fitting priors: mu ~ Normal({p['mu_mean']:g}, "
             f"{p['mu_sd']:g}), tau_taxon ~ HalfNormal({p['tau_taxon']:g}), tau_specimen ~ "

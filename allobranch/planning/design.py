@@ -109,6 +109,15 @@ class Design:
         """Junctions in one simulated table."""
         return self.taxa * self.specimens * self.junctions
 
+    def describe(self) -> str:
+        """The design's shape in words, e.g. ``"1 taxon x 3 specimens x 30 junctions"``."""
+        words = [
+            (self.taxa, "taxon", "taxa"),
+            (self.specimens, "specimen", "specimens"),
+            (self.junctions, "junction", "junctions"),
+        ]
+        return " x ".join(f"{n} {one if n == 1 else many}" for n, one, many in words)
+
     def with_(self, **changes: Any) -> Design:
         """A copy with some fields changed (checked again)."""
         unknown = sorted(set(changes) - {f.name for f in fields(self)})

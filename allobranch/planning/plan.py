@@ -357,7 +357,7 @@ class PlanResult:
         lines = [
             "# Study plan (simulated designs)",
             "",
-            f"Design: {d['taxa']} taxa x {d['specimens']} specimens x {d['junctions']} junctions, true "
+            f"Design: {Design(**d).describe()}, true "
             f"exponent {d['exponent']:g} (taxon spread {d['tau_taxon']:g}, specimen spread "
             f"{d['tau_specimen']:g}, junction deviation {d['sigma_dev']:g}), {d['error_kind']} error "
             f"{d['error']:g} ({unit}), {d['split']} daughter split, trifurcation share {d['trifurcations']:g}.",
