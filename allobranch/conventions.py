@@ -158,3 +158,5 @@ REPORT_FILE = "report.html"
 FIGURES_DIR = "figures"
 #: Per-junction geometry written by ``allobranch check --out``.
 JUNCTIONS_FILE = "junctions.csv"
+#: Figure file formats the figure writers accept.
+FIGURE_FORMATS: tuple[str, ...] = ("pdf", "svg", "png", "eps", "tiff", "jpg")

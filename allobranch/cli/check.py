@@ -11,10 +11,8 @@ from allobranch.cli.network_options import save_recipe, write_network_outputs
 from allobranch.cli.options import add_mapping_arguments, input_from_args
 from allobranch.conventions import JUNCTIONS_FILE
 from allobranch.errors import AllobranchError, OutputExistsError
-from allobranch.geometry import NAIVE_NOTE, junction_geometry, naive_summary
 from allobranch.intake.table import JunctionTable
 from allobranch.io import prepare_output_dir
-from allobranch.reporting.junctions import write_junctions
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -101,6 +99,8 @@ def format_check_report(table: JunctionTable, summary: pd.DataFrame) -> str:
     for title, items in sections:
         lines.append(f"{title}: {len(items)}")
         lines.extend(f"  {p.format()}" for p in items)
+    from allobranch.geometry import NAIVE_NOTE
+
     lines.append(f"Naive summary by taxon -- {NAIVE_NOTE}:")
     shown = summary.drop(columns=["method"])
     with pd.option_context("display.width", 200, "display.max_columns", 20):
@@ -121,6 +121,9 @@ def run(args: argparse.Namespace) -> int:
             raise AllobranchError(f"{args.save_recipe}: the folder for --save-recipe does not exist")
         _refuse_overwrite(Path(args.save_recipe), args.force, "--save-recipe file")
     table, network = input_from_args(args)
+    from allobranch.geometry import junction_geometry, naive_summary
+    from allobranch.reporting.junctions import write_junctions
+
     geometry = junction_geometry(table)
     print(format_check_report(table, naive_summary(geometry, by=("taxon",))))
     if args.save_recipe:

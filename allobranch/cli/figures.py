@@ -5,9 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from allobranch.conventions import FIGURES_DIR, FIT_FILE
+from allobranch.conventions import FIGURE_FORMATS, FIGURES_DIR, FIT_FILE
 from allobranch.errors import InputError
-from allobranch.reporting.style import FIGURE_FORMATS
 
 
 def _formats(text: str) -> tuple[str, ...]:

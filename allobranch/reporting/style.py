@@ -19,6 +19,7 @@ from pathlib import Path
 import matplotlib
 import numpy as np
 
+from allobranch.conventions import FIGURE_FORMATS  # noqa: F401 - re-exported: the formats' home
 from allobranch.io import atomic_write
 
 #: Millimetres per inch, for converting journal widths.
@@ -61,7 +62,6 @@ FLAG_COLOR = OKABE_ITO["vermillion"]
 FLAG_MARKER = "X"
 
 #: Formats :func:`save_figure` writes.
-FIGURE_FORMATS: tuple[str, ...] = ("pdf", "svg", "png", "eps", "tiff", "jpg")
 
 #: matplotlib settings of the house style (used only inside :func:`house_style`).
 HOUSE_RC: dict[str, object] = {
