@@ -544,30 +544,20 @@ def _logp_grad(x, ints, floats, grad):
 
 
 @nb.njit(cache=True, nogil=True)
+def _hierarchy_at(x, ints, floats):
+    """:func:`_hierarchy` with its data read from the packed buffers."""
+    views = _views(ints, floats)
+    specimen_taxon, fixed_t, pinned = views[1], views[2], views[3]
+    w_t, w_s, fixed_vals = views[12], views[13], views[14]
+    return _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon)
+
+
+@nb.njit(cache=True, nogil=True)
 def _logp_grad_plain(x, ints, floats, grad):
     """Log density and gradient with ``x[0]`` the population exponent itself (when it is free)."""
     _n, nt, ns = ints[_N], ints[_NT], ints[_NS]
     student = ints[_STUDENT] != 0
-    (
-        specimen_idx,
-        specimen_taxon,
-        fixed_t,
-        pinned,
-        y0,
-        mu_post,
-        g,
-        c,
-        ybar,
-        M,
-        s0sq,
-        lld,
-        w_t,
-        w_s,
-        fixed_vals,
-    ) = _views(ints, floats)
-    mu, taxon, specimen, p = _hierarchy(
-        x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon
-    )
+    mu, taxon, specimen, p = _hierarchy_at(x, ints, floats)
     (lt_t, a_t, lp_t, t_dr, t_dp, t_dlt, t_lpr, t_lpp, t_lplt) = taxon
     (lt_s, a_s, lp_s, s_dr, s_dp, s_dlt, s_lpr, s_lpp, s_lplt) = specimen
     sdev = math.exp(x[p])
@@ -587,6 +577,7 @@ def _logp_grad_plain(x, ints, floats, grad):
         q = 1
     # specimen level -> taxon exponents
     d_at = np.zeros(nt)
+    specimen_taxon = _views(ints, floats)[1]
     for s in range(ns):
         d_at[specimen_taxon[s]] += d_as[s] * s_dp[s] + s_lpp[s]
     if ints[_TAXON]:
@@ -627,26 +618,7 @@ def _expand(x, ints, floats, out):
     if ints[_MU_COND]:
         x = x.copy()
         x[0] = _conditioned_mu(x, ints, floats)[0]
-    (
-        specimen_idx,
-        specimen_taxon,
-        fixed_t,
-        pinned,
-        y0,
-        mu_post,
-        g,
-        c,
-        ybar,
-        M,
-        s0sq,
-        lld,
-        w_t,
-        w_s,
-        fixed_vals,
-    ) = _views(ints, floats)
-    mu, taxon, specimen, p = _hierarchy(
-        x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon
-    )
+    mu, taxon, specimen, p = _hierarchy_at(x, ints, floats)
     lt_t, a_t, lt_s, a_s = taxon[0], taxon[1], specimen[0], specimen[1]
     k = 0
     out[k] = mu

@@ -148,23 +148,17 @@ def _junction_likelihood_j(ints, floats, a_j, sdev, nu):
     with its derivatives in every junction's exponent, the deviation scale and ``nu``."""
     n = ints[_N]
     student = ints[_STUDENT] != 0
-    (
-        specimen_idx,
-        specimen_taxon,
-        fixed_t,
-        pinned,
-        y0,
-        mu_post,
-        g,
-        c,
-        ybar,
-        M,
-        s0sq,
-        lld,
-        w_t,
-        w_s,
-        fixed_vals,
-    ) = _views(ints, floats)
+    views = _views(ints, floats)
+    y0, mu_post, g, c, ybar, M, s0sq, lld = (
+        views[4],
+        views[5],
+        views[6],
+        views[7],
+        views[8],
+        views[9],
+        views[10],
+        views[11],
+    )
     a_eff = np.empty(n)
     for j in range(n):
         a_eff[j] = a_j[j] if a_j[j] > A_FLOOR else A_FLOOR

@@ -100,23 +100,8 @@ def _forward(x, ints, floats):
     taxon_level = ints[_TAXON] != 0
     specimen_level = ints[_SPEC] != 0
     phylo = ints[_PHYLO] != 0
-    (
-        specimen_idx,
-        specimen_taxon,
-        fixed_t,
-        pinned,
-        y0,
-        mu_post,
-        g,
-        c,
-        ybar,
-        M,
-        s0sq,
-        lld,
-        w_t,
-        w_s,
-        fixed_vals,
-    ) = _views(ints, floats)
+    views = _views(ints, floats)
+    specimen_taxon, fixed_t, pinned, fixed_vals = views[1], views[2], views[3], views[14]
     ahat, prec = _pilot_views(ints, floats)
     X, xbar, G, V, lam_eig, beta_sd, tb_scale, gamma_sd = _linear_views(ints, floats)
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
