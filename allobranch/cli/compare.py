@@ -8,6 +8,7 @@ import time
 
 from allobranch.cli.engine_options import add_engine_arguments, executor_from_args
 from allobranch.cli.fit import add_sampler_arguments, print_exponents, sampler_kwargs, spec_from_args
+from allobranch.cli.model_options import add_comparative_arguments, comparative_table
 from allobranch.cli.options import add_mapping_arguments, add_worker_argument, table_from_args
 from allobranch.comparison.laws import CLASSIC_LAWS, resolve_laws
 from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
@@ -29,6 +30,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         f"{', '.join(COMPARISON_FILES)} into --out.",
     )
     add_mapping_arguments(parser)
+    add_comparative_arguments(parser)
     parser.add_argument("--out", metavar="DIR", required=True, help="folder for the results")
     parser.add_argument(
         "--law",
@@ -81,7 +83,7 @@ def run(args: argparse.Namespace) -> int:
         check_delta(args.delta)
     except ValueError as exc:
         raise InputError(str(exc)) from None
-    table = table_from_args(args)
+    table = comparative_table(args, table_from_args(args))
     from allobranch.comparison.compare import compare_laws
     from allobranch.inference.results import FitResult
     from allobranch.reporting.saved_comparison import write_comparison
@@ -101,6 +103,15 @@ def run(args: argparse.Namespace) -> int:
         executor=executor_from_args(args),
     )
     written = write_comparison(result, args.out, force=args.force)
+    if result.free_fit.spec.covariates:  # does the exponent depend on each covariate?
+        from allobranch.comparison.slopes import compare_covariates, write_slopes
+
+        slopes = compare_covariates(
+            result.free_fit, seed=args.seed, draws=args.draws, tune=args.tune, chains=args.chains
+        )
+        written.append(write_slopes(slopes, args.out, force=args.force))
+        for row in slopes.itertuples():
+            print(f"Slope of {row.covariate}: {row.verdict} ({row.reason})")
     for w in result.warnings:
         print(f"WARNING: {w}", file=sys.stderr)
     print_exponents(result.free_fit.exponents(args.hdi), "Free-model exponents", diagnostics=False)

@@ -12,6 +12,7 @@ import pandas as pd
 
 from allobranch.comparison import bayes_factor, jobs, loo, rope, verdict
 from allobranch.comparison.laws import FREE, SCOPES, Law, resolve_laws
+from allobranch.comparison.linear_terms import taxon_prior_terms, uses_tree
 from allobranch.conventions import (
     BY_TAXON_LAW_COLUMNS,
     EVIDENCE_COLUMNS,
@@ -81,7 +82,8 @@ class LawComparison:
             for law in self.laws:
                 row.update({f"{c}_{law.label}": ev.at[law.label, c] for c in BY_TAXON_LAW_COLUMNS})
             row.update({f"{c}_{FREE}": ev.at[FREE, c] for c in ("elpd_diff", "dse", "weight")})
-            row["n_high_k"] = int(ev["n_high_k"].max())
+            k = ev["n_high_k"].max()  # NaN when the scope had no LOO (taxa on a tree)
+            row["n_high_k"] = int(k) if np.isfinite(k) else 0
             rows.append(row)
         columns = [
             "taxon",
@@ -212,14 +214,17 @@ def _law_fit_warning(result: FitResult, law: str, scope: str) -> str | None:
 
 def _scope_rows(
     scope: str,
-    loo_result: loo.LooComparison,
+    loo_result: loo.LooComparison | None,
     bf: pd.DataFrame,
     draws: np.ndarray,
     laws: Sequence[Law],
     delta: float,
 ) -> list[dict]:
     rows = []
-    for label, stats in loo_result.table.iterrows():
+    table = loo_result.table if loo_result is not None else pd.DataFrame(index=[FREE])
+    labels = list(table.index) + [law.label for law in laws if law.label not in table.index]
+    for label in labels:
+        stats = table.loc[label] if label in table.index and len(table.columns) else pd.Series(dtype=float)
         row = {"scope": scope, "law": label, **stats.to_dict()}
         law = next((law for law in laws if law.label == label), None)
         if law is None:
@@ -356,6 +361,9 @@ def compare_laws(
         )
     free_spec = given_fit.spec if given_fit is not None else (spec or ModelSpec())
     plan = jobs.plan_jobs(laws, taxa, scopes, seed, include_free=given_fit is None)
+    tree = uses_tree(table, free_spec)
+    if tree:  # a law pinning one taxon of a tree is not a model the fitter samples: no per-taxon LOO
+        plan = [j for j in plan if j.scope == POPULATION]
     log = jobs.stderr_log(progress)
     log(f"{len(plan)} fits to run")
     fits = jobs.run_jobs(
@@ -369,9 +377,17 @@ def compare_laws(
     scope_names = [
         scope for scope in [POPULATION, *taxa] if any(j.scope == scope and j.law != FREE for j in plan)
     ]
+    if tree and "taxon" in scopes and len(taxa) > 1:
+        scope_names += list(taxa)
+        warnings.append(
+            "taxa share a tree: the per-taxon verdicts rest on P(ROPE) and the Bayes factor only (a law "
+            "fixing one taxon's exponent under the tree is not refitted, so there is no per-taxon LOO)"
+        )
     for scope in scope_names:
         per_scope[scope] = {FREE: free}  # fits, so LOO can recompute a saved fit's log-likelihood
         for law in laws:
+            if (scope, law.label) not in fits:
+                continue
             result = fits[(scope, law.label)]
             message = _law_fit_warning(result, law.label, scope)
             if message:
@@ -391,13 +407,14 @@ def compare_laws(
         taxa if "taxon" in scopes else None,
         include_population=POPULATION in scopes,
         seed=seed,
+        taxon_priors=taxon_prior_terms(table, free.spec),
     )
     warnings += bf_warnings
     post = free.idata.posterior
     rows = []
     for scope, idatas in per_scope.items():
-        result = loo.compare_loo(idatas, var_name=LOGLIK_VAR)
-        message = loo.high_k_warning(scope, result)
+        result = loo.compare_loo(idatas, var_name=LOGLIK_VAR) if len(idatas) > 1 else None
+        message = loo.high_k_warning(scope, result) if result is not None else None
         if message:
             warnings.append(message)
         draws_ = post["mu"].values if scope == POPULATION else post["a_taxon"].sel(taxon=scope).values
