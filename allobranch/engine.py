@@ -104,7 +104,8 @@ class Engine:
         Local worker processes (default: one per processor core, at most one per job); 1 runs the jobs in
         this process. Not used with ``executor``, ``client`` or ``scheduler``.
     executor : concurrent.futures.Executor, optional
-        Run the jobs on this executor. A ``distributed.Client`` is accepted here too.
+        Run the jobs on this executor. A ``distributed.Client`` or a Dask scheduler's address is accepted
+        here too (as ``client`` or ``scheduler``).
     client : distributed.Client, optional
         Run the jobs on this Dask cluster (left open at the end: it belongs to the caller).
     scheduler : str, optional
@@ -129,6 +130,8 @@ class Engine:
             raise InputError(f"workers must be a whole number of at least 1, got {self.workers!r}")
         if hasattr(self.executor, "get_executor"):  # a distributed.Client given as the executor
             self.client, self.executor = self.executor, None
+        elif isinstance(self.executor, str):  # a Dask scheduler's address given as the executor
+            self.scheduler, self.executor = self.executor, None
 
     @property
     def remote(self) -> bool:

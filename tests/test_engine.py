@@ -69,6 +69,8 @@ def test_engine_refuses_two_places() -> None:
         Engine(client=object(), scheduler="tcp://127.0.0.1:8786")
     with pytest.raises(InputError, match="at least 1"):
         Engine(workers=0)
+    # what compare_laws(executor=...) receives for --scheduler: an address, connected for the run only
+    assert Engine(executor="tcp://127.0.0.1:8786").scheduler == "tcp://127.0.0.1:8786"
 
 
 def test_an_unreachable_scheduler_is_a_user_error(monkeypatch) -> None:
@@ -114,14 +116,25 @@ PLAN_ARGS = [
 
 def test_a_plan_on_a_dask_cluster_equals_the_local_plan(tmp_path: Path) -> None:
     # The same seeds give the same table whatever runs the jobs: a Dask scheduler with two worker processes
-    # on loopback, reached through --scheduler, against this process.
+    # on loopback, reached through --scheduler, against this process (plan, and compare's law fits).
     distributed = pytest.importorskip("distributed")
+    import allobranch as ab
+
+    sim = ab.simulate(ab.Design(specimens=2, junctions=8), seed=2)
+    sim.frame.to_csv(tmp_path / "table.csv", index=False)
+    compare = ["compare", str(tmp_path / "table.csv"), "--specimen", "specimen", "--parent", "parent",
+               "--daughters", "d1,d2", "--rel-error", "0.05", "--law", "murray", "--draws", "100", "--tune",
+               "100", "--chains", "2", "--quiet"]  # fmt: skip
     assert main([*PLAN_ARGS, "--workers", "1", "--out", str(tmp_path / "local")]) == 0
+    assert main([*compare, "--workers", "1", "--out", str(tmp_path / "local")]) == 0
     with distributed.LocalCluster(
         n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None
     ) as cluster:
         address = cluster.scheduler_address
         assert main([*PLAN_ARGS, "--scheduler", address, "--out", str(tmp_path / "dask")]) == 0
+        assert main([*compare, "--scheduler", address, "--out", str(tmp_path / "dask")]) == 0
+    laws = [pd.read_csv(tmp_path / where / "laws.csv") for where in ("local", "dask")]
+    pd.testing.assert_frame_equal(*laws, check_exact=True)
     for name in ("plan.csv", "plan_replicates.csv"):
         local = pd.read_csv(tmp_path / "local" / name, keep_default_na=False)
         dask = pd.read_csv(tmp_path / "dask" / name, keep_default_na=False)

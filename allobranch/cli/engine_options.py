@@ -8,7 +8,6 @@ every job's seed is derived from the user's seed and the job's place in the stud
 from __future__ import annotations
 
 import argparse
-from concurrent.futures import Executor
 
 from allobranch.cli.fit import positive_int
 from allobranch.engine import DASK_EXTRA, Engine
@@ -53,20 +52,15 @@ def engine_from_args(args: argparse.Namespace) -> Engine:
     return Engine(workers=getattr(args, "workers", None), scheduler=getattr(args, "scheduler", None))
 
 
-def executor_from_args(args: argparse.Namespace) -> Executor | None:
-    """A ``concurrent.futures`` executor on the Dask cluster of ``--scheduler``, or None without it.
+def executor_from_args(args: argparse.Namespace) -> str | None:
+    """What ``compare_laws(executor=...)`` takes for ``--scheduler``: the scheduler's address, or None.
 
-    For commands whose API takes an executor (``compare``). The client stays open until the command's
-    process ends.
+    The comparison's engine connects to the scheduler for its fits and closes the connection after them
+    (:class:`~allobranch.engine.Engine` reads an address given as the executor as ``scheduler``).
 
     Raises
     ------
     allobranch.errors.InputError
-        When Dask is not installed, the scheduler cannot be reached, or ``--workers`` is given too.
+        When ``--workers`` and ``--scheduler`` are both given.
     """
-    engine = engine_from_args(args)
-    if engine.scheduler is None:
-        return None
-    from allobranch.engine import connect
-
-    return connect(engine.scheduler).get_executor(pure=False)
+    return engine_from_args(args).scheduler
