@@ -122,21 +122,18 @@ def sample_nutpie(
     target_accept: float,
 ) -> az.InferenceData:
     """Sample with nutpie; returns InferenceData with ``posterior`` and ``sample_stats``."""
-    import nutpie
+    from allobranch.inference.direct import run_nutpie
 
-    compiled = compile_nutpie(model)
-    idata = nutpie.sample(
-        compiled,
+    return run_nutpie(
+        compile_nutpie(model),
         draws=draws,
         tune=tune,
         chains=chains,
         seed=seed,
-        progress_bar=progress,
+        progress=progress,
         target_accept=target_accept,
         cores=min(chains, 2),
     )
-    keep = [g for g in ("posterior", "sample_stats") if g in idata.groups()]
-    return az.InferenceData(**{g: idata[g] for g in keep})
 
 
 def sample_pymc(

@@ -87,13 +87,37 @@ def sample_direct(
     cores: int | None = None,
 ) -> az.InferenceData:
     """Sample a packed fast-form density with nutpie; returns ``posterior`` and ``sample_stats``."""
-    import nutpie
-
     model = compiled_model(density, init, coords)
     if cores is None:
         cores = min(chains, os.cpu_count() or 1)
-    idata = nutpie.sample(
+    return run_nutpie(
         model,
+        draws=draws,
+        tune=tune,
+        chains=chains,
+        seed=seed,
+        progress=progress,
+        target_accept=target_accept,
+        cores=cores,
+    )
+
+
+def run_nutpie(
+    compiled: Any,
+    *,
+    draws: int,
+    tune: int,
+    chains: int,
+    seed: int,
+    progress: bool,
+    target_accept: float,
+    cores: int,
+) -> az.InferenceData:
+    """Sample a compiled nutpie model; returns only the ``posterior`` and ``sample_stats`` groups."""
+    import nutpie
+
+    idata = nutpie.sample(
+        compiled,
         draws=draws,
         tune=tune,
         chains=chains,

@@ -15,6 +15,7 @@ import xarray as xr
 from allobranch.conventions import HDI_PROB
 from allobranch.errors import InputError
 from allobranch.inference import sampling
+from allobranch.inference.pointwise import CHUNK_BYTES, add_predictive
 from allobranch.inference.results import FitResult
 from allobranch.intake.table import JunctionTable
 from allobranch.model.asymmetry import estimate_sigma_asym
@@ -256,7 +257,15 @@ def fit(
         arrays=arrays,
         layout=sampling.attempt_layout(layout, plan),
     )
-    add_pointwise(idata, built, seed)
+    post = idata.posterior
+    if post.sizes["chain"] * post.sizes["draw"] * data.n_junctions * 8 <= CHUNK_BYTES:
+        add_pointwise(idata, built, seed)
+    else:  # never hold draws x junctions in memory: LOO recomputes it in blocks when it needs it
+        add_predictive(idata, built, seed)
+        notes.append(
+            f"the junction log-likelihood ({data.n_junctions} junctions) is not kept in memory; LOO "
+            "recomputes it from the posterior in blocks"
+        )
     settings = {
         "draws": draws,
         "tune": tune,

@@ -14,6 +14,7 @@ import pandas as pd
 import xarray as xr
 
 from allobranch.comparative.phylogeny import restore_attachments
+from allobranch.conventions import SUMMARY_STATS
 from allobranch.errors import InputError, Problem
 from allobranch.geometry import junction_geometry, naive_summary
 from allobranch.inference import diagnostics as dg
@@ -26,19 +27,7 @@ from allobranch.model.structure import HYPER_PARAMETERS
 #: Default probability of the highest-density intervals.
 HDI_PROB = 0.9
 #: Columns of :meth:`FitResult.exponents`.
-EXPONENT_COLUMNS = (
-    "level",
-    "group",
-    "taxon",
-    "mean",
-    "sd",
-    "hdi_low",
-    "hdi_high",
-    "r_hat",
-    "ess_bulk",
-    "ess_tail",
-    "fixed",
-)
+EXPONENT_COLUMNS = ("level", "group", "taxon", *SUMMARY_STATS, "ess_tail", "fixed")
 #: Plain-language meaning of each variance component.
 COMPONENTS = {
     "tau_taxon": "between-taxon SD of the exponent",
@@ -197,12 +186,7 @@ class FitResult:
                 "component",
                 "meaning",
                 "source",
-                "mean",
-                "sd",
-                "hdi_low",
-                "hdi_high",
-                "r_hat",
-                "ess_bulk",
+                *SUMMARY_STATS,
                 "ess_tail",
             ],
         )
