@@ -3,12 +3,17 @@
 from __future__ import annotations
 
 import argparse
-import sys
 import time
 
-from allobranch.cli.design_options import add_design_arguments, design_from_args
-from allobranch.cli.engine_options import add_engine_arguments, engine_from_args
-from allobranch.cli.fit import add_sampler_arguments, positive_int, sampler_kwargs, spec_from_args
+from allobranch.cli.design_options import (
+    add_study_parser,
+    design_from_args,
+    finish_study_parser,
+    print_done,
+    warn_failed,
+)
+from allobranch.cli.engine_options import engine_from_args
+from allobranch.cli.fit import positive_int, sampler_kwargs, spec_from_args
 from allobranch.reporting.outputs import prepare_output_dir, write_files
 
 #: Files written into ``--out``.
@@ -18,14 +23,9 @@ CALIBRATION_FILES: tuple[str, ...] = (RANKS_FILE, SUMMARY_FILE, REPORT_FILE, FIG
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
-    """Add the ``calibrate`` sub-command.
-
-    Parameters
-    ----------
-    subparsers : argparse._SubParsersAction
-        The top-level parser's sub-command collection.
-    """
-    parser = subparsers.add_parser(
+    """Add the ``calibrate`` sub-command to the top-level parser's ``subparsers``."""
+    parser = add_study_parser(
+        subparsers,
         "calibrate",
         help="check the model's calibration on your design by simulation (rank histograms)",
         description="Simulation-based calibration: draw the exponent and spreads from the model's priors, "
@@ -34,29 +34,15 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         f"configuration is calibrated. Writes {', '.join(CALIBRATION_FILES)} into --out. All tables are "
         "simulated.",
     )
-    parser.add_argument("--out", metavar="DIR", required=True, help="folder for the results")
     parser.add_argument(
         "--replicates", type=positive_int, default=100, metavar="R", help="simulated tables (default 100)"
     )
-    add_design_arguments(parser, truth=False)
-    add_sampler_arguments(parser)
-    add_engine_arguments(parser)
-    parser.set_defaults(func=run)
+    finish_study_parser(parser, run, truth=False)
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``allobranch calibrate``.
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments.
-
-    Returns
-    -------
-    int
-        0 on success; bad input raises :class:`~allobranch.errors.AllobranchError` (exit code 2).
-    """
+    """Run ``allobranch calibrate``: exit code 0 on success (bad input raises
+    :class:`~allobranch.errors.AllobranchError`, which the entry point reports with exit code 2)."""
     started = time.perf_counter()
     from allobranch.planning.calibrate import calibrate
 
@@ -83,18 +69,11 @@ def run(args: argparse.Namespace) -> int:
             FIGURE_FILE: lambda p: figure.savefig(p, format="png", dpi=300),
         },
     )
-    failed = result.ranks.loc[result.ranks["status"] == "failed", "replicate"].nunique()
-    if failed:
-        print(
-            f"WARNING: {failed} replicate(s) failed; see {RANKS_FILE} (status, seed, error)", file=sys.stderr
-        )
+    warn_failed(result.ranks.loc[result.ranks["status"] == "failed", "replicate"].nunique(), RANKS_FILE)
     print(
         result.summary[["quantity", "n", "chi2_p", "mean_rank_fraction", "coverage"]].to_string(index=False)
     )
-    print(
-        f"calibrate took {time.perf_counter() - started:.0f} s; results in {args.out}/ "
-        f"({', '.join(p.name for p in written)})"
-    )
+    print_done("calibrate", started, args.out, written)
     return 0
 
 

@@ -3,8 +3,13 @@
 from __future__ import annotations
 
 import argparse
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
 
-from allobranch.cli.fit import positive_int
+from allobranch.cli.engine_options import add_engine_arguments
+from allobranch.cli.fit import add_sampler_arguments, positive_int
 from allobranch.model.simulate import SPLITS
 from allobranch.planning.design import Design
 
@@ -83,3 +88,80 @@ def design_from_args(args: argparse.Namespace) -> Design:
         name: getattr(args, name) for _, name, *_ in SHAPE_OPTIONS + TRUTH_OPTIONS if hasattr(args, name)
     }
     return Design(**fields, split=args.split, error_kind=kind, error=DEFAULT.error if size is None else size)
+
+
+def add_study_parser(
+    subparsers: argparse._SubParsersAction, name: str, *, help: str, description: str
+) -> argparse.ArgumentParser:
+    """Add a simulation sub-command (``plan``, ``calibrate``) with its ``--out`` option.
+
+    Parameters
+    ----------
+    subparsers : argparse._SubParsersAction
+        The top-level parser's sub-command collection.
+    name, help, description : str
+        The sub-command's name and texts.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        The sub-command's parser, for its own options and then :func:`finish_study_parser`.
+    """
+    parser = subparsers.add_parser(name, help=help, description=description)
+    parser.add_argument("--out", metavar="DIR", required=True, help="folder for the results")
+    return parser
+
+
+def finish_study_parser(
+    parser: argparse.ArgumentParser, run: Callable[[argparse.Namespace], int], *, truth: bool = True
+) -> None:
+    """Add the design, sampler and engine options and set the sub-command's ``run`` function.
+
+    Parameters
+    ----------
+    parser : argparse.ArgumentParser
+        The sub-command's parser.
+    run : callable
+        ``run(args) -> exit code``.
+    truth : bool
+        As in :func:`add_design_arguments`.
+    """
+    add_design_arguments(parser, truth=truth)
+    add_sampler_arguments(parser)
+    add_engine_arguments(parser)
+    parser.set_defaults(func=run)
+
+
+def warn_failed(failed: int, failed_file: str) -> None:
+    """Warn on standard error when replicates failed.
+
+    Parameters
+    ----------
+    failed : int
+        Failed replicates (nothing is printed when 0).
+    failed_file : str
+        The file that lists them.
+    """
+    if failed:
+        print(
+            f"WARNING: {failed} replicate(s) failed; see {failed_file} (status, seed, error)", file=sys.stderr
+        )
+
+
+def print_done(name: str, started: float, out: str, written: list[Path]) -> None:
+    """Print a simulation sub-command's closing line: its time and the files it wrote.
+
+    Parameters
+    ----------
+    name : str
+        The sub-command.
+    started : float
+        :func:`time.perf_counter` at its start.
+    out : str
+        The ``--out`` folder as given.
+    written : list of pathlib.Path
+        The files written.
+    """
+    print(
+        f"{name} took {time.perf_counter() - started:.0f} s; results in {out}/ ({', '.join(p.name for p in written)})"
+    )

@@ -9,7 +9,6 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-from allobranch.errors import Problem, RecipeError
 from allobranch.intake.mapping import ColumnMapping
 
 #: Command-line spelling of every network option (``dest`` is the recipe key).
@@ -191,22 +190,14 @@ def network_from_args(args: argparse.Namespace):
     from allobranch.cli.options import mapping_from_args
     from allobranch.intake.recipe import NETWORK_SIZE_COLUMNS
     from allobranch.networks.options import junctions_from_options
+    from allobranch.networks.result import option_error
 
     clash = [f"--{k}" for k in ("parent", "daughters") if getattr(args, k, None)]
     if clash:
-        raise RecipeError(
-            [
-                Problem(
-                    "fatal",
-                    "<options>",
-                    None,
-                    None,
-                    f"{' and '.join(clash)} {'names' if len(clash) == 1 else 'name'} a junction table's columns, "
-                    "but a network was given",
-                    "leave them out: the network gives every junction's parent and daughters",
-                    "bad_option",
-                )
-            ]
+        raise option_error(
+            f"{' and '.join(clash)} {'names' if len(clash) == 1 else 'name'} a junction table's columns, "
+            "but a network was given",
+            "leave them out: the network gives every junction's parent and daughters",
         )
     mapping = mapping_from_args(args, default=ColumnMapping(**NETWORK_SIZE_COLUMNS))
     if options.kind == "swc" and args.unit is None and not _recipe_names_unit(args.recipe):

@@ -4,18 +4,17 @@ that reaches a target probability."""
 from __future__ import annotations
 
 import argparse
-import sys
 import time
 
-from allobranch.cli.design_options import add_design_arguments, design_from_args
-from allobranch.cli.engine_options import add_engine_arguments, engine_from_args
-from allobranch.cli.fit import (
-    add_sampler_arguments,
-    positive_int,
-    probability,
-    sampler_kwargs,
-    spec_from_args,
+from allobranch.cli.design_options import (
+    add_study_parser,
+    design_from_args,
+    finish_study_parser,
+    print_done,
+    warn_failed,
 )
+from allobranch.cli.engine_options import engine_from_args
+from allobranch.cli.fit import positive_int, probability, sampler_kwargs, spec_from_args
 from allobranch.reporting.outputs import prepare_output_dir, write_files
 
 #: Files written into ``--out``.
@@ -29,14 +28,9 @@ PLAN_FILES: tuple[str, ...] = (PLAN_FILE, REPLICATES_FILE, REPORT_FILE, FIGURE_F
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
-    """Add the ``plan`` sub-command.
-
-    Parameters
-    ----------
-    subparsers : argparse._SubParsersAction
-        The top-level parser's sub-command collection.
-    """
-    parser = subparsers.add_parser(
+    """Add the ``plan`` sub-command to the top-level parser's ``subparsers``."""
+    parser = add_study_parser(
+        subparsers,
         "plan",
         help="plan a study: how often a design tells the true exponent from an alternative",
         description="Simulate tables from a study design again and again, fit and compare the law at the "
@@ -45,7 +39,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         f"do so for several designs and name the smallest that reaches --target. Writes {', '.join(PLAN_FILES)} "
         "into --out. All tables are simulated.",
     )
-    parser.add_argument("--out", metavar="DIR", required=True, help="folder for the results")
     parser.add_argument(
         "--alternative",
         type=float,
@@ -79,25 +72,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         default=None,
         help="ROPE half-width of the laws (default: half the gap to the nearest alternative, at most 0.25)",
     )
-    add_design_arguments(parser)
-    add_sampler_arguments(parser)
-    add_engine_arguments(parser)
-    parser.set_defaults(func=run)
+    finish_study_parser(parser, run)
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``allobranch plan``.
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments.
-
-    Returns
-    -------
-    int
-        0 on success; bad input raises :class:`~allobranch.errors.AllobranchError` (exit code 2).
-    """
+    """Run ``allobranch plan``: exit code 0 on success (bad input raises
+    :class:`~allobranch.errors.AllobranchError`, which the entry point reports with exit code 2)."""
     started = time.perf_counter()
     from allobranch.planning.plan import parse_sweep, plan_study
 
@@ -128,12 +108,7 @@ def run(args: argparse.Namespace) -> int:
             FIGURE_FILE: lambda p: figure.savefig(p, format="png", dpi=300),
         },
     )
-    failed = int(result.points["failed"].sum())
-    if failed:
-        print(
-            f"WARNING: {failed} replicate(s) failed; see {REPLICATES_FILE} (status, seed, error)",
-            file=sys.stderr,
-        )
+    warn_failed(int(result.points["failed"].sum()), REPLICATES_FILE)
     cols = ["value"] if sweep else []
     cols += ["n_junctions", "p_right", "p_other", "p_none", "p_undecided", "mean_width"]
     print(result.points[cols].to_string(index=False, float_format=lambda v: f"{v:.3g}"))
@@ -144,9 +119,7 @@ def run(args: argparse.Namespace) -> int:
         print(
             f"Smallest design reaching P(right verdict) >= {args.target:g}: {sweep.variable} = {best['value']:g}."
         )
-    print(
-        f"plan took {time.perf_counter() - started:.0f} s; results in {args.out}/ ({', '.join(p.name for p in written)})"
-    )
+    print_done("plan", started, args.out, written)
     return 0
 
 

@@ -28,19 +28,25 @@ def check_rule(option: str, value: object, allowed: tuple[str, ...]) -> str:
     """
     if value in allowed:
         return str(value)
-    raise RecipeError(
-        [
-            Problem(
-                "fatal",
-                "<options>",
-                None,
-                None,
-                f"{option}: unknown value {value!r}",
-                f"use one of: {', '.join(allowed)}",
-                "bad_option",
-            )
-        ]
-    )
+    raise option_error(f"{option}: unknown value {value!r}", f"use one of: {', '.join(allowed)}")
+
+
+def option_error(message: str, hint: str) -> RecipeError:
+    """A :class:`RecipeError` with one fatal ``bad_option`` problem about the options (no file or row).
+
+    Parameters
+    ----------
+    message : str
+        What is wrong.
+    hint : str
+        What to do.
+
+    Returns
+    -------
+    RecipeError
+        The error to raise.
+    """
+    return RecipeError([Problem("fatal", "<options>", None, None, message, hint, "bad_option")])
 
 
 @dataclass
