@@ -19,6 +19,7 @@ import pytensor.tensor as pt
 from pymc.initial_point import make_initial_point_fn
 from pymc.pytensorf import compile as compile_pymc
 
+from allobranch.inference.nuts_run import NutsRun
 from allobranch.model.spec import SAMPLERS  # noqa: F401,E402 - the one list of sampler names
 
 
@@ -111,51 +112,24 @@ def compile_nutpie(model: pm.Model, var_names: list[str] | None = None) -> Any:
     )
 
 
-def sample_nutpie(
-    model: pm.Model,
-    *,
-    draws: int,
-    tune: int,
-    chains: int,
-    seed: int,
-    progress: bool,
-    target_accept: float,
-) -> az.InferenceData:
+def sample_nutpie(model: pm.Model, settings: NutsRun) -> az.InferenceData:
     """Sample with nutpie; returns InferenceData with ``posterior`` and ``sample_stats``."""
     from allobranch.inference.direct import run_nutpie
 
-    return run_nutpie(
-        compile_nutpie(model),
-        draws=draws,
-        tune=tune,
-        chains=chains,
-        seed=seed,
-        progress=progress,
-        target_accept=target_accept,
-        cores=min(chains, 2),
-    )
+    return run_nutpie(compile_nutpie(model), settings, cores=min(settings.chains, 2))
 
 
-def sample_pymc(
-    model: pm.Model,
-    *,
-    draws: int,
-    tune: int,
-    chains: int,
-    seed: int,
-    progress: bool,
-    target_accept: float,
-) -> az.InferenceData:
+def sample_pymc(model: pm.Model, settings: NutsRun) -> az.InferenceData:
     """Sample with PyMC's own NUTS."""
     with model:
         idata = pm.sample(
-            draws=draws,
-            tune=tune,
-            chains=chains,
-            random_seed=seed,
-            progressbar=progress,
-            target_accept=target_accept,
-            cores=min(chains, 2),
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            random_seed=settings.seed,
+            progressbar=settings.progress,
+            target_accept=settings.target_accept,
+            cores=min(settings.chains, 2),
             compute_convergence_checks=False,
             idata_kwargs={"log_likelihood": False},
         )

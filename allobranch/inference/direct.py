@@ -16,6 +16,7 @@ from typing import Any
 import arviz as az
 import numpy as np
 
+from allobranch.inference.nuts_run import NutsRun
 from allobranch.model.density import FastDensity, expand_callback, logp_callback
 
 #: Jitter of the starting points about the pilot point, on the unconstrained scale (uniform half-width).
@@ -77,40 +78,21 @@ def sample_direct(
     density: FastDensity,
     init: np.ndarray,
     coords: dict[str, list[str]],
+    settings: NutsRun,
     *,
-    draws: int,
-    tune: int,
-    chains: int,
-    seed: int,
-    progress: bool,
-    target_accept: float,
     cores: int | None = None,
 ) -> az.InferenceData:
     """Sample a packed fast-form density with nutpie; returns ``posterior`` and ``sample_stats``."""
     model = compiled_model(density, init, coords)
     if cores is None:
-        cores = min(chains, os.cpu_count() or 1)
-    return run_nutpie(
-        model,
-        draws=draws,
-        tune=tune,
-        chains=chains,
-        seed=seed,
-        progress=progress,
-        target_accept=target_accept,
-        cores=cores,
-    )
+        cores = min(settings.chains, os.cpu_count() or 1)
+    return run_nutpie(model, settings, cores=cores)
 
 
 def run_nutpie(
     compiled: Any,
+    settings: NutsRun,
     *,
-    draws: int,
-    tune: int,
-    chains: int,
-    seed: int,
-    progress: bool,
-    target_accept: float,
     cores: int,
 ) -> az.InferenceData:
     """Sample a compiled nutpie model; returns only the ``posterior`` and ``sample_stats`` groups."""
@@ -118,12 +100,12 @@ def run_nutpie(
 
     idata = nutpie.sample(
         compiled,
-        draws=draws,
-        tune=tune,
-        chains=chains,
-        seed=seed,
-        progress_bar=progress,
-        target_accept=target_accept,
+        draws=settings.draws,
+        tune=settings.tune,
+        chains=settings.chains,
+        seed=settings.seed,
+        progress_bar=settings.progress,
+        target_accept=settings.target_accept,
         cores=max(1, int(cores)),
     )
     keep = [g for g in ("posterior", "sample_stats") if g in idata.groups()]

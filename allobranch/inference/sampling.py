@@ -22,6 +22,7 @@ import arviz as az
 import numpy as np
 
 from allobranch.inference import diagnostics as dg
+from allobranch.inference.nuts_run import NutsRun
 from allobranch.model.data import ModelData
 from allobranch.model.spec import ModelSpec
 from allobranch.model.structure import HYPER_PARAMETERS, GroupLayout
@@ -157,13 +158,13 @@ def sample_once(
 ) -> tuple[az.InferenceData, str, list[str]]:
     """Run one attempt; returns the draws, the sampler actually used and notes (e.g. a fallback)."""
     lay = attempt_layout(layout, plan)
-    kwargs = dict(
+    settings = NutsRun(
         draws=draws, tune=tune, chains=chains, seed=seed, progress=progress, target_accept=plan.target_accept
     )
     notes: list[str] = []
     if sampler == "nutpie" and form == "fast":
         try:
-            return _sample_fast(data, spec, lay, arrays, {**kwargs, "cores": cores}), "nutpie", notes
+            return _sample_fast(data, spec, lay, arrays, settings, cores), "nutpie", notes
         except Exception as exc:  # noqa: BLE001 - any failure of the fast path falls back, loudly
             if data.linear is not None:  # PyMC's model has no covariates, traits or tree: never swap models
                 raise
@@ -178,17 +179,17 @@ def sample_once(
     built = build_model(data, spec, lay)
     if sampler == "nutpie":
         try:
-            return sample_nutpie(built.model, **kwargs), "nutpie", notes
+            return sample_nutpie(built.model, settings), "nutpie", notes
         except Exception as exc:  # noqa: BLE001
             warnings.warn(
                 f"nutpie failed ({exc!r}); falling back to PyMC's NUTS", RuntimeWarning, stacklevel=2
             )
             notes.append(f"nutpie failed ({type(exc).__name__}); sampled with PyMC's NUTS instead")
-    return sample_pymc(built.model, **kwargs), "pymc", notes
+    return sample_pymc(built.model, settings), "pymc", notes
 
 
 def _sample_fast(
-    data: ModelData, spec: ModelSpec, layout: GroupLayout, arrays: dict, kwargs: dict
+    data: ModelData, spec: ModelSpec, layout: GroupLayout, arrays: dict, settings: NutsRun, cores: int | None
 ) -> az.InferenceData:
     from allobranch.inference.direct import sample_direct
     from allobranch.model.density import pack
@@ -214,7 +215,7 @@ def _sample_fast(
     coords = {"taxon": data.taxa, "specimen": data.specimens}
     if data.linear is not None:
         coords.update(covariate=list(data.linear.covariate_names), trait=list(data.linear.trait_names))
-    return sample_direct(density, init, coords, **kwargs)
+    return sample_direct(density, init, coords, settings, cores=cores)
 
 
 def _pilot_precision(layout: GroupLayout) -> tuple[np.ndarray, np.ndarray]:
