@@ -36,6 +36,7 @@ from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec, Priors
 from allobranch.model.structure import resolve_levels
 from allobranch.planning.design import Design, Simulation, simulate
+from allobranch.planning.failures import failed_section
 from allobranch.planning.settings import fit_settings
 
 #: Thinned posterior draws each true value is ranked among (ranks run 0 .. RANK_DRAWS, so RANK_DRAWS + 1
@@ -358,13 +359,8 @@ class CalibrationResult:
             "coverage matches the interval probability. A mean rank fraction below 0.5 means posteriors tend to "
             "sit above the truth (above 0.5: below it); a U shape means intervals too narrow, a hump too wide. "
             "Taxon exponents of one replicate share mu, so their pooled tests are somewhat optimistic.",
-            "",
-            "## Failed replicates",
-            "",
         ]
-        lines += [
-            f"- replicate {int(r.replicate)}, seed {int(r.seed)}: {r.error}" for r in failed.itertuples()
-        ] or ["- none"]
+        lines += failed_section(failed, lambda r: f"replicate {int(r.replicate)}")
         return "\n".join(lines) + "\n"
 
 

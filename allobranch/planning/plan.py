@@ -42,6 +42,7 @@ from allobranch.engine import Engine, JobFailure, derived_seed, run
 from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec
 from allobranch.planning.design import SWEEP_VARIABLES, Design, simulate
+from allobranch.planning.failures import failed_section
 from allobranch.planning.settings import fit_settings
 
 #: Classes of a replicate's verdict, in the order of the tables.
@@ -400,14 +401,8 @@ class PlanResult:
             "share of those intervals that contain the true exponent.",
             "- Every replicate's verdict is the law comparison's own conservative rule "
             "(allobranch.comparison.verdict; see `allobranch compare --help` and laws.md of a comparison).",
-            "",
-            "## Failed replicates",
-            "",
         ]
-        lines += [
-            f"- point {int(r.point)}, replicate {int(r.replicate)}, seed {int(r.seed)}: {r.error}"
-            for r in failed.itertuples()
-        ] or ["- none"]
+        lines += failed_section(failed, lambda r: f"point {int(r.point)}, replicate {int(r.replicate)}")
         return "\n".join(lines) + "\n"
 
 
