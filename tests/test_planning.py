@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import inspect
+import re
 from pathlib import Path
 
 import matplotlib.pyplot as plt
@@ -19,6 +21,7 @@ from allobranch.errors import InputError
 from allobranch.planning import calibrate as cal
 from allobranch.planning import plan
 from allobranch.planning.design import Design, simulate
+from allobranch.planning.settings import FIT_SETTINGS
 from allobranch.reporting.plots.calibration import plot_rank_histogram
 from allobranch.reporting.plots.plan import plot_interval_width, plot_verdict_probabilities
 
@@ -133,6 +136,23 @@ def test_plan_figures_take_an_axes_and_return_it(small_plan) -> None:
     assert plot_interval_width(small_plan.points, ax=right) is right
     assert len(left.get_lines()) >= 5  # four verdict classes and the target line
     np.testing.assert_allclose(right.get_lines()[0].get_ydata(), small_plan.points["mean_width"])
+
+
+@pytest.mark.parametrize("func", [plan.plan_study, cal.calibrate])
+def test_study_functions_document_every_parameter(func) -> None:
+    # the options both study functions take are documented once and filled into each docstring: every
+    # parameter of the signature (inspect.signature, standard library) has its numpydoc entry, in order,
+    # and names each fit setting it passes on, every one a parameter of allobranch.fit
+    doc = inspect.getdoc(func)
+    section = doc.split("Parameters\n----------\n")[1].split("\n\n")[0]
+    entries = re.findall(r"^(\*\*\w+|\w+)(?: :|$)", section, flags=re.M)
+    names = [
+        ("**" if p.kind is p.VAR_KEYWORD else "") + p.name
+        for p in inspect.signature(func).parameters.values()
+    ]
+    assert entries == names and "{study_options}" not in doc
+    for name in FIT_SETTINGS:
+        assert f"``{name}``" in section and name in inspect.signature(ab.fit).parameters
 
 
 def test_plan_refuses_bad_requests_before_fitting() -> None:

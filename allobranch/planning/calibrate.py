@@ -31,13 +31,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from allobranch.engine import Engine, JobFailure, JobsFailed, derived_seed, failures, run
+from allobranch.engine import Engine, JobsFailed, derived_seed
 from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec, Priors
 from allobranch.model.structure import resolve_levels
 from allobranch.planning.design import Design, Simulation, simulate
-from allobranch.planning.failures import failed_section
-from allobranch.planning.settings import fit_settings
+from allobranch.planning.replicates import failed_section, run_replicates
+from allobranch.planning.settings import StudyFits, study_options
 
 #: Thinned posterior draws each true value is ranked among (ranks run 0 .. RANK_DRAWS, so RANK_DRAWS + 1
 #: = 100 possible ranks split evenly into 2, 4, 5, 10 or 20 bins).
@@ -81,9 +81,7 @@ class CalibrationJob:
     replicate: int
     seed: int
     design: Design
-    spec: ModelSpec
-    sampler: tuple[tuple[str, Any], ...]
-    hdi_prob: float
+    fits: StudyFits
     generator: Generator | None = None
 
     @property
@@ -156,7 +154,8 @@ def run_replicate(job: CalibrationJob) -> list[dict]:
     from allobranch.inference.fit import fit
 
     rng = np.random.default_rng([job.seed, 1])
-    hyper = draw_truth(job.spec.priors, model_levels(job.design, job.spec), rng)
+    spec = job.fits.spec
+    hyper = draw_truth(spec.priors, model_levels(job.design, spec), rng)
     design = job.design.with_(
         exponent=hyper["mu"],
         tau_taxon=hyper["tau_taxon"],
@@ -164,13 +163,13 @@ def run_replicate(job: CalibrationJob) -> list[dict]:
         sigma_dev=hyper["sigma_dev"],
     )
     sim = (job.generator or simulate)(design, job.seed)
-    result = fit(sim.table, job.spec, seed=job.seed, progress=False, **dict(job.sampler))
+    result = fit(sim.table, spec, seed=job.seed, progress=False, **job.fits.fit_kw)
     post = result.idata.posterior
     divergences = int(result.sampler_checks()["divergences"])
     rows = []
     for name, group, draws, value in _targets(post, sim.truth, hyper):
         kept = thinned(draws)
-        lo, hi = az.hdi(draws.reshape(-1), hdi_prob=job.hdi_prob)  # ArviZ HDI
+        lo, hi = az.hdi(draws.reshape(-1), hdi_prob=job.fits.hdi_prob)  # ArviZ HDI
         rows.append(
             {
                 "replicate": job.replicate,
@@ -192,13 +191,6 @@ def run_replicate(job: CalibrationJob) -> list[dict]:
             }
         )
     return rows
-
-
-def _failed_row(failure: JobFailure) -> dict:
-    row = {c: np.nan for c in RANK_COLUMNS}
-    row.update(replicate=failure.key[0], seed=failure.seed, status="failed", quantity="", group="")
-    row.update(covered=False, error=failure.error)
-    return row
 
 
 def n_bins(n: int) -> int:
@@ -364,6 +356,7 @@ class CalibrationResult:
         return "\n".join(lines) + "\n"
 
 
+@study_options
 def calibrate(
     design: Design,
     spec: ModelSpec | None = None,
@@ -389,23 +382,24 @@ def calibrate(
         Simulated tables (each fitted once).
     seed : int
         Seed of the study; replicate ``r`` uses a seed derived from it and ``r``.
-    **fit_kw
-        Settings of every fit: any of ``draws``, ``tune``, ``chains``, ``sampler``, ``target_accept``,
-        ``escalate`` (as in :func:`allobranch.fit`; default: its defaults); ``chains * draws`` must be at
-        least :data:`RANK_DRAWS`.
     hdi_prob : float
         Probability of the intervals whose coverage is checked.
     generator : callable, optional
         ``generator(design, seed) -> Simulation`` drawing each table (default :func:`simulate`); a
         top-level function when the jobs run in other processes.
-    engine : Engine, optional
-        Where the replicates run (default: local processes; see :mod:`allobranch.engine`).
-    progress : bool
-        Show a progress line per finished replicate on standard error.
+    {study_options}
 
     Returns
     -------
     CalibrationResult
+
+    Raises
+    ------
+    InputError
+        For a model with a fixed exponent or other than normal deviations, fewer than 2 replicates, or
+        ``chains * draws`` below :data:`RANK_DRAWS` (the draws each truth is ranked among).
+    JobsFailed
+        When every replicate failed.
     """
     spec = spec or ModelSpec()
     if spec.fixed_exponent is not None or spec.fixed_taxa:
@@ -417,41 +411,32 @@ def calibrate(
         )
     if int(replicates) < 2:
         raise InputError(f"replicates must be at least 2, got {replicates!r}")
-    sampler_kw = fit_settings(fit_kw)
+    fits = StudyFits.of(spec, hdi_prob, fit_kw)
+    sampler_kw = fits.fit_kw
     if sampler_kw["chains"] * sampler_kw["draws"] < RANK_DRAWS:
         raise InputError(
             f"calibration ranks each truth among {RANK_DRAWS} posterior draws: give chains x draws >= "
             f"{RANK_DRAWS} (got {sampler_kw['chains']} x {sampler_kw['draws']})"
         )
-    jobs = [
-        CalibrationJob(
-            r, derived_seed(seed, r), design, spec, tuple(sampler_kw.items()), float(hdi_prob), generator
-        )
-        for r in range(int(replicates))
-    ]
-    results = run(
+    jobs = [CalibrationJob(r, derived_seed(seed, r), design, fits, generator) for r in range(int(replicates))]
+    ranks, failed = run_replicates(
         run_replicate,
         jobs,
         engine,
+        RANK_COLUMNS,
+        key_columns=("replicate",),
+        blank=("quantity", "group"),
         label="calibrate",
         progress=progress,
         describe=lambda job: f"replicate {job.replicate + 1}",
     )
-    rows = []
-    for job in jobs:
-        r = results[job.key]
-        rows += [_failed_row(r)] if isinstance(r, JobFailure) else r
-    failed = failures(results)
     if len(failed) == len(jobs):
         raise JobsFailed(failed)
-    ranks = pd.DataFrame(rows, columns=list(RANK_COLUMNS))
     settings = {
         "design": design.to_dict(),
-        "spec": spec.to_dict(),
         "replicates": int(replicates),
         "seed": int(seed),
-        "sampler": sampler_kw,
-        "hdi_prob": float(hdi_prob),
+        **fits.to_dict(),
     }
     return CalibrationResult(
         ranks=ranks,

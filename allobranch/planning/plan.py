@@ -38,12 +38,12 @@ from allobranch.comparison.jobs import POPULATION_SCOPE
 from allobranch.comparison.laws import Law
 from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
 from allobranch.comparison.verdict import NONE, UNDECIDED
-from allobranch.engine import Engine, JobFailure, derived_seed, run
+from allobranch.engine import Engine, derived_seed
 from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec
 from allobranch.planning.design import SWEEP_VARIABLES, Design, simulate
-from allobranch.planning.failures import failed_section
-from allobranch.planning.settings import fit_settings
+from allobranch.planning.replicates import failed_section, run_replicates
+from allobranch.planning.settings import StudyFits, study_options
 
 #: Classes of a replicate's verdict, in the order of the tables.
 OUTCOMES: tuple[str, ...] = ("right", "other", "none", "undecided")
@@ -133,9 +133,7 @@ class PlanJob:
     design: Design
     laws: tuple[Law, ...]
     delta: float
-    spec: ModelSpec
-    sampler: tuple[tuple[str, Any], ...]
-    hdi_prob: float
+    fits: StudyFits
 
     @property
     def key(self) -> tuple[int, int]:
@@ -178,13 +176,13 @@ def outcome_of(verdict: str) -> str:
     return "other"
 
 
-def run_replicate(job: PlanJob) -> dict:
+def run_replicate(job: PlanJob) -> list[dict]:
     """Simulate, fit and compare one replicate (a top-level function, so workers can receive it).
 
     Returns
     -------
-    dict
-        One row of :attr:`PlanResult.replicates`.
+    list of dict
+        The replicate's row of :attr:`PlanResult.replicates` (one).
     """
     from allobranch.comparison.compare import compare_laws
 
@@ -195,20 +193,20 @@ def run_replicate(job: PlanJob) -> dict:
         delta=job.delta,
         scopes=(POPULATION_SCOPE,),
         seed=job.seed,
-        spec=job.spec,
+        spec=job.fits.spec,
         workers=1,
         progress=False,
-        **dict(job.sampler),
+        **job.fits.fit_kw,
     )
     verdicts = result.verdicts.set_index("scope")
     verdict = str(verdicts.at[POPULATION_SCOPE, "verdict"])
     free = result.free_fit
-    pop = free.exponents(job.hdi_prob).iloc[0]
+    pop = free.exponents(job.fits.hdi_prob).iloc[0]
     truth = float(job.design.exponent)
     evidence = result.evidence
     p_rope = evidence.loc[(evidence["scope"] == POPULATION_SCOPE) & (evidence["law"] == TRUE_LAW), "p_rope"]
     diag = free.diagnostics()
-    return {
+    row = {
         "point": job.point,
         "replicate": job.replicate,
         "seed": job.seed,
@@ -226,14 +224,7 @@ def run_replicate(job: PlanJob) -> dict:
         "max_r_hat": float(np.nanmax(diag["r_hat"].to_numpy(dtype=float))) if len(diag) else np.nan,
         "error": "",
     }
-
-
-def _failed_row(failure: JobFailure) -> dict:
-    point, replicate = failure.key
-    row = {c: np.nan for c in REPLICATE_COLUMNS}
-    row.update(point=point, replicate=replicate, seed=failure.seed, status="failed", verdict="", outcome="")
-    row.update(covered=False, error=failure.error)
-    return row
+    return [row]
 
 
 def _rate(k: int, n: int) -> tuple[float, float, float]:
@@ -406,6 +397,7 @@ class PlanResult:
         return "\n".join(lines) + "\n"
 
 
+@study_options
 def plan_study(
     design: Design,
     alternatives: float | Sequence[float],
@@ -432,24 +424,19 @@ def plan_study(
     replicates : int
         Simulated tables per design point.
     seed : int
-        Seed of the study: replicate ``r`` uses a seed derived from it and ``r`` (the same at every point).
+        Seed of the study: replicate ``r`` uses a seed derived from it and ``r``.
     sweep : Sweep, optional
         One design variable and the values to try (:func:`parse_sweep`); without it, only ``design``.
+        Replicate ``r`` has the same seed at every value (common random numbers).
     target : float
         Probability of a right verdict a design should reach (between 0 and 1).
     delta : float, optional
         ROPE half-width (default :func:`default_delta`).
     spec : ModelSpec, optional
         The free model's specification (default ``ModelSpec()``).
-    **fit_kw
-        Settings of every fit: any of ``draws``, ``tune``, ``chains``, ``sampler``, ``target_accept``,
-        ``escalate`` (as in :func:`allobranch.fit`; default: its defaults).
     hdi_prob : float
         Probability of the reported intervals.
-    engine : Engine, optional
-        Where the replicates run (default: local processes; see :mod:`allobranch.engine`).
-    progress : bool
-        Show a progress line per finished replicate on standard error.
+    {study_options}
 
     Returns
     -------
@@ -481,22 +468,23 @@ def plan_study(
         designs = [design.with_(**{sweep.variable: cast(v)}) for v in sweep.values]
     else:
         designs = [design]
-    sampler_kw = fit_settings(fit_kw)
+    fits = StudyFits.of(spec, hdi_prob, fit_kw)
     jobs = [
-        PlanJob(p, r, derived_seed(seed, r), d, laws, delta, spec, tuple(sampler_kw.items()), float(hdi_prob))
+        PlanJob(p, r, derived_seed(seed, r), d, laws, delta, fits)
         for p, d in enumerate(designs)
         for r in range(int(replicates))
     ]
-    results = run(
+    table, _ = run_replicates(
         run_replicate,
         jobs,
         engine,
+        REPLICATE_COLUMNS,
+        key_columns=("point", "replicate"),
+        blank=("verdict", "outcome"),
         label="plan",
         progress=progress,
         describe=lambda job: f"point {job.point + 1}/{len(designs)}, replicate {job.replicate + 1}",
     )
-    rows = [_failed_row(r) if isinstance(r, JobFailure) else r for r in (results[job.key] for job in jobs)]
-    table = pd.DataFrame(rows, columns=list(REPLICATE_COLUMNS))
     variable = sweep.variable if sweep is not None else None
     points = summarise(table, designs, alternatives, variable, float(target))
     settings = {
@@ -505,8 +493,6 @@ def plan_study(
         "replicates": int(replicates),
         "seed": int(seed),
         "sweep": variable,
-        "sampler": sampler_kw,
-        "hdi_prob": float(hdi_prob),
-        "spec": spec.to_dict(),
+        **fits.to_dict(),
     }
     return PlanResult(points=points, replicates=table, target=float(target), delta=delta, settings=settings)
