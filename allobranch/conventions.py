@@ -152,6 +152,9 @@ COMPARISON_FILES: tuple[str, ...] = (
     LAWS_WARNINGS_FILE,
     LAWS_REPORT_FILE,
 )
+#: Written beside them when the comparison checks the laws over a covariate range (``law_range``,
+#: ``--law-range``).
+LAWS_OVER_RANGE_FILE = "laws_over_range.csv"
 #: The one-file HTML report in a result folder.
 REPORT_FILE = "report.html"
 #: Folder of the figure files inside a result folder.

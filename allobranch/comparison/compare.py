@@ -10,12 +10,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from allobranch.comparison import bayes_factor, jobs, loo, rope, verdict
+from allobranch.comparison import bayes_factor, jobs, loo, ranges, rope, verdict
 from allobranch.comparison.laws import FREE, SCOPES, Law, resolve_laws
 from allobranch.comparison.linear_terms import taxon_prior_terms, uses_tree
 from allobranch.conventions import (
     BY_TAXON_LAW_COLUMNS,
     EVIDENCE_COLUMNS,
+    LAWS_OVER_RANGE_FILE,
     LAWS_TABLE_COLUMNS,
     OLD_POPULATION_SCOPE,
     POPULATION,
@@ -49,6 +50,9 @@ class LawComparison:
         Seed, sampler settings, number of fits and runtime in seconds.
     free_fit : FitResult
         The fit of the free model (the source of the Bayes factors and ROPE probabilities).
+    over_range : pandas.DataFrame
+        Every law's ROPE check over each covariate range asked for (``law_range``), per scope: columns
+        :data:`~allobranch.comparison.ranges.RANGE_COLUMNS`; empty when no range was asked for.
     """
 
     evidence: pd.DataFrame
@@ -58,6 +62,7 @@ class LawComparison:
     warnings: list[str] = field(default_factory=list)
     settings: dict = field(default_factory=dict)
     free_fit: FitResult | None = None
+    over_range: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=list(ranges.RANGE_COLUMNS)))
 
     @property
     def population(self) -> pd.DataFrame:
@@ -138,6 +143,17 @@ class LawComparison:
                 "",
                 "Full per-taxon evidence (Bayes-factor sensitivity, weights): laws_by_taxon.csv / "
                 "`LawComparison.by_taxon`.",
+                "",
+            ]
+        if len(self.over_range):
+            lines += [
+                "## Laws over a covariate range",
+                "",
+                ranges.RANGE_RULE,
+                "",
+                *(f"- {line}" for line in ranges.range_lines(self.over_range)),
+                "",
+                f"Full table: {LAWS_OVER_RANGE_FILE} / `LawComparison.over_range`.",
                 "",
             ]
         lines += [
@@ -265,6 +281,7 @@ def compare_laws(
     workers: int | None = None,
     executor: Executor | None = None,
     escalate: bool = True,
+    law_range: Mapping[str, tuple[float, float]] | None = None,
 ) -> LawComparison:
     """Compare point laws for the branching exponent with the free model, for the population and per taxon.
 
@@ -315,6 +332,12 @@ def compare_laws(
         Run the fits on this executor instead of local processes.
     escalate : bool
         Let every fit refit itself when its first attempt fails its checks (as :func:`allobranch.fit`).
+    law_range : mapping of covariate name to (low, high), optional
+        Also check every law over these ranges of the model's covariates (e.g.
+        ``{"log_parent_size": (-1, 1)}``): per scope, the joint probability that the exponent stays within
+        ``+/- delta`` of the law over the whole range, a verdict (holds / rejected / undecided) and the
+        sub-range where the law is supported (:mod:`allobranch.comparison.ranges`;
+        :attr:`LawComparison.over_range`).
 
     Returns
     -------
@@ -360,6 +383,7 @@ def compare_laws(
             f"a taxon is named '{POPULATION}', which is the name of the all-taxa scope; rename the taxon"
         )
     free_spec = given_fit.spec if given_fit is not None else (spec or ModelSpec())
+    law_range = ranges.check_law_ranges(law_range, free_spec.covariates)  # before the long fits
     plan = jobs.plan_jobs(laws, taxa, scopes, seed, include_free=given_fit is None)
     tree = uses_tree(table, free_spec)
     if tree:  # a law pinning one taxon of a tree is not a model the fitter samples: no per-taxon LOO
@@ -426,6 +450,11 @@ def compare_laws(
             "in the far tail of the draws): only their order of magnitude is meaningful"
         )
     evidence = pd.DataFrame(rows, columns=list(EVIDENCE_COLUMNS))
+    range_scopes = ([POPULATION] if POPULATION in scopes else []) + (taxa if "taxon" in scopes else [])
+    over_range, range_warnings = ranges.laws_over_range(
+        free, laws, law_range, delta=delta, scopes=range_scopes
+    )
+    warnings += range_warnings
     settings = {
         **sampler_kw,
         "seed": seed,
@@ -442,4 +471,5 @@ def compare_laws(
         warnings=warnings,
         settings=settings,
         free_fit=free,
+        over_range=over_range,
     )

@@ -8,14 +8,22 @@ when the interval excludes 0 and either the Bayes factor for ``slope = 0`` is at
 **constant** in the covariate when the interval contains 0, the Bayes factor for ``slope = 0`` is at least
 :data:`~allobranch.comparison.verdict.BF_DECLARE` and LOO does not clearly prefer the covariate;
 otherwise **undecided**.
+
+Slopes varying by taxon (``covariates_by_taxon``): every taxon's slope ``beta_taxon = beta + tau_beta z``
+gets its own row (``group`` = the taxon) with its interval and the Savage-Dickey Bayes factor of
+``beta_taxon = 0``, under the same rule without the LOO condition (a model that drops one taxon's slope
+is not refitted, so ``elpd_gain`` is empty). The prior density of a taxon's slope at 0 is exact
+(:func:`log_prior_taxon_slope_at_zero`). There is no region of practical equivalence for a slope: the rule
+reads the interval against 0, as for the overall slope.
 """
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special, stats
 
+from allobranch.comparative.summaries import ALL_TAXA
 from allobranch.comparison.bayes_factor import savage_dickey
 from allobranch.comparison.loo import compare_loo
 from allobranch.comparison.verdict import BF_DECLARE, BF_REJECT, LOO_CLEAR_ELPD, LOO_CLEAR_SE
@@ -26,6 +34,7 @@ from allobranch.model.linear import build_linear_terms
 #: Columns of ``slopes.csv``.
 SLOPE_COLUMNS: tuple[str, ...] = (
     "covariate",
+    "group",
     "mean",
     "hdi_low",
     "hdi_high",
@@ -37,6 +46,33 @@ SLOPE_COLUMNS: tuple[str, ...] = (
     "reason",
 )
 DEPENDS, CONSTANT, UNDECIDED = "depends", "constant", "undecided"
+#: Said in the reason of a taxon's slope.
+NO_TAXON_LOO = "no per-taxon LOO (a model without one taxon's slope is not fitted)"
+
+
+def log_prior_taxon_slope_at_zero(slope_sd: float, spread_scale: float) -> float:
+    """Log prior density at 0 of one taxon's slope ``beta + tau_beta z``.
+
+    ``beta ~ Normal(0, s)``, ``tau_beta ~ HalfNormal(c)``, ``z ~ Normal(0, 1)``: given ``tau_beta`` the
+    taxon's slope is ``Normal(0, s^2 + tau_beta^2)``, so its density at 0 is
+    ``(1 / (pi c)) int_0^inf exp(-t^2 / (2 c^2)) / sqrt(s^2 + t^2) dt``. With ``t = s sinh u`` and
+    ``K_0(w) = int_0^inf exp(-w cosh u) du`` (the integral representation of the modified Bessel function,
+    DLMF 10.32.9 with nu = 0) this is ``exp(w) K_0(w) / (2 pi c)`` with ``w = s^2 / (4 c^2)``, i.e.
+    ``scipy.special.k0e(w) / (2 pi c)``.
+
+    Parameters
+    ----------
+    slope_sd : float
+        Prior SD ``s`` of the overall slope.
+    spread_scale : float
+        Half-normal scale ``c`` of the slope's spread over taxa.
+
+    Returns
+    -------
+    float
+    """
+    w = slope_sd**2 / (4.0 * spread_scale**2)
+    return float(np.log(special.k0e(w)) - np.log(2.0 * np.pi * spread_scale))
 
 
 def slope_verdict(
@@ -58,6 +94,37 @@ def slope_verdict(
     if not excludes and bf0 >= BF_DECLARE and not loo_prefers:
         return CONSTANT, evidence
     return UNDECIDED, evidence
+
+
+def _slope_row(
+    name: str,
+    group: str,
+    draws: np.ndarray,
+    log_prior_zero: float,
+    hdi_prob: float,
+    gain: float,
+    gain_se: float,
+) -> dict:
+    """One row of :data:`SLOPE_COLUMNS`: a slope's interval, Bayes factor for 0 and verdict."""
+    import arviz as az
+
+    draws = np.asarray(draws, dtype=float).ravel()
+    lo, hi = (float(v) for v in az.hdi(draws, hdi_prob=hdi_prob))
+    sd = savage_dickey(draws, 0.0, log_prior_zero)
+    verdict, reason = slope_verdict((lo, hi), sd.log10_bf, gain, gain_se)
+    return {
+        "covariate": name,
+        "group": group,
+        "mean": float(draws.mean()),
+        "hdi_low": lo,
+        "hdi_high": hi,
+        "log10_bf_zero": sd.log10_bf,
+        "bf_method": sd.method,
+        "elpd_gain": gain,
+        "elpd_gain_se": gain_se,
+        "verdict": verdict,
+        "reason": reason if group == ALL_TAXA else f"{reason}; {NO_TAXON_LOO}",
+    }
 
 
 def compare_covariates(
@@ -82,10 +149,9 @@ def compare_covariates(
     Returns
     -------
     pandas.DataFrame
-        One row per covariate, columns :data:`SLOPE_COLUMNS`.
+        Columns :data:`SLOPE_COLUMNS`: one row per covariate (``group`` "all taxa"), and with slopes
+        varying by taxon one more per covariate and taxon (``group`` the taxon).
     """
-    import arviz as az
-
     from allobranch.inference.fit import fit as run_fit
 
     spec, table = fit.spec, fit.table
@@ -95,9 +161,6 @@ def compare_covariates(
     post = fit.idata.posterior
     rows = []
     for k, name in enumerate(spec.covariates):
-        draws = post["beta"].values[..., k].ravel()
-        lo, hi = az.hdi(draws, hdi_prob=hdi_prob)
-        sd = savage_dickey(draws, 0.0, float(stats.norm.logpdf(0.0, 0.0, lin.beta_sd[k])))
         gain = gain_se = np.nan
         if refit:
             rest = tuple(c for c in spec.covariates if c != name)
@@ -110,21 +173,15 @@ def compare_covariates(
             loo = compare_loo({"with": fit, "without": other})
             gain = float(loo.table.at["with", "elpd"] - loo.table.at["without", "elpd"])
             gain_se = float(loo.table["dse"].max())
-        verdict, reason = slope_verdict((float(lo), float(hi)), sd.log10_bf, gain, gain_se)
+        log_prior = float(stats.norm.logpdf(0.0, 0.0, lin.beta_sd[k]))
         rows.append(
-            {
-                "covariate": name,
-                "mean": float(draws.mean()),
-                "hdi_low": float(lo),
-                "hdi_high": float(hi),
-                "log10_bf_zero": sd.log10_bf,
-                "bf_method": sd.method,
-                "elpd_gain": gain,
-                "elpd_gain_se": gain_se,
-                "verdict": verdict,
-                "reason": reason,
-            }
+            _slope_row(name, ALL_TAXA, post["beta"].values[..., k], log_prior, hdi_prob, gain, gain_se)
         )
+        if "beta_taxon" in post:
+            log_prior = log_prior_taxon_slope_at_zero(lin.beta_sd[k], lin.tau_beta_scale[k])
+            for taxon in post["taxon"].values:
+                draws = post["beta_taxon"].sel(taxon=taxon).values[..., k]
+                rows.append(_slope_row(name, str(taxon), draws, log_prior, hdi_prob, np.nan, np.nan))
     out = pd.DataFrame(rows, columns=list(SLOPE_COLUMNS))
     out.attrs["hdi_prob"] = hdi_prob
     return out

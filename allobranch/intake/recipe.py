@@ -31,7 +31,7 @@ import dataclasses
 import json
 import os
 import tomllib
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -48,10 +48,11 @@ RECIPE_SECTIONS: dict[str, tuple[str, ...]] = {
     "input": ("sheet", "encoding"),
 }
 
-#: Recipe sections read elsewhere (the model's options: :func:`allobranch.comparative.options.load_model_options`;
-#: a network to derive the junctions from: :func:`allobranch.networks.options.load_network_recipe`); the
-#: mapping reader passes over them.
-OTHER_SECTIONS: tuple[str, ...] = ("model", "network")
+#: Recipe sections read elsewhere (the model's options: :func:`allobranch.cli.model_options.recipe_model_options`;
+#: a network to derive the junctions from: :func:`allobranch.networks.options.load_network_recipe`; the
+#: law comparison's options: ``allobranch compare`` through :func:`recipe_section`); the mapping reader passes
+#: over them.
+OTHER_SECTIONS: tuple[str, ...] = ("model", "network", "compare")
 
 #: Size columns of a junction table derived from a network (:mod:`allobranch.networks`); a recipe with a
 #: [network] section names no parent or daughter columns of its own.
@@ -64,6 +65,21 @@ FIELD_SECTION: dict[str, str] = {key: section for section, keys in RECIPE_SECTIO
 def _problem(origin: str, key: str | None, message: str, hint: str) -> Problem:
     """A fatal recipe/option problem; ``key`` is shown at the start of the message."""
     return Problem("fatal", origin, None, None, f"{key}: {message}" if key else message, hint, "bad_recipe")
+
+
+def _not_a_section(origin: str, section: str) -> Problem:
+    return _problem(
+        origin,
+        section,
+        f"'{section}' must be a section [{section}], not a value",
+        f"write [{section}] on its own line followed by its keys",
+    )
+
+
+def _unknown_key(origin: str, section: str, key: str, allowed: Sequence[str]) -> Problem:
+    return _problem(
+        origin, f"[{section}] {key}", "unknown key", f"allowed keys in [{section}]: {', '.join(allowed)}"
+    )
 
 
 def _key(field: str, in_recipe: bool) -> str:
@@ -242,25 +258,11 @@ def load_recipe(path: str | os.PathLike) -> ColumnMapping:
             )
             continue
         if not isinstance(content, dict):
-            problems.append(
-                _problem(
-                    origin,
-                    section,
-                    f"'{section}' must be a section [{section}], not a value",
-                    f"write [{section}] on its own line followed by its keys",
-                )
-            )
+            problems.append(_not_a_section(origin, section))
             continue
         for key, value in content.items():
             if key not in RECIPE_SECTIONS[section]:
-                problems.append(
-                    _problem(
-                        origin,
-                        f"[{section}] {key}",
-                        "unknown key",
-                        f"allowed keys in [{section}]: {', '.join(RECIPE_SECTIONS[section])}",
-                    )
-                )
+                problems.append(_unknown_key(origin, section, key, RECIPE_SECTIONS[section]))
                 continue
             problem = _check_type(origin, key, value)
             if problem is None:
@@ -333,6 +335,55 @@ def _check_type(origin: str, key: str, value: Any) -> Problem | None:
     return _problem(
         origin, _key(key, True), f"wrong type ({type(value).__name__}: {value!r})", f"give {expected}"
     )
+
+
+def recipe_section(
+    path: str | os.PathLike, section: str, keys: Mapping[str, tuple[type | tuple[type, ...], str]]
+) -> dict[str, Any]:
+    """One of the :data:`OTHER_SECTIONS` of a recipe, its keys and their TOML types checked.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The recipe file.
+    section : str
+        The section's name (e.g. ``"compare"``).
+    keys : mapping of str to (type, str)
+        Allowed keys with their TOML type(s) and a description of the expected value for messages.
+
+    Returns
+    -------
+    dict
+        The section's values (empty when the recipe has no such section, or cannot be read: the mapping
+        reader :func:`load_recipe` reports unreadable recipes).
+
+    Raises
+    ------
+    RecipeError
+        Naming the recipe file and ``[section] key`` of every unknown key or value of the wrong type.
+    """
+    origin = str(path)
+    try:
+        content = tomllib.loads(Path(path).read_text(encoding="utf-8")).get(section, {})
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return {}
+    if not isinstance(content, dict):
+        raise RecipeError([_not_a_section(origin, section)])
+    problems = [
+        _unknown_key(origin, section, key, keys)
+        if key not in keys
+        else _problem(
+            origin,
+            f"[{section}] {key}",
+            f"wrong type ({type(value).__name__}: {value!r})",
+            f"give {keys[key][1]}",
+        )
+        for key, value in content.items()
+        if key not in keys or not isinstance(value, keys[key][0])
+    ]
+    if problems:
+        raise RecipeError(problems)
+    return dict(content)
 
 
 def _split(value: str | Sequence[str] | None) -> tuple[str, ...] | None:

@@ -266,6 +266,7 @@ class ReportParts:
     laws_all_scopes: pd.DataFrame | None = None
     verdicts: pd.DataFrame | None = None
     verdict_rule: str = ""
+    law_ranges: str | Sequence[str] = ""
     law_figures: Mapping[str, FigureLike] | None = None
     no_laws: str = "No law comparison was run."
     checks: pd.DataFrame | None = None
@@ -330,6 +331,7 @@ def render_report(parts: ReportParts) -> str:
             "all_scopes": table_view(parts.laws_all_scopes, scroll=True),
             "verdicts": table_view(parts.verdicts, wide=True),
             "rule": parts.verdict_rule,
+            "law_ranges": _paragraphs(parts.law_ranges),
             "law_figures": figure_views(parts.law_figures),
             "no_laws": parts.no_laws,
             "checks": table_view(parts.checks),
@@ -384,7 +386,8 @@ def write_html_report(path: str | os.PathLike, parts: ReportParts | None = None,
         ``title``; ``answer`` (the answer table: one row per estimate with its interval and verdict),
         ``answer_figure`` (``{caption: figure}``, shown beside it), ``answer_notes``, ``answer_heading``;
         ``laws`` (law comparison of the population scope), ``laws_all_scopes`` (every scope, folded),
-        ``verdicts`` (scope, verdict, reason), ``verdict_rule``, ``law_figures``, ``no_laws`` (shown when
+        ``verdicts`` (scope, verdict, reason), ``verdict_rule``, ``law_ranges`` (the laws over covariate
+        ranges, in words), ``law_figures``, ``no_laws`` (shown when
         there is no comparison); ``checks`` (posterior predictive p-values), ``checks_text``,
         ``check_figures``; ``exponents``, ``naive``, ``exponent_figures``; ``warnings`` (strings, grouped by
         kind with :func:`~allobranch.reporting.warning_groups.group_warnings`, or ready

@@ -16,8 +16,9 @@ import matplotlib.pyplot as plt
 import pandas as pd
 
 from allobranch.comparative.summaries import covariate_summary, reference_text
+from allobranch.comparison.ranges import range_lines
 from allobranch.comparison.verdict import VERDICT_RULE
-from allobranch.conventions import NAIVE_VS_MODEL_COLUMNS, POPULATION, hdi_label
+from allobranch.conventions import LAWS_OVER_RANGE_FILE, NAIVE_VS_MODEL_COLUMNS, POPULATION, hdi_label
 from allobranch.inference.diagnostics import ESS_MIN, RHAT_MAX
 from allobranch.reporting.attempts import attempts_sentence, attempts_table, parametrization_note
 from allobranch.reporting.checks import CHECKS, PPP_TAIL, ppc_checks, ppc_pvalues, ppc_warnings
@@ -203,6 +204,14 @@ def _evidence_tables(laws) -> dict:
     }
 
 
+def _law_range_text(laws) -> str:
+    """One paragraph on the laws over covariate ranges ('' when the comparison checked none)."""
+    lines = range_lines(getattr(laws, "over_range", None))
+    return (
+        f"Laws over a covariate range (ROPE only; {LAWS_OVER_RANGE_FILE}): {' '.join(lines)}" if lines else ""
+    )
+
+
 def _checks_table(pvalues: pd.DataFrame) -> pd.DataFrame:
     out = pvalues.copy()
     out["check"] = out["check"].map(CHECKS)
@@ -294,6 +303,7 @@ def build_report(
             answer_heading=f"Branching exponent per taxon ({label})",
             **evidence,
             verdict_rule=VERDICT_RULE if laws is not None else "",
+            law_ranges=_law_range_text(laws),
             law_figures=None if laws is None else {f"Law comparison. {clip_note()}": figs["law_comparison"]},
             no_laws="No law comparison in this result folder.",
             checks=_checks_table(pvalues),

@@ -20,9 +20,9 @@ from pathlib import Path
 import pandas as pd
 
 from allobranch.conventions import (
-    COMPARISON_FILES,
     LAWS_BY_TAXON_FILE,
     LAWS_FILE,
+    LAWS_OVER_RANGE_FILE,
     LAWS_REPORT_FILE,
     LAWS_TABLE_COLUMNS,
     LAWS_VERDICTS_FILE,
@@ -67,24 +67,25 @@ def write_comparison(result, out: str | os.PathLike, *, force: bool = False) -> 
     Returns
     -------
     list of pathlib.Path
-        The files written (:data:`~allobranch.conventions.COMPARISON_FILES`).
+        The files written (:data:`~allobranch.conventions.COMPARISON_FILES`, and
+        :data:`~allobranch.conventions.LAWS_OVER_RANGE_FILE` when the laws were checked over a range).
 
     Raises
     ------
     OutputExistsError
         If one of the files exists and ``force`` is false.
     """
-    folder = prepare_output_dir(out, list(COMPARISON_FILES), force=force)
-    return write_files(
-        folder,
-        {
-            LAWS_FILE: lambda p: result.evidence.to_csv(p, index=False),
-            LAWS_BY_TAXON_FILE: lambda p: result.by_taxon.to_csv(p, index=False),
-            LAWS_VERDICTS_FILE: lambda p: result.verdicts.to_csv(p, index=False),
-            LAWS_WARNINGS_FILE: lambda p: warnings_frame(result.warnings).to_csv(p, index=False),
-            LAWS_REPORT_FILE: lambda p: p.write_text(result.to_markdown(), encoding="utf-8"),
-        },
-    )
+    writers = {
+        LAWS_FILE: lambda p: result.evidence.to_csv(p, index=False),
+        LAWS_BY_TAXON_FILE: lambda p: result.by_taxon.to_csv(p, index=False),
+        LAWS_VERDICTS_FILE: lambda p: result.verdicts.to_csv(p, index=False),
+        LAWS_WARNINGS_FILE: lambda p: warnings_frame(result.warnings).to_csv(p, index=False),
+        LAWS_REPORT_FILE: lambda p: p.write_text(result.to_markdown(), encoding="utf-8"),
+    }
+    if len(result.over_range):
+        writers[LAWS_OVER_RANGE_FILE] = lambda p: result.over_range.to_csv(p, index=False)
+    folder = prepare_output_dir(out, list(writers), force=force)
+    return write_files(folder, writers)
 
 
 def warnings_from_evidence(evidence: pd.DataFrame) -> list[str]:
@@ -140,6 +141,8 @@ class SavedComparison:
     warnings : list of str
     notes : list of str
         What the files could not tell (shown with the warnings).
+    over_range : pandas.DataFrame or None
+        The laws over covariate ranges (``laws_over_range.csv``), when the comparison checked any.
     """
 
     evidence: pd.DataFrame
@@ -147,6 +150,7 @@ class SavedComparison:
     verdicts: pd.DataFrame
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    over_range: pd.DataFrame | None = None
 
     @property
     def population(self) -> pd.DataFrame:
@@ -184,4 +188,14 @@ class SavedComparison:
                 f"The comparison's other warnings (e.g. diagnostics of the law fits) were not saved as a "
                 f"table ({LAWS_WARNINGS_FILE}); read them in {LAWS_REPORT_FILE}."
             )
-        return cls(evidence=evidence, by_taxon=by_taxon, verdicts=verdicts, warnings=warnings, notes=notes)
+        over_range = (
+            _read_scoped(folder / LAWS_OVER_RANGE_FILE) if (folder / LAWS_OVER_RANGE_FILE).is_file() else None
+        )
+        return cls(
+            evidence=evidence,
+            by_taxon=by_taxon,
+            verdicts=verdicts,
+            warnings=warnings,
+            notes=notes,
+            over_range=over_range,
+        )
