@@ -9,9 +9,8 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-from importlib import import_module
-
 from allobranch.errors import AllobranchError, InputError, Problem  # noqa: E402
+from allobranch.lazy import lazy_getattr  # noqa: E402
 
 #: Public names and the module each comes from; imported on first use so that the command line's light
 #: commands (``--help``, ``check``) do not import the sampler stack.
@@ -72,12 +71,7 @@ _LAZY = {
 }
 
 
-def __getattr__(name: str):
-    if name in _LAZY:
-        value = getattr(import_module(_LAZY[name]), name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module 'allobranch' has no attribute {name!r}")
+__getattr__ = lazy_getattr(__name__, _LAZY, globals())
 
 
 def __dir__() -> list[str]:

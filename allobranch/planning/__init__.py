@@ -8,7 +8,7 @@
 
 from __future__ import annotations
 
-from importlib import import_module
+from allobranch.lazy import lazy_getattr
 
 _LAZY = {
     "Design": "allobranch.planning.design",
@@ -21,9 +21,5 @@ _LAZY = {
 }
 
 __all__ = sorted(_LAZY)
-
-
-def __getattr__(name: str):
-    if name in _LAZY:
-        return getattr(import_module(_LAZY[name]), name)
-    raise AttributeError(f"module 'allobranch.planning' has no attribute {name!r}")
+# not cached: ``calibrate`` is also a sub-module's name
+__getattr__ = lazy_getattr(__name__, _LAZY)
