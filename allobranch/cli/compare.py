@@ -11,10 +11,17 @@ from allobranch.cli.fit import add_sampler_arguments, print_exponents, sampler_k
 from allobranch.cli.model_options import add_comparative_arguments, comparative_table
 from allobranch.cli.options import add_mapping_arguments, add_worker_argument, table_from_args
 from allobranch.comparison.laws import CLASSIC_LAWS, resolve_laws
+from allobranch.comparison.ranges import check_law_ranges, parse_law_range, range_lines
 from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
-from allobranch.conventions import COMPARISON_FILES, POPULATION
-from allobranch.errors import InputError
+from allobranch.conventions import COMPARISON_FILES, LAWS_OVER_RANGE_FILE, POPULATION
+from allobranch.errors import OPTIONS_ORIGIN, InputError
+from allobranch.intake.recipe import recipe_section
 from allobranch.io import prepare_output_dir
+
+#: Keys of the recipe's [compare] section and their expected TOML types.
+COMPARE_KEYS: dict[str, tuple[type, str]] = {
+    "law_range": (dict, "a table of [LOW, HIGH] pairs, e.g. { log_parent_size = [-1, 1] }"),
+}
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -48,6 +55,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "half the gap between 3/2 and 2)",
     )
     parser.add_argument(
+        "--law-range",
+        metavar="NAME=LOW:HIGH",
+        action="append",
+        dest="law_range",
+        help="also check every law over this range of a covariate of the model (e.g. "
+        "log_parent_size=-1:1, generation=3:10): per scope, the probability that the exponent stays near "
+        f"the law over the whole range, a verdict and the sub-range where it holds; writes "
+        f"{LAWS_OVER_RANGE_FILE}. Repeatable; also [compare] law_range in the recipe",
+    )
+    parser.add_argument(
         "--scope",
         choices=(POPULATION, "taxon", "both"),
         default="both",
@@ -73,11 +90,22 @@ def print_verdicts(verdicts) -> None:
         print(f"  {row.scope:<24} {row.verdict:<12} {row.reason}")
 
 
+def law_ranges_from_args(args: argparse.Namespace) -> list[tuple[str, dict]]:
+    """The law ranges asked for, each set with its origin: the recipe's ``[compare] law_range``, then
+    ``--law-range`` (which overrides the recipe's range of the same covariate); bounds checked later."""
+    recipe = getattr(args, "recipe", None)
+    section = recipe_section(recipe, "compare", COMPARE_KEYS) if recipe else {}
+    given = dict(parse_law_range(text) for text in args.law_range or [])
+    return [(str(recipe), section.get("law_range", {})), (OPTIONS_ORIGIN, given)]
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``allobranch compare``: exit code 0 on success (bad input raises
     :class:`~allobranch.errors.AllobranchError`, which the entry point reports with exit code 2)."""
     started = time.perf_counter()
-    prepare_output_dir(args.out, list(COMPARISON_FILES), force=args.force)  # fail before the long fits
+    ranges_given = law_ranges_from_args(args)
+    names = [*COMPARISON_FILES, *([LAWS_OVER_RANGE_FILE] if any(r for _, r in ranges_given) else [])]
+    prepare_output_dir(args.out, names, force=args.force)  # fail before the long fits
     laws = resolve_laws(args.laws)  # and before reading the table
     try:
         check_delta(args.delta)
@@ -89,18 +117,24 @@ def run(args: argparse.Namespace) -> int:
     from allobranch.reporting.saved_comparison import write_comparison
 
     free = FitResult.load(args.fit_file) if args.fit_file else None
+    spec = None if free else spec_from_args(args)
+    covariates = (free.spec if free else spec).covariates
+    law_range: dict = {}
+    for origin, ranges in ranges_given:
+        law_range.update(check_law_ranges(ranges, covariates, origin))
     scopes = (POPULATION, "taxon") if args.scope == "both" else (args.scope,)
     result = compare_laws(
         table,
         laws,
         delta=args.delta,
         scopes=scopes,
-        spec=None if free else spec_from_args(args),
+        spec=spec,
         progress=not args.quiet,
         fit=free,
         workers=args.workers,
         **sampler_kwargs(args),
         executor=executor_from_args(args),
+        law_range=law_range,
     )
     written = write_comparison(result, args.out, force=args.force)
     if result.free_fit.spec.covariates:  # does the exponent depend on each covariate?
@@ -111,11 +145,13 @@ def run(args: argparse.Namespace) -> int:
         )
         written.append(write_slopes(slopes, args.out, force=args.force))
         for row in slopes.itertuples():
-            print(f"Slope of {row.covariate}: {row.verdict} ({row.reason})")
+            print(f"Slope of {row.covariate} ({row.group}): {row.verdict} ({row.reason})")
     for w in result.warnings:
         print(f"WARNING: {w}", file=sys.stderr)
     print_exponents(result.free_fit.exponents(args.hdi), "Free-model exponents", diagnostics=False)
     print_verdicts(result.verdicts)
+    for line in range_lines(result.over_range):
+        print(f"Over a range: {line}")
     print(
         f"{result.settings['n_fits']} fit(s){' (free model re-used from ' + args.fit_file + ')' if free else ''}; "
         f"compare took {time.perf_counter() - started:.1f} s; results in {args.out}/ "
