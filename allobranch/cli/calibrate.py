@@ -5,16 +5,9 @@ from __future__ import annotations
 import argparse
 import time
 
-from allobranch.cli.design_options import (
-    add_study_parser,
-    design_from_args,
-    finish_study_parser,
-    print_done,
-    warn_failed,
-)
-from allobranch.cli.engine_options import engine_from_args
-from allobranch.cli.fit import positive_int, sampler_kwargs, spec_from_args
-from allobranch.reporting.outputs import prepare_output_dir, write_files
+from allobranch.cli import design_options
+from allobranch.cli.fit import positive_int, spec_from_args
+from allobranch.reporting.outputs import prepare_output_dir
 
 #: Files written into ``--out``.
 RANKS_FILE, SUMMARY_FILE = "calibration.csv", "calibration_summary.csv"
@@ -24,7 +17,7 @@ CALIBRATION_FILES: tuple[str, ...] = (RANKS_FILE, SUMMARY_FILE, REPORT_FILE, FIG
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``calibrate`` sub-command to the top-level parser's ``subparsers``."""
-    parser = add_study_parser(
+    parser = design_options.add_study_parser(
         subparsers,
         "calibrate",
         help="check the model's calibration on your design by simulation (rank histograms)",
@@ -37,7 +30,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--replicates", type=positive_int, default=100, metavar="R", help="simulated tables (default 100)"
     )
-    finish_study_parser(parser, run, truth=False)
+    design_options.finish_study_parser(parser, run, truth=False)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -46,34 +39,27 @@ def run(args: argparse.Namespace) -> int:
     started = time.perf_counter()
     from allobranch.planning.calibrate import calibrate
 
-    design = design_from_args(args)
-    engine = engine_from_args(args)
+    design = design_options.design_from_args(args)
+    options = design_options.study_kwargs(args)
     spec = spec_from_args(args)
     folder = prepare_output_dir(args.out, list(CALIBRATION_FILES), force=args.force)
-    result = calibrate(
-        design,
-        spec,
-        replicates=args.replicates,
-        hdi_prob=args.hdi,
-        **sampler_kwargs(args),
-        engine=engine,
-        progress=not args.quiet,
-    )
-    figure = calibration_figure(result.histogram)
-    written = write_files(
+    result = calibrate(design, spec, **options)
+    written = design_options.write_study_files(
         folder,
         {
-            RANKS_FILE: lambda p: result.ranks.to_csv(p, index=False),
-            SUMMARY_FILE: lambda p: result.summary.to_csv(p, index=False),
-            REPORT_FILE: lambda p: p.write_text(result.to_markdown(), encoding="utf-8"),
-            FIGURE_FILE: lambda p: figure.savefig(p, format="png", dpi=300),
+            RANKS_FILE: result.ranks,
+            SUMMARY_FILE: result.summary,
+            REPORT_FILE: result.to_markdown(),
+            FIGURE_FILE: calibration_figure(result.histogram),
         },
     )
-    warn_failed(result.ranks.loc[result.ranks["status"] == "failed", "replicate"].nunique(), RANKS_FILE)
+    design_options.warn_failed(
+        result.ranks.loc[result.ranks["status"] == "failed", "replicate"].nunique(), RANKS_FILE
+    )
     print(
         result.summary[["quantity", "n", "chi2_p", "mean_rank_fraction", "coverage"]].to_string(index=False)
     )
-    print_done("calibrate", started, args.out, written)
+    design_options.print_done("calibrate", started, args.out, written)
     return 0
 
 

@@ -5,11 +5,15 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from pathlib import Path
+from typing import Any
 
-from allobranch.cli.engine_options import add_engine_arguments
-from allobranch.cli.fit import add_sampler_arguments, positive_int
+import pandas as pd
+
+from allobranch.cli.engine_options import add_engine_arguments, engine_from_args
+from allobranch.cli.fit import add_sampler_arguments, positive_int, sampler_kwargs
+from allobranch.io import write_files
 from allobranch.model.simulate import SPLITS
 from allobranch.planning.design import Design
 
@@ -130,6 +134,51 @@ def finish_study_parser(
     add_sampler_arguments(parser)
     add_engine_arguments(parser)
     parser.set_defaults(func=run)
+
+
+def study_kwargs(args: argparse.Namespace) -> dict[str, Any]:
+    """The options every study function takes (``replicates``, ``hdi_prob``, the fits' seed and settings,
+    ``engine``, ``progress``), from the parsed options.
+
+    Raises
+    ------
+    allobranch.errors.InputError
+        When ``--workers`` and ``--scheduler`` are both given.
+    """
+    return {
+        "replicates": args.replicates,
+        "hdi_prob": args.hdi,
+        **sampler_kwargs(args),
+        "engine": engine_from_args(args),
+        "progress": not args.quiet,
+    }
+
+
+def write_study_files(folder: Path, files: Mapping[str, Any]) -> list[Path]:
+    """Write a study's outputs into ``folder``, all or nothing (:func:`allobranch.io.write_files`).
+
+    Parameters
+    ----------
+    folder : pathlib.Path
+        The prepared output folder.
+    files : mapping
+        File name -> content: a DataFrame (written as CSV without its index), a str (the Markdown report,
+        UTF-8) or a matplotlib Figure (PNG, 300 dpi).
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written.
+    """
+
+    def writer(content: Any) -> Callable[[Path], Any]:
+        if isinstance(content, pd.DataFrame):
+            return lambda p: content.to_csv(p, index=False)
+        if isinstance(content, str):
+            return lambda p: p.write_text(content, encoding="utf-8")
+        return lambda p: content.savefig(p, format="png", dpi=300)
+
+    return write_files(folder, {name: writer(content) for name, content in files.items()})
 
 
 def warn_failed(failed: int, failed_file: str) -> None:

@@ -6,16 +6,9 @@ from __future__ import annotations
 import argparse
 import time
 
-from allobranch.cli.design_options import (
-    add_study_parser,
-    design_from_args,
-    finish_study_parser,
-    print_done,
-    warn_failed,
-)
-from allobranch.cli.engine_options import engine_from_args
-from allobranch.cli.fit import positive_int, probability, sampler_kwargs, spec_from_args
-from allobranch.reporting.outputs import prepare_output_dir, write_files
+from allobranch.cli import design_options
+from allobranch.cli.fit import positive_int, probability, spec_from_args
+from allobranch.reporting.outputs import prepare_output_dir
 
 #: Files written into ``--out``.
 PLAN_FILE, REPLICATES_FILE, REPORT_FILE, FIGURE_FILE = (
@@ -29,7 +22,7 @@ PLAN_FILES: tuple[str, ...] = (PLAN_FILE, REPLICATES_FILE, REPORT_FILE, FIGURE_F
 
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``plan`` sub-command to the top-level parser's ``subparsers``."""
-    parser = add_study_parser(
+    parser = design_options.add_study_parser(
         subparsers,
         "plan",
         help="plan a study: how often a design tells the true exponent from an alternative",
@@ -72,7 +65,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         default=None,
         help="ROPE half-width of the laws (default: half the gap to the nearest alternative, at most 0.25)",
     )
-    finish_study_parser(parser, run)
+    design_options.finish_study_parser(parser, run)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -81,34 +74,29 @@ def run(args: argparse.Namespace) -> int:
     started = time.perf_counter()
     from allobranch.planning.plan import parse_sweep, plan_study
 
-    design = design_from_args(args)  # every check before the long run
+    design = design_options.design_from_args(args)  # every check before the long run
     sweep = parse_sweep(args.sweep) if args.sweep else None
-    engine = engine_from_args(args)
+    options = design_options.study_kwargs(args)
     folder = prepare_output_dir(args.out, list(PLAN_FILES), force=args.force)
     result = plan_study(
         design,
         args.alternative,
-        replicates=args.replicates,
         sweep=sweep,
         target=args.target,
         delta=args.delta,
         spec=spec_from_args(args),
-        hdi_prob=args.hdi,
-        **sampler_kwargs(args),
-        engine=engine,
-        progress=not args.quiet,
+        **options,
     )
-    figure = plan_figure(result)
-    written = write_files(
+    written = design_options.write_study_files(
         folder,
         {
-            PLAN_FILE: lambda p: result.points.to_csv(p, index=False),
-            REPLICATES_FILE: lambda p: result.replicates.to_csv(p, index=False),
-            REPORT_FILE: lambda p: p.write_text(result.to_markdown(), encoding="utf-8"),
-            FIGURE_FILE: lambda p: figure.savefig(p, format="png", dpi=300),
+            PLAN_FILE: result.points,
+            REPLICATES_FILE: result.replicates,
+            REPORT_FILE: result.to_markdown(),
+            FIGURE_FILE: plan_figure(result),
         },
     )
-    warn_failed(int(result.points["failed"].sum()), REPLICATES_FILE)
+    design_options.warn_failed(int(result.points["failed"].sum()), REPLICATES_FILE)
     cols = ["value"] if sweep else []
     cols += ["n_junctions", "p_right", "p_other", "p_none", "p_undecided", "mean_width"]
     print(result.points[cols].to_string(index=False, float_format=lambda v: f"{v:.3g}"))
@@ -119,7 +107,7 @@ def run(args: argparse.Namespace) -> int:
         print(
             f"Smallest design reaching P(right verdict) >= {args.target:g}: {sweep.variable} = {best['value']:g}."
         )
-    print_done("plan", started, args.out, written)
+    design_options.print_done("plan", started, args.out, written)
     return 0
 
 
