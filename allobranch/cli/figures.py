@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from allobranch.cli.result_options import add_result_arguments
 from allobranch.conventions import FIGURE_FORMATS, FIGURES_DIR, FIT_FILE
 from allobranch.errors import InputError
 
@@ -45,15 +46,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         f"FIT_DIR/{FIGURES_DIR}/ (existing figure files there are replaced).",
     )
     parser.add_argument(
-        "fit_dir", metavar="FIT_DIR", help=f"folder written by 'allobranch fit' (holds {FIT_FILE})"
-    )
-    parser.add_argument(
         "--format", default="pdf,png,svg", help="comma-separated formats (default pdf,png,svg)"
     )
-    parser.add_argument(
-        "--width",
-        choices=("single", "double"),
-        default="single",
-        help="journal column width: single (~85 mm) or double (~180 mm)",
-    )
+    add_result_arguments(parser, width_help="journal column width: single (~85 mm) or double (~180 mm)")
     parser.set_defaults(func=run)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from allobranch.cli.result_options import add_result_arguments
 from allobranch.conventions import FIT_FILE, REPORT_FILE
 from allobranch.io import prepare_output_dir
 
@@ -40,9 +41,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "the evidence, diagnostics and grouped warnings, the data and its validation flags, the model and "
         "priors in plain words, a methods paragraph and the research-use caution. Opens offline.",
     )
-    parser.add_argument(
-        "fit_dir", metavar="FIT_DIR", help=f"folder written by 'allobranch fit' (holds {FIT_FILE})"
-    )
-    parser.add_argument("--width", choices=("single", "double"), default="single", help="figure width")
+    add_result_arguments(parser, width_help="figure width")
     parser.add_argument("--force", action="store_true", help=f"replace an existing {REPORT_FILE}")
     parser.set_defaults(func=run)
