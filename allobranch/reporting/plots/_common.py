@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 
 import numpy as np
 import pandas as pd
@@ -82,6 +82,29 @@ def law_values(laws: LawsLike | None) -> list[tuple[str, float]]:
     return sorted(((label, value) for value, label in seen.items()), key=lambda pair: pair[1])
 
 
+def draw_laws(draw: Callable[..., object], laws: list[tuple[str, float]], kind: str, **kwargs) -> None:
+    """Draw every law in its house style (:func:`~allobranch.reporting.style.law_styles`), labelled, with
+    the gid ``"law-<kind>:<exponent>"`` that :func:`legend_above` sorts the laws' legend entries by.
+
+    Parameters
+    ----------
+    draw : callable
+        ``draw(exponent, **style)`` drawing one law (a line, a curve).
+    laws : list of (str, float)
+        Output of :func:`law_values`.
+    kind : str
+        What is drawn, in the gid (``"line"``, ``"curve"``).
+    **kwargs
+        Passed to every ``draw`` beside the law's colour, line style, label and gid.
+    """
+    styles = law_styles([v for _, v in laws])
+    for label, value in laws:
+        st = styles[value]
+        draw(
+            value, color=st.color, linestyle=st.linestyle, label=label, gid=f"law-{kind}:{value!r}", **kwargs
+        )
+
+
 def draw_law_lines(ax, laws: list[tuple[str, float]], *, horizontal: bool = False) -> None:
     """Draw a labelled reference line at each law's exponent (vertical; horizontal when the exponent is on
     the y axis).
@@ -95,18 +118,7 @@ def draw_law_lines(ax, laws: list[tuple[str, float]], *, horizontal: bool = Fals
     horizontal : bool
         Draw horizontal lines.
     """
-    styles = law_styles([v for _, v in laws])
-    for label, value in laws:
-        st = styles[value]
-        (ax.axhline if horizontal else ax.axvline)(
-            value,
-            color=st.color,
-            linestyle=st.linestyle,
-            linewidth=1.0,
-            zorder=1,
-            label=label,
-            gid=f"law-line:{value!r}",
-        )
+    draw_laws(ax.axhline if horizontal else ax.axvline, laws, "line", linewidth=1.0, zorder=1)
 
 
 def legend_above(ax, ncol: int | None = None, *, figure_level: bool | None = None, **kwargs):

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Sequence
+
 import numpy as np
 import pandas as pd
 
@@ -60,6 +62,22 @@ def _forest_order(exponents: pd.DataFrame) -> list[tuple[int, float, str]]:
             rows.append((i, y, label))
             y += 1
     return rows
+
+
+def _finish_forest(
+    ax, y: Sequence[float], labels: Sequence[str], values: Iterable[float], xlabel: str, *, margin: float
+) -> None:
+    """Finish a forest plot: a label per row without tick marks, the first row on top (``margin`` rows
+    beyond the outer rows), x limits covering ``values``, a light vertical grid behind the data, the
+    legend above."""
+    ax.set_yticks(y, labels)
+    ax.tick_params(axis="y", length=0)
+    ax.set_ylim(max(y) + margin, min(y) - margin)
+    ax.set_xlim(*padded_limits(values))
+    ax.set_xlabel(xlabel)
+    ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
+    ax.set_axisbelow(True)
+    legend_above(ax)
 
 
 def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=None):
@@ -124,17 +142,16 @@ def plot_exponents(exponents: pd.DataFrame, laws: LawsLike | None = None, ax=Non
             )
             labelled.add(level)
         draw_law_lines(ax, pairs)
-        ax.set_yticks([y for _, y, _ in order], [label for _, _, label in order])
+        _finish_forest(
+            ax,
+            [y for _, y, _ in order],
+            [label for _, _, label in order],
+            [*exponents["hdi_low"], *exponents["hdi_high"], *(v for _, v in pairs)],
+            f"Branching exponent a\n(posterior mean, {hdi_percent(exponents)})",
+            margin=0.7,
+        )
         for tick, (i, _, _) in zip(ax.get_yticklabels(), order):
             tick.set(**TICK_STYLE[exponents.at[i, "level"]])
-        ax.set_ylim(order[-1][1] + 0.7, -0.7)
-        ax.tick_params(axis="y", length=0)
-        values = [*exponents["hdi_low"], *exponents["hdi_high"], *(v for _, v in pairs)]
-        ax.set_xlim(*padded_limits(values))
-        ax.set_xlabel(f"Branching exponent a\n(posterior mean, {hdi_percent(exponents)})")
-        ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
-        ax.set_axisbelow(True)
-        legend_above(ax)
     return ax
 
 
@@ -213,19 +230,6 @@ def plot_naive_vs_model(table: pd.DataFrame, laws: LawsLike | None = None, ax=No
             f"{g}\nn = {int(nj)} ({int(nn)} no root)"
             for g, nj, nn in zip(table["group"], table["n_junctions"], table["n_no_root"])
         ]
-        ax.set_yticks(y, labels)
-        ax.tick_params(axis="y", length=0)
-        ax.set_ylim(n - 0.5, -0.5)
-        values = [
-            *table["hdi_low"],
-            *table["hdi_high"],
-            *table["naive_q25"],
-            *table["naive_q75"],
-            *(v for _, v in pairs),
-        ]
-        ax.set_xlim(*padded_limits(values))
-        ax.set_xlabel("Branching exponent a")
-        ax.grid(axis="x", color="#E5E5E5", linewidth=0.5, zorder=0)
-        ax.set_axisbelow(True)
-        legend_above(ax)
+        values = [*table["hdi_low"], *table["hdi_high"], *table["naive_q25"], *table["naive_q75"]]
+        _finish_forest(ax, y, labels, [*values, *(v for _, v in pairs)], "Branching exponent a", margin=0.5)
     return ax

@@ -9,6 +9,7 @@ from allobranch.conventions import EXPONENT_FIGURE_COLUMNS, POPULATION
 from allobranch.geometry.curves import iso_exponent_band, iso_exponent_curve, symmetric_ratio
 from allobranch.reporting.plots._common import (
     LawsLike,
+    draw_laws,
     hdi_percent,
     law_values,
     legend_above,
@@ -22,7 +23,6 @@ from allobranch.reporting.style import (
     OKABE_ITO,
     SMALL_PT,
     house_style,
-    law_styles,
     new_axes,
 )
 
@@ -98,7 +98,6 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
 
     with house_style():
         ax = new_axes(ax, aspect=1.1)
-        styles = law_styles([v for _, v in pairs])
         if band is not None:
             bx, by = iso_exponent_band(*band)
             ax.fill(
@@ -112,17 +111,9 @@ def plot_ratio_plane(geometry: pd.DataFrame, laws: LawsLike, exponents: pd.DataF
             )
             for a in band:
                 ax.plot(*iso_exponent_curve(a), color=BAND_COLOR, lw=0.8, zorder=1, gid=f"hdi-curve:{a!r}")
-        for label, value in pairs:
-            st = styles[value]
-            ax.plot(
-                *iso_exponent_curve(value),
-                color=st.color,
-                linestyle=st.linestyle,
-                lw=1.2,
-                zorder=2,
-                label=label,
-                gid=f"law-curve:{value!r}",
-            )
+        draw_laws(
+            lambda a, **style: ax.plot(*iso_exponent_curve(a), **style), pairs, "curve", lw=1.2, zorder=2
+        )
         ax.scatter(
             x[placed & bifurcation & ~flagged],
             y[placed & bifurcation & ~flagged],
