@@ -91,6 +91,12 @@ def _fatal(label: str, message: str, hint: str, code: str, row: int | None = Non
     return InputError([Problem("fatal", label, row, None, message, hint, code)])
 
 
+def _unreadable(label: str, message: str, check: str) -> InputError:
+    """A table file the library for its format could not open: what failed, what to check, and the way
+    out that always works (CSV)."""
+    return _fatal(label, message, f"{check}, or export the table as CSV (UTF-8)", "unreadable")
+
+
 def check_encoding(
     encoding: str | None, *, origin: str = OPTIONS_ORIGIN, key: str = "encoding"
 ) -> str | None:
@@ -383,12 +389,8 @@ def _read_parquet(path: Path, label: str) -> RawTable:
     try:
         frame = pd.read_parquet(path)
     except Exception as exc:  # pyarrow raises several unrelated types for damaged files
-        raise _fatal(
-            label,
-            f"cannot read this file as Parquet ({type(exc).__name__}: {exc})",
-            "check that the file is a Parquet file, or export the table as CSV (UTF-8)",
-            "unreadable",
-        ) from None
+        message = f"cannot read this file as Parquet ({type(exc).__name__}: {exc})"
+        raise _unreadable(label, message, "check that the file is a Parquet file") from None
     frame = frame.reset_index(drop=True)
     frame.columns = _column_names(list(frame.columns), label, 1)
     return RawTable(
@@ -427,12 +429,8 @@ def _read_excel(path: Path, label: str, sheet: str | int | None) -> RawTable:
     try:
         workbook = openpyxl.load_workbook(path, read_only=True, data_only=True)
     except Exception as exc:  # openpyxl raises several unrelated types for damaged files
-        raise _fatal(
-            label,
-            f"cannot open this file as an Excel workbook ({type(exc).__name__})",
-            "check that it is an .xlsx workbook, or export the table as CSV (UTF-8)",
-            "unreadable",
-        ) from None
+        message = f"cannot open this file as an Excel workbook ({type(exc).__name__})"
+        raise _unreadable(label, message, "check that it is an .xlsx workbook") from None
     try:
         names = tuple(workbook.sheetnames)
         if sheet is None:
