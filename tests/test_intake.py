@@ -171,6 +171,17 @@ def test_png_renamed_csv(tmp_path):
     assert "image.csv" in str(exc.value) and "PNG image" in str(exc.value)
 
 
+@pytest.mark.parametrize("name, what", [("t.parquet", "as Parquet"), ("t.xlsx", "as an Excel workbook")])
+def test_damaged_binary_table_names_the_file_and_the_way_out(tmp_path, name, what):
+    path = tmp_path / name
+    path.write_text("p,d1,d2\n1,0.5,0.5\n")  # text under a binary format's extension
+    with pytest.raises(InputError) as exc:
+        read_junctions(path, parent="p", daughters="d1,d2")
+    (problem,) = exc.value.problems
+    assert problem.code == "unreadable" and name in problem.file and what in problem.message
+    assert problem.hint.endswith("or export the table as CSV (UTF-8)")
+
+
 def test_nul_bytes(tmp_path):
     path = tmp_path / "t.csv"
     path.write_bytes(b"p,d1,d2\n1,\x00\x00,2\n")
