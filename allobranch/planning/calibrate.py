@@ -31,13 +31,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from allobranch.conventions import HDI_PROB
 from allobranch.engine import Engine, JobsFailed, derived_seed
 from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec, Priors
 from allobranch.model.structure import resolve_levels
 from allobranch.planning.design import Design, Simulation, simulate
 from allobranch.planning.replicates import failed_section, run_replicates
-from allobranch.planning.settings import StudyFits, study_options
+from allobranch.planning.settings import StudyFits, describe_fits, study_options
 
 #: Thinned posterior draws each true value is ranked among (ranks run 0 .. RANK_DRAWS, so RANK_DRAWS + 1
 #: = 100 possible ranks split evenly into 2, 4, 5, 10 or 20 bins).
@@ -327,9 +328,8 @@ class CalibrationResult:
             f"{p['mu_sd']:g}), tau_taxon ~ HalfNormal({p['tau_taxon']:g}), tau_specimen ~ "
             f"HalfNormal({p['tau_specimen']:g}), sigma_dev ~ HalfNormal({p['sigma_dev']:g}) (a spread whose "
             "level the model lacks is 0).",
-            f"{s['replicates']} replicates, seed {s['seed']}; fits with draws {s['sampler']['draws']}, tune "
-            f"{s['sampler']['tune']}, chains {s['sampler']['chains']}; ranks among {RANK_DRAWS} thinned draws; "
-            f"{s['hdi_prob']:.0%} HDI coverage.",
+            f"{s['replicates']} replicates, seed {s['seed']}; {describe_fits(s['sampler'])}; ranks among "
+            f"{RANK_DRAWS} thinned draws; {s['hdi_prob']:.0%} HDI coverage.",
             "",
             "| quantity | n | chi-square p (bins) | mean rank fraction | coverage | 95 % CI | binomial p |",
             "|---|---|---|---|---|---|---|",
@@ -363,7 +363,7 @@ def calibrate(
     *,
     replicates: int = 100,
     seed: int = 0,
-    hdi_prob: float = 0.9,
+    hdi_prob: float = HDI_PROB,
     generator: Generator | None = None,
     engine: Engine | None = None,
     progress: bool = True,

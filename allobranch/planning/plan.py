@@ -38,12 +38,13 @@ from allobranch.comparison.jobs import POPULATION_SCOPE
 from allobranch.comparison.laws import Law
 from allobranch.comparison.rope import DEFAULT_DELTA, check_delta
 from allobranch.comparison.verdict import NONE, UNDECIDED
+from allobranch.conventions import HDI_PROB
 from allobranch.engine import Engine, derived_seed
 from allobranch.errors import InputError
 from allobranch.model.spec import ModelSpec
 from allobranch.planning.design import SWEEP_VARIABLES, Design, simulate
 from allobranch.planning.replicates import failed_section, run_replicates
-from allobranch.planning.settings import StudyFits, study_options
+from allobranch.planning.settings import StudyFits, describe_fits, study_options
 
 #: Classes of a replicate's verdict, in the order of the tables.
 OUTCOMES: tuple[str, ...] = ("right", "other", "none", "undecided")
@@ -354,8 +355,7 @@ class PlanResult:
             f"{d['tau_specimen']:g}, junction deviation {d['sigma_dev']:g}), {d['error_kind']} error "
             f"{d['error']:g} ({unit}), {d['split']} daughter split, trifurcation share {d['trifurcations']:g}.",
             f"Laws compared in each replicate: {laws}; ROPE half-width {self.delta:g}. {s['replicates']} "
-            f"replicates per design point, seed {s['seed']}; fits with draws {s['sampler']['draws']}, tune "
-            f"{s['sampler']['tune']}, chains {s['sampler']['chains']}.",
+            f"replicates per design point, seed {s['seed']}; {describe_fits(s['sampler'])}.",
             "",
             "## Probability of each verdict (population scope)",
             "",
@@ -408,7 +408,7 @@ def plan_study(
     target: float = DEFAULT_TARGET,
     delta: float | None = None,
     spec: ModelSpec | None = None,
-    hdi_prob: float = 0.9,
+    hdi_prob: float = HDI_PROB,
     engine: Engine | None = None,
     progress: bool = True,
     **fit_kw: Any,

@@ -38,6 +38,17 @@ STUDY_OPTIONS_MARK = "{study_options}"
 F = TypeVar("F", bound=Callable[..., Any])
 
 
+def describe_fits(sampler: Mapping[str, Any]) -> str:
+    """A study's fit settings in words for its report, e.g. ``"fits with draws 1000, tune 1000, chains 4"``.
+
+    Parameters
+    ----------
+    sampler : mapping
+        :func:`fit_settings` (a study's ``settings["sampler"]``).
+    """
+    return f"fits with draws {sampler['draws']}, tune {sampler['tune']}, chains {sampler['chains']}"
+
+
 def study_options(func: F) -> F:
     """Decorator: put :data:`STUDY_OPTIONS_DOC` into ``func``'s docstring, at the line
     :data:`STUDY_OPTIONS_MARK` and with that line's indent.
