@@ -9,7 +9,16 @@ from allobranch.cli.model_options import add_comparative_arguments, comparative_
 from allobranch.cli.options import add_mapping_arguments, table_from_args
 from allobranch.conventions import FIT_FILES, HDI_PROB, hdi_label
 from allobranch.io import prepare_output_dir
-from allobranch.model.spec import DEVIATIONS, PARAMETRIZATIONS, SAMPLER_DEFAULTS, SAMPLERS, ModelSpec
+from allobranch.model.spec import (
+    DEVIATIONS,
+    LARGE_PER_SPECIMEN,
+    LARGE_TABLE,
+    LARGE_TABLE_DEFAULTS,
+    PARAMETRIZATIONS,
+    SAMPLER_DEFAULTS,
+    SAMPLERS,
+    ModelSpec,
+)
 
 
 def positive_int(text: str) -> int:
@@ -45,8 +54,12 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
         default=d["draws"],
         help=f"posterior draws per chain (default {d['draws']})",
     )
+    big = f"{LARGE_TABLE:,} junctions and {LARGE_PER_SPECIMEN} per specimen"
     g.add_argument(
-        "--tune", type=positive_int, default=d["tune"], help=f"tuning steps per chain (default {d['tune']})"
+        "--tune",
+        type=positive_int,
+        default=None,
+        help=f"tuning steps per chain (default {d['tune']}; {LARGE_TABLE_DEFAULTS['tune']} from {big} on)",
     )
     g.add_argument(
         "--chains", type=positive_int, default=d["chains"], help=f"number of chains (default {d['chains']})"
@@ -60,9 +73,10 @@ def add_sampler_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument(
         "--target-accept",
         type=probability,
-        default=d["target_accept"],
+        default=None,
         dest="target_accept",
-        help=f"NUTS target acceptance of the first attempt (default {d['target_accept']}; a fit that "
+        help=f"NUTS target acceptance of the first attempt (default {d['target_accept']}; "
+        f"{LARGE_TABLE_DEFAULTS['target_accept']} from {big} on; a fit that "
         "fails its checks is refitted automatically with higher values)",
     )
     g.add_argument(

@@ -315,8 +315,9 @@ def compare_laws(
     sampler : {"nutpie", "pymc"}
         NUTS implementation.
     target_accept : float, optional
-        NUTS target acceptance of the first attempt of every fit (default: ``SAMPLER_DEFAULTS``; each fit
-        escalates on its own when it fails its checks).
+        NUTS target acceptance of the first attempt of every fit (default:
+        :func:`~allobranch.model.spec.sampler_defaults` for the table; each fit escalates on its own when
+        it fails its checks).
     spec : ModelSpec, optional
         Specification of the free model when it is fitted here (no fixed exponents); the laws' models
         differ from it only in the fixed exponent.
@@ -370,10 +371,10 @@ def compare_laws(
     defaults = SAMPLER_DEFAULTS
     sampler_kw = {
         "draws": int(draws or base.get("draws", defaults["draws"])),
-        "tune": int(tune or base.get("tune", defaults["tune"])),
+        "tune": tune or base.get("tune"),  # None: the fit's default for the table's size
         "chains": int(chains or base.get("chains", defaults["chains"])),
         "sampler": sampler,
-        "target_accept": float(target_accept or defaults["target_accept"]),
+        "target_accept": target_accept,  # None: the fit's default for the table's size
         "escalate": bool(escalate),
     }
     given_fit, table = _free_fit(table_or_fit, fit, spec)
@@ -455,8 +456,11 @@ def compare_laws(
         free, laws, law_range, delta=delta, scopes=range_scopes
     )
     warnings += range_warnings
+    first = (free.settings.get("attempts") or [{}])[0]
     settings = {
         **sampler_kw,
+        "tune": sampler_kw["tune"] or free.settings.get("tune"),  # as used, when left to the default
+        "target_accept": sampler_kw["target_accept"] or first.get("target_accept"),
         "seed": seed,
         "taxa": taxa,
         "scopes": list(scopes),

@@ -21,7 +21,7 @@ from allobranch.intake.table import JunctionTable
 from allobranch.model.asymmetry import estimate_sigma_asym
 from allobranch.model.data import model_data
 from allobranch.model.linear import build_linear_terms
-from allobranch.model.spec import SAMPLER_DEFAULTS, SAMPLERS, ModelSpec
+from allobranch.model.spec import SAMPLER_DEFAULTS, SAMPLERS, ModelSpec, sampler_defaults
 from allobranch.model.structure import BuiltModel, data_arrays, group_layout, model_form
 
 #: Posterior-predictive draws kept per chain (enough for checks, small on disk).
@@ -136,11 +136,11 @@ def fit(
     spec: ModelSpec | None = None,
     *,
     draws: int = SAMPLER_DEFAULTS["draws"],
-    tune: int = SAMPLER_DEFAULTS["tune"],
+    tune: int | None = None,
     chains: int = SAMPLER_DEFAULTS["chains"],
     seed: int = 0,
     sampler: str = SAMPLER_DEFAULTS["sampler"],
-    target_accept: float = SAMPLER_DEFAULTS["target_accept"],
+    target_accept: float | None = None,
     escalate: bool = True,
     progress: bool = True,
     cores: int | None = None,
@@ -155,13 +155,15 @@ def fit(
     spec : ModelSpec, optional
         What to fit (levels, deviation, fixed exponents, parametrisation, priors); defaults to ``ModelSpec()``.
     draws, tune, chains : int
-        Posterior draws and tuning steps per chain, number of chains.
+        Posterior draws and tuning steps per chain, number of chains. ``tune`` defaults to
+        :func:`~allobranch.model.spec.sampler_defaults` for the table (1000; 300 for a large table).
     seed : int
         Seed for the sampler and the predictive draws; the same seed gives the same tables.
     sampler : {"nutpie", "pymc"}
         NUTS implementation; if nutpie fails to start, PyMC's NUTS is used and the result says so.
-    target_accept : float
-        Target acceptance rate of NUTS for the first attempt (higher is slower but more robust).
+    target_accept : float, optional
+        Target acceptance rate of NUTS for the first attempt (higher is slower but more robust); default
+        :func:`~allobranch.model.spec.sampler_defaults` for the table (0.9; 0.8 for a large table).
     escalate : bool
         When the first attempt has divergent transitions or an R-hat above the threshold, refit
         automatically with a higher target acceptance and another parametrisation
@@ -188,11 +190,14 @@ def fit(
     """
     if sampler not in SAMPLERS:
         raise ValueError(f"sampler must be one of {', '.join(SAMPLERS)}; got {sampler!r}")
+    spec = spec or ModelSpec()
+    data = model_data(table)
+    defaults = sampler_defaults(data.n_junctions, len(data.specimens))
+    tune = defaults["tune"] if tune is None else tune
+    target_accept = defaults["target_accept"] if target_accept is None else target_accept
     for name, value in (("draws", draws), ("tune", tune), ("chains", chains)):
         if int(value) < 1:
             raise ValueError(f"{name} must be a positive whole number, got {value!r}")
-    spec = spec or ModelSpec()
-    data = model_data(table)
     data = replace(data, linear=build_linear_terms(table, data, spec))
     form = model_form(data, spec)
     if data.linear is not None and (form != "fast" or sampler != "nutpie"):

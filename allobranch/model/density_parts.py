@@ -159,20 +159,10 @@ def _junction_likelihood_j(ints, floats, a_j, sdev, nu):
         views[10],
         views[11],
     )
-    a_eff = np.empty(n)
-    for j in range(n):
-        a_eff[j] = a_j[j] if a_j[j] > A_FLOOR else A_FLOOR
-    ll, dll, _, _ = kernel.fast_terms(y0, mu_post, g, c, ybar, M, s0sq, lld, a_eff, sdev, nu, student)
-    total = 0.0
-    d_aj = np.zeros(n)
-    d_sdev = 0.0
-    d_nu = 0.0
-    for j in range(n):
-        total += ll[j]
-        if a_j[j] > A_FLOOR:
-            d_aj[j] = dll[j, 0]
-        d_sdev += dll[j, 1]
-        d_nu += dll[j, 4]
+    d_aj = np.empty(n)
+    total, d_sdev, d_nu = kernel.fast_loglik(
+        y0, mu_post, g, c, ybar, M, s0sq, lld, a_j, A_FLOOR, sdev, nu, student, d_aj
+    )
     return total, d_aj, d_sdev, d_nu
 
 

@@ -266,6 +266,78 @@ def daughter_loglik(Y, M, V, rel_error: float, sasym: float) -> float:
     return float(precompute(Y, M, V, rel_error, asym_var)[4].sum())
 
 
+@nb.njit(
+    cache=True,
+    nogil=True,
+    error_model="numpy",
+    inline="always",
+    fastmath={"nsz", "arcp", "contract", "afn", "reassoc"},
+)
+def _fast_one(y0, mu, g, cj, ybar, m, s0sq, lld, a, sdev, nu, student, w_buf):
+    """One junction of :func:`fast_terms`: log-likelihood, its derivatives in the exponent, ``sigma_dev`` and
+    ``nu``, and the predicted log parent's mean and variance. ``mu``, ``g``, ``m`` are the junction's rows."""
+    K = mu.shape[0]
+    tmax = -1e300
+    for i in range(K):
+        if m[i]:
+            t = a * mu[i]
+            if t > tmax:
+                tmax = t
+    se = 0.0
+    for i in range(K):
+        if m[i]:
+            e = math.exp(a * mu[i] - tmax)
+            w_buf[i] = e
+            se += e
+        else:
+            w_buf[i] = 0.0
+    L = tmax + math.log(se)
+    inv_se = 1.0 / se
+    inv_c = 1.0 / cj
+    mbar = 0.0
+    wg = 0.0
+    w2g = 0.0
+    Dg = 0.0
+    for i in range(K):
+        w = w_buf[i] * inv_se
+        w_buf[i] = w
+        gi = g[i]
+        mbar += w * mu[i]
+        wg += w * gi
+        w2g += w * w * gi
+        Dg += w * (gi + gi * gi * inv_c)
+    S = w2g + wg * wg * inv_c
+    dD = 0.0
+    dw2g = 0.0
+    dwg = 0.0
+    for i in range(K):
+        w = w_buf[i]
+        gi = g[i]
+        dw = w * (mu[i] - mbar)
+        dD += dw * (gi + gi * gi * inv_c)
+        dw2g += 2.0 * w * dw * gi
+        dwg += dw * gi
+    dS = dw2g + 2.0 * wg * dwg * inv_c
+    inv_a = 1.0 / a
+    mean = L * inv_a + 0.5 * a * (Dg - S)
+    dmean = (mbar - L * inv_a) * inv_a + 0.5 * (Dg - S) + 0.5 * a * (dD - dS)
+    var = sdev * sdev + s0sq + S
+    inv_var = 1.0 / var
+    r = (y0 - ybar) - mean
+    if student:
+        q = 1.0 + r * r * inv_var / nu
+        llp = -0.5 * math.log(var) - 0.5 * (nu + 1.0) * math.log(q)
+        d_mean = (nu + 1.0) * r * inv_var / (nu * q)
+        d_var = -0.5 * inv_var + 0.5 * (nu + 1.0) * r * r * inv_var * inv_var / (nu * q)
+        d_nu = -0.5 * math.log(q) + 0.5 * (nu + 1.0) * r * r * inv_var / (nu * nu * q)
+    else:
+        llp = -0.5 * (_LOG2PI + math.log(var)) - 0.5 * r * r * inv_var
+        d_mean = r * inv_var
+        d_var = -0.5 * inv_var + 0.5 * r * r * inv_var * inv_var
+        d_nu = 0.0
+    return llp + lld, d_mean * dmean + d_var * dS, d_var * 2.0 * sdev, d_nu, mean + ybar, var
+
+
 @nb.njit(cache=True, nogil=True, error_model="numpy")
 def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_junction, sdev, nu, student):
     """Per-junction log-likelihood with analytic derivatives, for fixed measurement error and asymmetry.
@@ -282,67 +354,53 @@ def fast_terms(y0, mu, g, c, ybar, M, s0sq, lld, a_junction, sdev, nu, student):
     var_out = np.empty(n)
     w_buf = np.empty(K)
     for j in range(n):
-        a = a_junction[j]
-        tmax = -1e300
-        for i in range(K):
-            if M[j, i]:
-                t = a * mu[j, i]
-                if t > tmax:
-                    tmax = t
-        se = 0.0
-        for i in range(K):
-            if M[j, i]:
-                e = math.exp(a * mu[j, i] - tmax)
-                w_buf[i] = e
-                se += e
-            else:
-                w_buf[i] = 0.0
-        L = tmax + math.log(se)
-        cj = c[j]
-        mbar = 0.0
-        wg = 0.0
-        w2g = 0.0
-        Dg = 0.0
-        for i in range(K):
-            w = w_buf[i] / se
-            w_buf[i] = w
-            gi = g[j, i]
-            mbar += w * mu[j, i]
-            wg += w * gi
-            w2g += w * w * gi
-            Dg += w * (gi + gi * gi / cj)
-        S = w2g + wg * wg / cj
-        dD = 0.0
-        dw2g = 0.0
-        dwg = 0.0
-        for i in range(K):
-            w = w_buf[i]
-            gi = g[j, i]
-            dw = w * (mu[j, i] - mbar)
-            dD += dw * (gi + gi * gi / cj)
-            dw2g += 2.0 * w * dw * gi
-            dwg += dw * gi
-        dS = dw2g + 2.0 * wg * dwg / cj
-        mean = L / a + 0.5 * a * (Dg - S)
-        dmean = mbar / a - L / (a * a) + 0.5 * (Dg - S) + 0.5 * a * (dD - dS)
-        var = sdev * sdev + s0sq[j] + S
-        r = (y0[j] - ybar[j]) - mean
-        if student:
-            q = 1.0 + r * r / (nu * var)
-            llp = -0.5 * math.log(var) - 0.5 * (nu + 1.0) * math.log(q)
-            d_mean = (nu + 1.0) * r / (nu * var * q)
-            d_var = -0.5 / var + 0.5 * (nu + 1.0) * r * r / (nu * var * var * q)
-            dll[j, 4] = -0.5 * math.log(q) + 0.5 * (nu + 1.0) * r * r / (nu * nu * var * q)
-        else:
-            llp = -0.5 * (_LOG2PI + math.log(var)) - 0.5 * r * r / var
-            d_mean = r / var
-            d_var = -0.5 / var + 0.5 * r * r / (var * var)
-        ll[j] = llp + lld[j]
-        dll[j, 0] = d_mean * dmean + d_var * dS
-        dll[j, 1] = d_var * 2.0 * sdev
-        mean_out[j] = mean + ybar[j]
+        v, d_a, d_sdev, d_nu, mean, var = _fast_one(
+            y0[j], mu[j], g[j], c[j], ybar[j], M[j], s0sq[j], lld[j], a_junction[j], sdev, nu, student, w_buf
+        )
+        ll[j] = v
+        dll[j, 0] = d_a
+        dll[j, 1] = d_sdev
+        dll[j, 4] = d_nu
+        mean_out[j] = mean
         var_out[j] = var
     return ll, dll, mean_out, var_out
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy", fastmath={"nsz", "arcp", "contract", "afn", "reassoc"})
+def fast_loglik(y0, mu, g, c, ybar, M, s0sq, lld, a_junction, a_floor, sdev, nu, student, d_a):
+    """Summed log-likelihood of :func:`fast_terms` without its per-junction tables (the sampler's hot loop).
+
+    Each exponent is floored at ``a_floor`` (its derivative is then 0). Writes each junction's derivative in
+    its exponent into ``d_a`` (n,) and returns the total and its derivatives in ``sigma_dev`` and ``nu``.
+    """
+    n, K = mu.shape
+    w_buf = np.empty(K)
+    total = 0.0
+    d_sdev = 0.0
+    d_nu = 0.0
+    for j in range(n):
+        a = a_junction[j]
+        floored = a <= a_floor
+        v, da, ds, dn, _, _ = _fast_one(
+            y0[j],
+            mu[j],
+            g[j],
+            c[j],
+            ybar[j],
+            M[j],
+            s0sq[j],
+            lld[j],
+            a_floor if floored else a,
+            sdev,
+            nu,
+            student,
+            w_buf,
+        )
+        total += v
+        d_a[j] = 0.0 if floored else da
+        d_sdev += ds
+        d_nu += dn
+    return total, d_sdev, d_nu
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
