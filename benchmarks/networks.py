@@ -3,11 +3,14 @@
 1. Recovery. Simulated binary trees (:func:`allobranch.networks.simulate.simulate_segments`, invented data)
    whose junctions obey ``r0^a = r1^a + r2^a`` with ``a = 2.5`` up to a 3 % biological scatter of each
    daughter, traced into SWC sample points (:func:`~allobranch.networks.simulate.trace_swc`): samples
-   every 0.25 um, radii flaring from the parent's size at a section's start and swelling 30 % towards
-   each branch point (both over one local radius), times 5 % log-normal noise. Each radius rule then gives
-   the junctions; reported are the median and mean of the naive per-junction exponents (which ignore
-   measurement error) against the truth, over three trees, and a short model fit (one tree, every rule).
-   The true segment radii give the reference row.
+   every 0.25 um, radii flaring from the parent's size at a section's start and swelling towards each
+   branch point, times 5 % log-normal noise. The standard profile swells 30 % over one local radius; the
+   other profiles change the swelling's height (15 %, 50 %) and reach (0.5 and 2 radii), remove the
+   swelling and the flare (a control), and lengthen the sections (24-48 instead of 8-16 radii) under the
+   long swelling, so that no one simulator setting decides the default rule. Each radius rule then gives
+   the junctions; reported are the median of the naive per-junction exponents (which ignore measurement
+   error) and a short model fit, each on three trees per profile, against the truth. The true segment
+   radii give the reference row.
 2. Speed. Conversion time (read, check, orient, derive, validate) of networks with 10^5 segments:
    a segment table (CSV file; half the rows continuations), the same network as an edge list with
    100 extra edges closing loops, and an SWC file of a tree with 10^5 sections.
@@ -16,8 +19,8 @@ Writes ``benchmarks/results/networks.md``, ``networks_recovery.csv`` and ``netwo
 
 Run::
 
-    /work/main/.venv/bin/python benchmarks/networks.py            # about 3-5 minutes on 2 cores
-    /work/main/.venv/bin/python benchmarks/networks.py --no-fit   # skip the model fits
+    /work/main/.venv/bin/python benchmarks/networks.py            # about 15-25 minutes on 2 cores
+    /work/main/.venv/bin/python benchmarks/networks.py --no-fit   # skip the model fits (a few minutes)
 """
 
 from __future__ import annotations
@@ -34,24 +37,45 @@ import pandas as pd
 
 import allobranch as ab
 from allobranch.networks import junctions_from_edges, junctions_from_segments, junctions_from_swc, write_swc
+from allobranch.networks.rules import TRIM_RADII
 from allobranch.networks.simulate import SIMULATED_NOTE, simulate_segments, trace_swc
 
 RESULTS = Path(__file__).resolve().parent / "results"
 TRUE_EXPONENT = 2.5
-#: Simulation and tracing design of the recovery study.
+#: Simulation and tracing design shared by every profile.
 RECOVERY = {
     "junctions_per_tree": 1000,
     "trees": 3,
     "scatter": 0.03,
     "spacing_um": 0.25,
     "noise": 0.05,
-    "swelling": 0.3,
-    "decay_radii": 1.0,
 }
+#: Swelling profiles, "height/reach in local radii": (label, trace_swc keywords, simulate_segments keywords).
+#: The first is the standard case; the control has neither swelling nor flare; "long sections" are 24-48
+#: instead of 8-16 radii long.
+PROFILES: tuple[tuple[str, dict, dict], ...] = (
+    ("30 %/1 r (standard)", {"swelling": 0.3, "decay_radii": 1.0}, {}),
+    ("30 %/0.5 r", {"swelling": 0.3, "decay_radii": 0.5}, {}),
+    ("30 %/2 r", {"swelling": 0.3, "decay_radii": 2.0}, {}),
+    ("15 %/1 r", {"swelling": 0.15, "decay_radii": 1.0}, {}),
+    ("50 %/1 r", {"swelling": 0.5, "decay_radii": 1.0}, {}),
+    ("none (control)", {"swelling": 0.0, "decay_radii": 1e-9}, {}),
+    ("30 %/2 r, long sections", {"swelling": 0.3, "decay_radii": 2.0}, {"length_radii": (24.0, 48.0)}),
+)
+TRUTH = "true segment radii"
+DEFAULT_RULE = f"trimmed_median, {TRIM_RADII:g} end radii (default)"
 #: Radius rules compared: (label, keyword arguments of junctions_from_swc).
 RULES: tuple[tuple[str, dict], ...] = (
-    ("trimmed_median (default: trim two end radii)", {"radius_rule": "trimmed_median"}),
-    ("trimmed_median, trim 1 um", {"radius_rule": "trimmed_median", "trim": 1.0}),
+    (DEFAULT_RULE, {}),
+    (
+        f"trimmed_median, {TRIM_RADII:g} end radii, branch-point sections kept",
+        {"branch_point_sections": "keep"},
+    ),
+    (
+        "trimmed_median, 2 end radii, branch-point sections kept (previous default)",
+        {"trim_radii": 2.0, "branch_point_sections": "keep"},
+    ),
+    ("trimmed_median, trim 1 um", {"trim": 1.0}),
     ("median (all samples)", {"radius_rule": "median"}),
     ("near_branch, 2 samples", {"radius_rule": "near_branch", "near_points": 2}),
     ("near_branch, 1 sample", {"radius_rule": "near_branch", "near_points": 1}),
@@ -67,57 +91,57 @@ def _naive(table: ab.JunctionTable) -> tuple[float, float, float]:
     return float(np.nanmedian(exp)), float(np.nanmean(exp)), float(np.isnan(exp).mean())
 
 
+def _model(table: ab.JunctionTable) -> dict[str, float]:
+    result = ab.fit(
+        table, draws=FIT["draws"], tune=FIT["tune"], chains=FIT["chains"], seed=SEED, progress=False
+    )
+    pop = result.exponents(0.9).query("level == 'population'").iloc[0]
+    return {"model_mean": pop["mean"], "model_hdi_low": pop["hdi_low"], "model_hdi_high": pop["hdi_high"]}
+
+
 def recovery(folder: Path, fit: bool) -> pd.DataFrame:
-    """Naive (and model) exponents by radius rule, three simulated trees."""
+    """Naive (and model) exponents by radius rule and swelling profile, three simulated trees each."""
     rows = []
-    for tree in range(RECOVERY["trees"]):
-        seg = simulate_segments(
-            RECOVERY["junctions_per_tree"],
-            exponent=TRUE_EXPONENT,
-            seed=SEED + tree,
-            scatter=RECOVERY["scatter"],
-        )
-        error = {"rel_error": FIT["rel_error"]}  # used by the model only; naive exponents ignore it
-        truth = junctions_from_segments(
-            seg, segment_id="segment", parent_id="parent", size="radius", unit="um", **error
-        )
-        samples = trace_swc(
-            seg,
-            seed=SEED + 100 + tree,
-            spacing=RECOVERY["spacing_um"],
-            noise=RECOVERY["noise"],
-            swelling=RECOVERY["swelling"],
-            decay_radii=RECOVERY["decay_radii"],
-        )
-        path = write_swc(samples, folder / f"tree{tree}.swc", SIMULATED_NOTE)
-        sources = [("true segment radii", truth)]
-        sources += [(label, junctions_from_swc(path, **kw, **error)) for label, kw in RULES]
-        for label, res in sources:
-            med, mean, no_root = _naive(res.table)
-            row = {
-                "rule": label,
-                "tree": tree,
-                "junctions": res.table.n_junctions,
-                "samples": len(samples),
-                "naive_median": med,
-                "naive_mean": mean,
-                "no_root_share": no_root,
-            }
-            if fit and tree == 0:
-                result = ab.fit(
-                    res.table,
-                    draws=FIT["draws"],
-                    tune=FIT["tune"],
-                    chains=FIT["chains"],
-                    seed=SEED,
-                    progress=False,
-                )
-                pop = result.exponents(0.9).query("level == 'population'").iloc[0]
-                row.update(
-                    model_mean=pop["mean"], model_hdi_low=pop["hdi_low"], model_hdi_high=pop["hdi_high"]
-                )
-            rows.append(row)
-            print(f"tree {tree}  {label:<46} median {med:.3f}  mean {mean:.3f}  no root {no_root:.1%}")
+    for number, (profile, tracing, shape) in enumerate(PROFILES):
+        for tree in range(RECOVERY["trees"]):
+            seg = simulate_segments(
+                RECOVERY["junctions_per_tree"],
+                exponent=TRUE_EXPONENT,
+                seed=SEED + tree,
+                scatter=RECOVERY["scatter"],
+                **shape,
+            )
+            error = {"rel_error": FIT["rel_error"]}  # used by the model only; naive exponents ignore it
+            truth = junctions_from_segments(
+                seg, segment_id="segment", parent_id="parent", size="radius", unit="um", **error
+            )
+            samples = trace_swc(
+                seg,
+                seed=SEED + 100 + tree,
+                spacing=RECOVERY["spacing_um"],
+                noise=RECOVERY["noise"],
+                **tracing,
+            )
+            path = write_swc(samples, folder / f"profile{number}_tree{tree}.swc", SIMULATED_NOTE)
+            sources = [(TRUTH, truth)]
+            sources += [(label, junctions_from_swc(path, **kw, **error)) for label, kw in RULES]
+            for label, res in sources:
+                med, mean, no_root = _naive(res.table)
+                row = {
+                    "profile": profile,
+                    "rule": label,
+                    "tree": tree,
+                    "junctions": res.table.n_junctions,
+                    "samples": len(samples),
+                    "naive_median": med,
+                    "naive_mean": mean,
+                    "no_root_share": no_root,
+                }
+                if fit:
+                    row.update(_model(res.table))
+                rows.append(row)
+                model = f"  model {row['model_mean']:.3f}" if fit else ""
+                print(f"{profile:<42} tree {tree}  {label:<70} median {med:.3f}{model}", flush=True)
     return pd.DataFrame(rows)
 
 
@@ -195,13 +219,24 @@ def speed(folder: Path) -> pd.DataFrame:
             lambda: junctions_from_edges(edge_csv, size="radius", root="root"),
         ),
     ]
+    # sampled every 2 um, most of this tree's thin sections are one sample: the default leaves out (and
+    # lists) the junctions at sections of one branch-point sample; the other rows keep them
+    swc_cases = (
+        ("trimmed_median (default; junctions at one-sample branch-point sections left out)", {}),
+        ("trimmed_median, branch-point sections kept", {"branch_point_sections": "keep"}),
+        (
+            "near_branch, branch-point sections kept",
+            {"radius_rule": "near_branch", "branch_point_sections": "keep"},
+        ),
+        ("median, branch-point sections kept", {"radius_rule": "median", "branch_point_sections": "keep"}),
+    )
     cases += [
         (
-            f"SWC file, {len(big):,} sections, {len(samples):,} samples, {rule}",
+            f"SWC file, {len(big):,} sections, {len(samples):,} samples, {label}",
             len(big),
-            lambda rule=rule: junctions_from_swc(swc_path, radius_rule=rule),
+            lambda kw=kw: junctions_from_swc(swc_path, **kw),
         )
-        for rule in ("trimmed_median", "near_branch", "median")
+        for label, kw in swc_cases
     ]
     rows = []
     for label, size, fn in cases:
@@ -219,14 +254,89 @@ def speed(folder: Path) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _markdown(rec: pd.DataFrame, timing: pd.DataFrame, load: tuple[float, float, float]) -> str:
-    agg = rec.groupby("rule", sort=False).agg(
-        junctions=("junctions", "mean"),
-        median_mean=("naive_median", "mean"),
-        median_sd=("naive_median", "std"),
-        mean_mean=("naive_mean", "mean"),
-        no_root=("no_root_share", "mean"),
+def _cells(rec: pd.DataFrame, fmt) -> pd.DataFrame:
+    """One cell per rule and profile, formatted by ``fmt`` from that cell's rows (all trees)."""
+    rules = list(dict.fromkeys(rec["rule"]))
+    profiles = list(dict.fromkeys(rec["profile"]))
+    grouped = rec.groupby(["rule", "profile"], sort=False)
+    return pd.DataFrame(
+        [[fmt(grouped.get_group((r, p))) for p in profiles] for r in rules], index=rules, columns=profiles
     )
+
+
+def _table(cells: pd.DataFrame, corner: str) -> list[str]:
+    lines = [f"| {corner} | " + " | ".join(cells.columns) + " |", "|---" * (len(cells.columns) + 1) + "|"]
+    lines += [f"| {rule} | " + " | ".join(row) + " |" for rule, row in cells.iterrows()]
+    return lines
+
+
+def _covers(group: pd.DataFrame) -> int:
+    return int(((group["model_hdi_low"] <= TRUE_EXPONENT) & (TRUE_EXPONENT <= group["model_hdi_high"])).sum())
+
+
+def _recovery_markdown(rec: pd.DataFrame) -> list[str]:
+    trees = RECOVERY["trees"]
+    standard = PROFILES[0][0]
+    lines = [
+        "## Recovery of a known exponent (a = 2.5) by radius rule and swelling profile",
+        "",
+        f"{trees} simulated trees of {RECOVERY['junctions_per_tree']} junctions per profile (biological scatter "
+        f"{RECOVERY['scatter']:.0%} per daughter; sections 8-16 radii long unless said), traced into SWC: a "
+        f"sample every {RECOVERY['spacing_um']} um, flare from the parent's radius at each section's start "
+        "and swelling towards each branch point, both decaying over the profile's reach, "
+        f"{RECOVERY['noise']:.0%} log-normal noise per sample. Profiles are the swelling's height / reach in "
+        "local radii; the control has neither swelling nor flare. Every rule leaves out the junctions at "
+        "sections of one branch-point sample unless the rule's label says they are kept. The radii span "
+        "10 um down to below 0.01 um, so a third of the sections are thinner than the sample spacing and a "
+        "few are a single sample. On 8-16-radius sections a swelling that reaches 2 radii leaves no sample "
+        "more than two reaches from a branch point, so every rule reads some of it there; the long-sections "
+        "profile is the same swelling on sections three times longer.",
+        "",
+        f"### Naive median exponent: shift from 2.5 (mean over {trees} trees)",
+        "",
+        "Naive per-junction exponents ignore measurement error; the median over junctions is taken per tree.",
+        "",
+    ]
+    lines += _table(
+        _cells(rec, lambda g: f"{g['naive_median'].mean() - TRUE_EXPONENT:+.3f}"),
+        "radius rule",
+    )
+    if "model_mean" in rec.columns:
+        lines += [
+            "",
+            f"### Model: population exponent, shift from 2.5 (mean over {trees} trees) and trees whose 90 % HDI "
+            "holds 2.5",
+            "",
+            f"draws = tune = {FIT['draws']}, {FIT['chains']} chains, relative error {FIT['rel_error']} (the model "
+            "integrates the sample noise out; what is left is the bias of each rule).",
+            "",
+        ]
+        lines += _table(
+            _cells(
+                rec,
+                lambda g: f"{g['model_mean'].mean() - TRUE_EXPONENT:+.3f} ({_covers(g)}/{len(g)})",
+            ),
+            "radius rule",
+        )
+        std = rec[rec["profile"] == standard]
+        lines += [
+            "",
+            f"### Standard case ({standard}), every tree: model exponent [90 % HDI] and junctions used",
+            "",
+            "| radius rule | " + " | ".join(f"tree {t}" for t in range(trees)) + " | junctions used |",
+            "|---" * (trees + 2) + "|",
+        ]
+        for rule, group in std.groupby("rule", sort=False):
+            cells = [
+                f"{r['model_mean']:.3f} [{r['model_hdi_low']:.3f}, {r['model_hdi_high']:.3f}]"
+                for _, r in group.iterrows()
+            ]
+            used = " / ".join(str(int(n)) for n in group["junctions"])
+            lines.append(f"| {rule} | " + " | ".join(cells) + f" | {used} |")
+    return lines
+
+
+def _markdown(rec: pd.DataFrame, timing: pd.DataFrame, load: tuple[float, float, float]) -> str:
     lines = [
         "# Networks to junctions: recovery through SWC tracing and conversion speed",
         "",
@@ -234,38 +344,7 @@ def _markdown(rec: pd.DataFrame, timing: pd.DataFrame, load: tuple[float, float,
         f"{os.cpu_count()} cores; load average at the end {load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f}. "
         "All networks are simulated (invented data).",
         "",
-        "## Recovery of a known exponent (a = 2.5) by radius rule",
-        "",
-        f"{RECOVERY['trees']} simulated trees of {RECOVERY['junctions_per_tree']} junctions (biological scatter "
-        f"{RECOVERY['scatter']:.0%} per daughter), traced into SWC: a sample every {RECOVERY['spacing_um']} um, "
-        f"flare from the parent's radius at each section's start and {RECOVERY['swelling']:.0%} swelling towards "
-        f"each branch point (over {RECOVERY['decay_radii']:g} local radius), {RECOVERY['noise']:.0%} log-normal "
-        "noise per sample. Naive per-junction exponents ignore measurement error (median over junctions, then "
-        "mean +- SD over trees).",
-        "",
-        "| radius rule | naive median exponent | shift from 2.5 | naive mean exponent | junctions without a root |",
-        "|---|---|---|---|---|",
-    ]
-    for rule, r in agg.iterrows():
-        lines.append(
-            f"| {rule} | {r['median_mean']:.3f} +- {r['median_sd']:.3f} | {r['median_mean'] - TRUE_EXPONENT:+.3f} | "
-            f"{r['mean_mean']:.3f} | {r['no_root']:.1%} |"
-        )
-    if "model_mean" in rec.columns:
-        fits = rec.dropna(subset=["model_mean"])
-        lines += [
-            "",
-            f"Model fit on tree 0 (population exponent, 90 % HDI; draws = tune = {FIT['draws']}, "
-            f"{FIT['chains']} chains, relative error {FIT['rel_error']}):",
-            "",
-            "| radius rule | model exponent | 90 % HDI |",
-            "|---|---|---|",
-        ]
-        lines += [
-            f"| {r['rule']} | {r['model_mean']:.3f} | [{r['model_hdi_low']:.3f}, {r['model_hdi_high']:.3f}] |"
-            for _, r in fits.iterrows()
-        ]
-    lines += [
+        *_recovery_markdown(rec),
         "",
         "## Conversion time of 10^5-segment networks",
         "",
@@ -286,10 +365,13 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--no-fit", action="store_true", help="skip the model fits")
     parser.add_argument("--no-write", action="store_true", help="print only")
+    parser.add_argument("--no-speed", action="store_true", help="skip the conversion times (with --no-write)")
     args = parser.parse_args()
+    if args.no_speed and not args.no_write:
+        parser.error("--no-speed leaves the results incomplete; give --no-write with it")
     with tempfile.TemporaryDirectory() as tmp:
         rec = recovery(Path(tmp), fit=not args.no_fit)
-        timing = speed(Path(tmp))
+        timing = speed(Path(tmp)) if not args.no_speed else pd.DataFrame(columns=["network"])
     text = _markdown(rec, timing, os.getloadavg())
     print(text)
     if not args.no_write:

@@ -92,6 +92,25 @@ def test_check_reads_edges_and_swc(tmp_path, capsys):
     assert "junctions used: 40; taxa: 1; specimens: 2" in out and "radius in um" in out  # SWC unit by default
 
 
+def test_swc_radius_rule_options_reach_the_outputs_and_the_recipe(tmp_path, capsys):
+    seg = simulate_segments(20, exponent=2.0, seed=3)
+    swc = write_swc(trace_swc(seg, seed=4), tmp_path / "cell.swc", SIMULATED_NOTE)
+    out, recipe = tmp_path / "out", tmp_path / "swc.toml"
+    args = ["check", "--swc", str(swc), "--trim-radii", "2", "--out", str(out), "--save-recipe", str(recipe)]
+    assert main(args) == 0
+    assert "trim_radii = 2.0" in capsys.readouterr().err
+    written = pd.read_csv(out / "junctions.csv", dtype={"daughter_samples": str})
+    # every radius was read from at least one sample, and each daughter has its own count
+    assert (written["parent_samples"] >= 1).all()
+    assert (written["daughter_samples"].str.count(";") == 1).all()
+    # the recipe states the rule in effect, so a later default cannot change the numbers
+    section = load_network_recipe(recipe)
+    assert section["radius_rule"] == "trimmed_median" and section["trim_radii"] == 2.0
+    assert section["branch_point_sections"] == "exclude"
+    assert main(["check", "--swc", str(swc), "--trim", "1", "--trim-radii", "2"]) == 2
+    assert "given together" in capsys.readouterr().err
+
+
 @pytest.mark.parametrize(
     "extra, message",
     [

@@ -13,11 +13,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from allobranch.errors import InputError
+from allobranch.errors import InputError, RecipeError
 from allobranch.geometry import junction_geometry
 from allobranch.networks import junctions_from_segments, junctions_from_swc, write_swc
 from allobranch.networks.simulate import SIMULATED_NOTE, simulate_segments, trace_swc
-from allobranch.networks.swc import parse_swc, swc_text
+from allobranch.networks.swc import RadiusRule, parse_swc, swc_text
 
 # A soma (1) with a dendrite and an axon leaving it. The dendrite's first section 2-4 ends at branch point 4;
 # there it splits into 5-6 (which branches again at 6 into tips 9 and 10) and 7-8. Sample 11 is an axon tip.
@@ -71,27 +71,90 @@ def test_near_branch_reads_next_to_the_junction(hand):
     assert out[["parent", "d1", "d2"]].to_numpy().tolist() == [[2.0, 1.6, 1.5], [1.6, 1.1, 1.0]]
 
 
-def test_trimmed_median_leaves_out_the_ends(tmp_path):
-    # One straight section of 11 samples one unit apart (x = 1..11; path distance s = x - 0.5 from a soma at
-    # x = 0.5, so the section is 10.5 long), ending in a branch point with two tips. Radii: 3.0 near both
-    # ends, about 1 in the middle (x = 4..8).
-    r = [3.0, 3.0, 3.0, 1.0, 1.0, 1.2, 1.0, 1.0, 3.0, 3.0, 3.0]
-    lines = ["1 1 0.5 0 0 4 -1"] + [f"{k + 2} 3 {k + 1} 0 0 {r[k]} {k + 1}" for k in range(11)]
-    lines += ["13 3 12 1 0 0.5 12", "14 3 12 -1 0 0.6 12"]
+def _one_section(tmp_path, radii, daughters):
+    """A soma at x = 0 and one straight section of samples at x = 1, 2, ... (path distance s = x from the
+    soma), ending in a branch point whose two daughters are given as lists of radii along +y and -y."""
+    lines = ["1 1 0 0 0 4 -1"] + [f"{k + 2} 3 {k + 1} 0 0 {r} {k + 1}" for k, r in enumerate(radii)]
+    end, next_id = len(radii) + 1, len(radii) + 2
+    for sign, rs in zip((1, -1), daughters):
+        up = end
+        for k, r in enumerate(rs):
+            lines.append(f"{next_id} 3 {len(radii)} {sign * (k + 1)} 0 {r} {up}")
+            up, next_id = next_id, next_id + 1
     path = tmp_path / "one.swc"
     path.write_text("\n".join(lines) + "\n")
-    # trim 3.5: keep samples with 3.5 <= s <= 10.5 - 3.5, i.e. x = 4..7 -> numpy median of 1.0, 1.0, 1.2, 1.0
-    out = junctions_from_swc(path, trim=3.5).frame
-    assert out["parent"].iloc[0] == np.median([1.0, 1.0, 1.2, 1.0])
-    # default trim: twice the end samples' radii (3.0 -> 6.0 at both ends) leaves nothing of a 10.5-long
-    # section, so its sample nearest the middle (s = 5.5 of 10.5, x = 6, radius 1.2) is used and counted
+    return path
+
+
+def test_default_rule_trims_four_end_radii_and_reads_short_sections_at_the_middle(tmp_path):
+    # Parent section: samples at s = 1..12 (x = 1..12), the last the branch point. Flare at the start
+    # (0.5, 0.45), a plateau near 0.4 (s = 3..9) and swelling towards the branch point (0.5, 0.6, 0.75).
+    parent = [0.5, 0.45, 0.40, 0.41, 0.39, 0.42, 0.40, 0.38, 0.41, 0.5, 0.6, 0.75]
+    # Daughter 1: samples at s = 1..4 from the branch point, radii 0.6, 0.3, 0.35, 0.5 (a tip at s = 4);
+    # daughter 2: one tip sample 0.2.
+    path = _one_section(tmp_path, parent, [[0.6, 0.3, 0.35, 0.5], [0.2]])
     res = junctions_from_swc(path)
-    assert res.frame["parent"].iloc[0] == 1.2
-    assert any(
-        "section(s) too short" in n and n.startswith("3 ") for n in res.notes
-    )  # the section and both tips
-    # trim 0 keeps every sample: the plain median
-    assert junctions_from_swc(path, trim=0.0).frame["parent"].iloc[0] == np.median(r)
+    row = res.frame.iloc[0]
+    # By hand, default trim 4 radii of the end sample: 4 x 0.5 = 2 at the start (s >= 2) and 4 x 0.75 = 3 at
+    # the branch point (s <= 12 - 3 = 9): samples s = 2..9, radii 0.45 0.40 0.41 0.39 0.42 0.40 0.38 0.41;
+    # sorted, the middle two are 0.40 and 0.41, so the median is 0.405 (numpy's median agrees).
+    assert row["parent"] == pytest.approx(0.405) == np.median(parent[1:9])
+    assert row["parent_samples"] == 8
+    # Daughter 1 (4 long): trims 4 x 0.6 = 2.4 and 4 x 0.5 = 2.0 leave no sample (2.4 <= s <= 2.0), so its
+    # sample nearest the middle (s = 2, radius 0.3) is used; the one-sample tip daughter is read at that sample.
+    assert (row["d1"], row["d2"]) == (0.3, 0.2)
+    assert row["daughter_samples"] == "1;1"
+    assert res.rules["radius_rule"] == "trimmed_median" and res.rules["trim_radii"] == 4.0
+    assert any(n.startswith("2 of 3 section(s) too short for the trim") for n in res.notes)
+    # the earlier default, two end radii, stays available: trims 1.0 and 1.5 keep s = 1..10, ten radii,
+    # median of the middle two (0.41 and 0.41 once sorted) = 0.41
+    old = junctions_from_swc(path, trim_radii=2).frame.iloc[0]
+    assert old["parent"] == pytest.approx(0.41) == np.median(parent[:10]) and old["parent_samples"] == 10
+    # one distance for every section: trim 3.5 keeps s = 4..8 (0.41 0.39 0.42 0.40 0.38), median 0.40
+    assert junctions_from_swc(path, trim=3.5).frame["parent"].iloc[0] == np.median(parent[3:8]) == 0.40
+    # trim 0 keeps every sample: the plain median, as the median rule gives
+    plain = junctions_from_swc(path, trim=0.0).frame.iloc[0]
+    assert (
+        plain["parent"]
+        == np.median(parent)
+        == junctions_from_swc(path, radius_rule="median").frame["parent"].iloc[0]
+    )
+    assert plain["parent_samples"] == 12
+
+
+def test_trim_options_are_checked():
+    with pytest.raises(RecipeError, match="trim .* and trim_radii .* given together"):
+        RadiusRule(trim=1.0, trim_radii=2.0)
+    with pytest.raises(RecipeError, match="trim_radii must be 0 or more"):
+        RadiusRule(trim_radii=-1.0)
+    with pytest.raises(RecipeError, match="radius_rule: unknown value 'mean'"):
+        RadiusRule("mean")
+
+
+def test_junctions_at_a_section_of_one_branch_point_sample_are_listed_and_left_out(tmp_path):
+    # HAND_SWC with sample 6 hung from branch point 4 (so 4 has daughters 5, 6 and 7-8) and two tips added
+    # below 8. Sample 6 keeps its tips 9 and 10, so section "6" is one sample that is a branch point.
+    # Junction 8 (parent 7-8, tips 12 and 13) is ordinary. Sample k is on line k + 1 (a comment first).
+    text = HAND_SWC.replace("6 3 9 2 0 1.8 5", "6 3 9 2 0 1.8 4") + "12 3 10 -3 0 1.2 8\n13 3 10 -1 0 1.1 8\n"
+    path = tmp_path / "adjacent.swc"
+    path.write_text(text)
+    res = junctions_from_swc(path, radius_rule="median")
+    # 4 has section 6 as a daughter and 6 has it as its parent: both left out, each listed with its line
+    assert res.frame["junction"].tolist() == ["8"]
+    left = [(p.severity, p.row, p.code) for p in res.problems]
+    assert left == [("excluded", 5, "branch_point_section"), ("excluded", 7, "branch_point_section")]
+    assert "daughter section 6 is one branch-point sample" in res.problems[0].message
+    assert "parent section 6 is one branch-point sample" in res.problems[1].message
+    # kept on request: section 6 then has the branch point's own radius 1.8 as daughter of 4 and parent of 6
+    kept = junctions_from_swc(path, radius_rule="median", branch_point_sections="keep").frame
+    assert kept["junction"].tolist() == ["4", "6", "8"]
+    assert kept.set_index("junction").loc["6", "parent"] == 1.8
+    # junction 4's daughters, largest first: section 6 (1.8), tip 5 (1.6), 7-8 (numpy median of 1.5, 1.4)
+    four = kept.set_index("junction").loc["4"]
+    assert four["daughter_segments"] == "6;5;7-8"
+    np.testing.assert_allclose(four[["d1", "d2", "d3"]].astype(float), [1.8, 1.6, np.median([1.5, 1.4])])
+    # the tree itself is unchanged: junction 8 has generation 1 (below branch point 4) either way
+    assert kept.set_index("junction").loc["8", "generation"] == res.frame["generation"].iloc[0] == 1
 
 
 def test_type_selection_uses_the_branch_points_type(hand):

@@ -10,26 +10,71 @@ from pathlib import Path
 from typing import Any
 
 from allobranch.intake.mapping import ColumnMapping
+from allobranch.networks.rules import CHOICES, NEAR_POINTS, TRIM_RADII
+
+#: Every network option by ``dest`` (the recipe key), with its argparse keywords; a ``choices`` entry names
+#: its list in :data:`allobranch.networks.rules.CHOICES`.
+NETWORK_ARGUMENTS: dict[str, dict[str, Any]] = {
+    "segment_id": {"metavar": "COL", "help": "segment id column"},
+    "parent_id": {"metavar": "COL", "help": "parent segment's id column (empty for a root)"},
+    "size": {"metavar": "COL", "help": "segment (or edge) size column"},
+    "length": {"metavar": "COL", "help": "segment length column (weights merged continuations)"},
+    "continuations": {
+        "choices": "continuations",
+        "help": "segments with one child: merge them with the segment below (default) or keep the pieces "
+        "(a junction's parent is then the piece just above it); never junctions",
+    },
+    "roots": {
+        "choices": "roots",
+        "help": "roots per specimen: one (default for tables) or many (default for SWC files)",
+    },
+    "edges": {"metavar": "FILE", "help": "edge list, one row per edge"},
+    "node_from": {"metavar": "COL", "help": "first node column (default from)"},
+    "node_to": {"metavar": "COL", "help": "second node column (default to)"},
+    "root": {
+        "metavar": "ID|SPEC=ID,...",
+        "help": "root (inlet) node of the edge list: one id, or one per specimen",
+    },
+    "loops": {
+        "choices": "loops",
+        "help": "loops in an edge list: remove the thinnest edge of each (default, listed) or stop with an "
+        "error",
+    },
+    "swc": {"metavar": "FILE|DIR", "help": "SWC file, or folder of SWC files"},
+    "radius_rule": {
+        "choices": "radius_rule",
+        "help": "section radius from its samples: median leaving out --trim-radii (or --trim) at both ends "
+        "(default), next to the branch point, or median of all",
+    },
+    "trim": {
+        "type": float,
+        "metavar": "DIST",
+        "help": "trimmed_median: one distance left out at each section end (instead of --trim-radii)",
+    },
+    "trim_radii": {
+        "type": float,
+        "metavar": "K",
+        "help": f"trimmed_median: leave out K radii of the end sample at each section end (default "
+        f"{TRIM_RADII:g})",
+    },
+    "near_points": {
+        "type": int,
+        "metavar": "N",
+        "help": f"near_branch: samples read on each side of a junction (default {NEAR_POINTS})",
+    },
+    "neurite_types": {
+        "choices": "neurite_types",
+        "help": "SWC junctions kept by the type of their branch point (default all)",
+    },
+    "branch_point_sections": {
+        "choices": "branch_point_sections",
+        "help": "SWC junctions with a parent or daughter section of one branch-point sample (no radius apart "
+        "from the branch point's own): leave them out, listed (default), or keep them",
+    },
+}
 
 #: Command-line spelling of every network option (``dest`` is the recipe key).
-NETWORK_FLAGS: dict[str, str] = {
-    "segment_id": "--segment-id",
-    "parent_id": "--parent-id",
-    "size": "--size",
-    "length": "--length",
-    "continuations": "--continuations",
-    "roots": "--roots",
-    "edges": "--edges",
-    "node_from": "--node-from",
-    "node_to": "--node-to",
-    "root": "--root",
-    "loops": "--loops",
-    "swc": "--swc",
-    "radius_rule": "--radius-rule",
-    "trim": "--trim",
-    "near_points": "--near-points",
-    "neurite_types": "--neurite-types",
-}
+NETWORK_FLAGS: dict[str, str] = {key: "--" + key.replace("_", "-") for key in NETWORK_ARGUMENTS}
 
 #: Unit of SWC files when neither the options nor the recipe name one (the SWC convention).
 SWC_DEFAULT_UNIT = "um"
@@ -43,8 +88,6 @@ def add_network_arguments(parser: argparse.ArgumentParser) -> None:
     parser : argparse.ArgumentParser
         The sub-command's parser (which also has the column-mapping options).
     """
-    from allobranch.networks.rules import CHOICES
-
     group = parser.add_argument_group(
         "network input",
         "Derive the junctions from a network instead of a junction table: a segment table (TABLE with "
@@ -52,79 +95,10 @@ def add_network_arguments(parser: argparse.ArgumentParser) -> None:
         "SWC morphologies (--swc FILE|DIR, no TABLE). --taxon/--specimen name the network table's columns. "
         "The same keys go under [network] in a recipe.",
     )
-    flag = NETWORK_FLAGS
-    group.add_argument(flag["segment_id"], dest="segment_id", metavar="COL", help="segment id column")
-    group.add_argument(
-        flag["parent_id"],
-        dest="parent_id",
-        metavar="COL",
-        help="parent segment's id column (empty for a root)",
-    )
-    group.add_argument(flag["size"], dest="size", metavar="COL", help="segment (or edge) size column")
-    group.add_argument(
-        flag["length"],
-        dest="length",
-        metavar="COL",
-        help="segment length column (weights merged continuations)",
-    )
-    group.add_argument(
-        flag["continuations"],
-        dest="continuations",
-        choices=CHOICES["continuations"],
-        help="segments with one child: merge them with the segment below (default) or keep the pieces "
-        "(a junction's parent is then the piece just above it); never junctions",
-    )
-    group.add_argument(
-        flag["roots"],
-        dest="roots",
-        choices=CHOICES["roots"],
-        help="roots per specimen: one (default for tables) or many (default for SWC files)",
-    )
-    group.add_argument(flag["edges"], dest="edges", metavar="FILE", help="edge list, one row per edge")
-    group.add_argument(
-        flag["node_from"], dest="node_from", metavar="COL", help="first node column (default from)"
-    )
-    group.add_argument(flag["node_to"], dest="node_to", metavar="COL", help="second node column (default to)")
-    group.add_argument(
-        flag["root"],
-        dest="root",
-        metavar="ID|SPEC=ID,...",
-        help="root (inlet) node of the edge list: one id, or one per specimen",
-    )
-    group.add_argument(
-        flag["loops"],
-        dest="loops",
-        choices=CHOICES["loops"],
-        help="loops in an edge list: remove the thinnest edge of each (default, listed) or stop with an error",
-    )
-    group.add_argument(flag["swc"], dest="swc", metavar="FILE|DIR", help="SWC file, or folder of SWC files")
-    group.add_argument(
-        flag["radius_rule"],
-        dest="radius_rule",
-        choices=CHOICES["radius_rule"],
-        help="section radius from its samples: median leaving out --trim at both ends (default), "
-        "next to the branch point, or median of all",
-    )
-    group.add_argument(
-        flag["trim"],
-        dest="trim",
-        type=float,
-        metavar="DIST",
-        help="trimmed_median: distance left out at each section end (default: two radii of the end sample)",
-    )
-    group.add_argument(
-        flag["near_points"],
-        dest="near_points",
-        type=int,
-        metavar="N",
-        help="near_branch: samples read on each side of a junction (default 2)",
-    )
-    group.add_argument(
-        flag["neurite_types"],
-        dest="neurite_types",
-        choices=CHOICES["neurite_types"],
-        help="SWC junctions kept by the type of their branch point (default all)",
-    )
+    for key, keywords in NETWORK_ARGUMENTS.items():
+        if "choices" in keywords:
+            keywords = {**keywords, "choices": CHOICES[keywords["choices"]]}
+        group.add_argument(NETWORK_FLAGS[key], dest=key, **keywords)
 
 
 def _root_value(text: str | None) -> str | dict[str, str] | None:
@@ -229,8 +203,9 @@ def write_network_outputs(network, geometry, junctions_csv: str | Path, *, force
     junctions_csv : str or path-like
         The per-junction geometry ``check`` has just written; its rows are the network's junctions in
         order. It is rewritten (atomically) with the columns ``parent_segment``, ``daughter_segments``,
-        ``generation``, ``strahler_order``, ``n_tips``, ``parent_rows``, ``daughter_rows``, ``source`` and
-        ``flags`` added, so every number can be traced to the user's file.
+        ``generation``, ``strahler_order``, ``n_tips``, ``parent_rows``, ``daughter_rows``, ``source``,
+        (for SWC files) ``parent_samples`` and ``daughter_samples``, and ``flags`` added, so every number
+        can be traced to the user's file.
     force : bool
         Replace existing figure files.
 
@@ -247,7 +222,7 @@ def write_network_outputs(network, geometry, junctions_csv: str | Path, *, force
     import pandas as pd
 
     from allobranch.io import atomic_write, prepare_output_dir
-    from allobranch.networks.assemble import TRACING_COLUMNS
+    from allobranch.networks.assemble import SAMPLE_COLUMNS, TRACING_COLUMNS
     from allobranch.reporting.plots.network import plot_network
     from allobranch.reporting.style import figure, save_figure
 
@@ -256,7 +231,8 @@ def write_network_outputs(network, geometry, junctions_csv: str | Path, *, force
     frame = network.frame
     if len(written) != len(frame) or (written["junction"].to_numpy() != frame["junction"].to_numpy()).any():
         raise ValueError(f"{dest} does not hold the network's junctions in order")
-    extra = frame[[*TRACING_COLUMNS, "flags"]].reset_index(drop=True)
+    samples = [c for c in SAMPLE_COLUMNS if c in frame.columns]
+    extra = frame[[*TRACING_COLUMNS, *samples, "flags"]].reset_index(drop=True)
     merged = pd.concat(
         [written.drop(columns=[c for c in extra.columns if c in written.columns]), extra], axis=1
     )

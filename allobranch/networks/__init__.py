@@ -29,13 +29,17 @@ _LAZY: dict[str, str] = {
     "NetworkJunctions": "allobranch.networks.result",
     "junctions_from_segments": "allobranch.networks.segments",
     "junctions_from_swc": "allobranch.networks.swc",
+    "RadiusRule": "allobranch.networks.swc",
+    "TableSettings": "allobranch.networks.cells",
     "read_swc": "allobranch.networks.swc",
     "write_swc": "allobranch.networks.swc",
+    "BRANCH_POINT_SECTION_RULES": "allobranch.networks.rules",
     "CONTINUATION_RULES": "allobranch.networks.rules",
     "LOOP_RULES": "allobranch.networks.rules",
     "NEURITE_TYPES": "allobranch.networks.rules",
     "RADIUS_RULES": "allobranch.networks.rules",
     "ROOT_RULES": "allobranch.networks.rules",
+    "TRIM_RADII": "allobranch.networks.rules",
 }
 
 __all__ = sorted(_LAZY)

@@ -31,6 +31,10 @@ TRACING_COLUMNS: tuple[str, ...] = (
     "source",
 )
 
+#: Columns added after the tracing columns when the converter read each size from several samples (SWC):
+#: how many samples the parent's size and each daughter's size (``;``-separated) were read from.
+SAMPLE_COLUMNS: tuple[str, ...] = ("parent_samples", "daughter_samples")
+
 #: Separator between the daughters of one junction in ``daughter_segments`` and ``daughter_rows``.
 DAUGHTER_SEP = ";"
 
@@ -49,12 +53,16 @@ class Runs:
         Size read at the run's far end, in the user's unit and measure (used when it is a parent).
     size_start : numpy.ndarray of float
         Size read at the run's near end (used when it is a daughter).
+    samples_end, samples_start : numpy.ndarray of int, optional
+        How many samples each of the two sizes was read from (SWC); gives the :data:`SAMPLE_COLUMNS`.
     """
 
     label: np.ndarray
     rows: np.ndarray
     size_end: np.ndarray
     size_start: np.ndarray
+    samples_end: np.ndarray | None = None
+    samples_start: np.ndarray | None = None
 
 
 def _ordered_runs(topology: Topology, taxon: np.ndarray, specimen: np.ndarray, runs: Runs) -> np.ndarray:
@@ -117,8 +125,9 @@ def assemble_junctions(
     Returns
     -------
     pandas.DataFrame
-        Columns ``taxon, specimen, junction, parent, d1 .. dK`` (sizes in the user's unit and measure) and
-        the :data:`TRACING_COLUMNS`; one row per junction in canonical order.
+        Columns ``taxon, specimen, junction, parent, d1 .. dK`` (sizes in the user's unit and measure),
+        the :data:`TRACING_COLUMNS` and, when the runs carry sample counts, the :data:`SAMPLE_COLUMNS`;
+        one row per junction in canonical order.
     """
     is_junction = np.asarray(eligible, dtype=bool) & (topology.n_children >= 2)
     rank = np.full(len(topology.run), -1, dtype=np.int64)
@@ -137,6 +146,7 @@ def assemble_junctions(
             "size": runs.size_start[kids],
             "label": runs.label[kids].astype(object),
             "rows": runs.rows[kids].astype(object),
+            "samples": runs.samples_start[kids] if runs.samples_start is not None else 0,
         }
     ).sort_values(["pos", "size", "label"], ascending=[True, False, True], kind="stable")
     long["k"] = long.groupby("pos").cumcount() + 1
@@ -163,6 +173,10 @@ def assemble_junctions(
     out["parent_rows"] = runs.rows[up].astype(str)
     out["daughter_rows"] = daughter_rows
     out["source"] = source[nodes].astype(str)
+    if runs.samples_end is not None:
+        out["parent_samples"] = runs.samples_end[up].astype(np.int64)
+        _, daughter_samples = join_groups(keys, [str(x) for x in long["samples"].tolist()], DAUGHTER_SEP)
+        out["daughter_samples"] = daughter_samples
     return out.reset_index(drop=True)
 
 

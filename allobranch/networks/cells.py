@@ -6,9 +6,11 @@ network table accepts exactly what a junction table accepts; the messages here s
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -23,6 +25,77 @@ from allobranch.intake.validate import (
     describe_unusable,
     parse_numbers,
 )
+from allobranch.networks.result import check_rule
+from allobranch.networks.rules import CONTINUATION_RULES, ROOT_RULES
+
+
+@dataclass(frozen=True)
+class TableSettings:
+    """How a network table (segment table or edge list) is read and its segments joined: the options the
+    segment-table and edge-list converters share.
+
+    Attributes
+    ----------
+    size : str
+        Column with each segment's (or edge's) size.
+    length : str, optional
+        Column with segment lengths; merged continuations then take the length-weighted mean size.
+    taxon, specimen : str, optional
+        Grouping columns (default: one taxon; one specimen per taxon); segment ids are unique within a
+        specimen.
+    continuations : {"merge", "keep"}
+        Segments with exactly one child (see :mod:`allobranch.networks.segments`).
+    roots : {"one", "many"}
+        ``"one"`` refuses a specimen with several trees; ``"many"`` accepts a forest.
+    sheet, encoding
+        As in :func:`allobranch.read_junctions`.
+
+    Raises
+    ------
+    RecipeError
+        For an unknown ``continuations`` or ``roots`` value.
+    """
+
+    size: str
+    length: str | None = None
+    taxon: str | None = None
+    specimen: str | None = None
+    continuations: str = "merge"
+    roots: str = "one"
+    sheet: str | int | None = None
+    encoding: str | None = None
+
+    def __post_init__(self) -> None:
+        check_rule("continuations", self.continuations, CONTINUATION_RULES)
+        check_rule("roots", self.roots, ROOT_RULES)
+
+    @classmethod
+    def split(cls, size: str, options: dict[str, Any]) -> tuple[TableSettings, dict[str, Any]]:
+        """The settings among keyword arguments, and the rest (measurement conventions).
+
+        Parameters
+        ----------
+        size : str
+            The size column.
+        options : dict
+            Keyword arguments of a converter: settings (``length``, ``taxon``, ...) and the measurement
+            conventions passed on to :func:`allobranch.read_junctions` (``unit``, ``measure``, ...).
+
+        Returns
+        -------
+        settings : TableSettings
+        measurement : dict
+            The keyword arguments that are not settings.
+
+        Examples
+        --------
+        >>> settings, rest = TableSettings.split("r", {"length": "len", "unit": "mm"})
+        >>> settings.length, settings.continuations, rest
+        ('len', 'merge', {'unit': 'mm'})
+        """
+        names = {f.name for f in dataclasses.fields(cls)} - {"size"}
+        chosen = {k: v for k, v in options.items() if k in names}
+        return cls(size=size, **chosen), {k: v for k, v in options.items() if k not in names}
 
 
 def check_columns(raw: RawTable, roles: Sequence[tuple[str | None, str]], option: str = "options") -> None:
@@ -251,15 +324,7 @@ class NetworkRows:
 
 
 def read_network_rows(
-    source: str | os.PathLike | pd.DataFrame,
-    *,
-    ids: Sequence[tuple[str, str, bool]],
-    size: str,
-    length: str | None,
-    taxon: str | None,
-    specimen: str | None,
-    sheet: str | int | None,
-    encoding: str | None,
+    source: str | os.PathLike | pd.DataFrame, *, ids: Sequence[tuple[str, str, bool]], settings: TableSettings
 ) -> NetworkRows:
     """Read a network table and check its id, group, size and length cells.
 
@@ -269,10 +334,8 @@ def read_network_rows(
         The table.
     ids : sequence of (column, what, required)
         Id columns, what they hold (for messages) and whether an empty cell is an error.
-    size, length, taxon, specimen : str or None
-        Columns (``length``, ``taxon`` and ``specimen`` optional).
-    sheet, encoding
-        As in :func:`allobranch.read_junctions`.
+    settings : TableSettings
+        The size, length and grouping columns, the sheet and the encoding.
 
     Returns
     -------
@@ -284,7 +347,8 @@ def read_network_rows(
         Naming file, row and column: missing columns, blank tables, missing labels, unusable sizes or
         lengths, a specimen under two taxa.
     """
-    raw = read_table(source, sheet=sheet, encoding=encoding)
+    size, length, taxon, specimen = settings.size, settings.length, settings.taxon, settings.specimen
+    raw = read_table(source, sheet=settings.sheet, encoding=settings.encoding)
     roles = [(c, what) for c, what, _ in ids]
     check_columns(raw, [*roles, (size, "size"), (length, "length"), (taxon, "taxon"), (specimen, "specimen")])
     out = _Collector(raw.label)

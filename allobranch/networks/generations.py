@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from allobranch.errors import InputError, Problem
+from allobranch.errors import InputError
 from allobranch.intake.readers import read_table
 from allobranch.intake.validate import _Collector, parse_numbers
 from allobranch.networks.cells import check_columns, non_blank, positive_numbers, raise_fatal
@@ -111,33 +111,24 @@ def _read(
     raise_fatal(out)
     order = np.argsort(gen_raw, kind="stable")
     g = gen_raw[order]
-    dup = np.flatnonzero(np.diff(g) == 0)
-    gaps = np.flatnonzero(np.diff(g) > 1)
-    problems = [
-        Problem(
-            "fatal",
-            raw.label,
-            int(rows[order[i + 1]]),
-            generation,
-            f"generation {g[i]:g} appears twice",
+    checks = (
+        (
+            np.diff(g) == 0,
+            "generation {0:g} appears twice",
             "give one row per generation",
             "duplicate_generation",
-        )
-        for i in dup
-    ] + [
-        Problem(
-            "fatal",
-            raw.label,
-            int(rows[order[i + 1]]),
-            generation,
-            f"generations {g[i]:g} and {g[i + 1]:g} are not consecutive",
+        ),
+        (
+            np.diff(g) > 1,
+            "generations {0:g} and {1:g} are not consecutive",
             "give every generation between the first and the last",
             "generation_gap",
-        )
-        for i in gaps
-    ]
-    if problems:
-        raise InputError(problems)
+        ),
+    )
+    for where, message, hint, code in checks:
+        for i in np.flatnonzero(where):
+            out.add("fatal", int(rows[order[i + 1]]), generation, message.format(g[i], g[i + 1]), hint, code)
+    raise_fatal(out)
     return g.astype(np.int64), sizes[order], factor[order]
 
 

@@ -27,9 +27,9 @@ import pandas as pd
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import breadth_first_order, connected_components
 
-from allobranch.networks.cells import raise_fatal, read_network_rows
+from allobranch.networks.cells import TableSettings, raise_fatal, read_network_rows
 from allobranch.networks.result import NetworkJunctions, check_rule
-from allobranch.networks.rules import LOOP_RULES, ROOT_RULES
+from allobranch.networks.rules import LOOP_RULES
 from allobranch.networks.segments import (
     SegmentForest,
     derive_from_forest,
@@ -102,15 +102,9 @@ def read_edge_forest(
     *,
     node_from: str,
     node_to: str,
-    size: str,
     root: str | Mapping[str, str],
-    length: str | None = None,
-    taxon: str | None = None,
-    specimen: str | None = None,
-    loops: str = "break_thinnest",
-    roots: str = "one",
-    sheet: str | int | None = None,
-    encoding: str | None = None,
+    loops: str,
+    settings: TableSettings,
 ) -> SegmentForest:
     """Read an edge list, orient it from the root and return it as a forest of segments.
 
@@ -120,19 +114,13 @@ def read_edge_forest(
         The edge list (any table :func:`allobranch.intake.readers.read_table` reads).
     node_from, node_to : str
         Columns with the two node ids of each edge (either direction).
-    size : str
-        Column with the edge's size.
     root : str or mapping of str to str
         The root node's id: one id used in every specimen, or ``{specimen: id}``.
-    length, taxon, specimen : str, optional
-        Optional columns.
     loops : {"break_thinnest", "error"}
         See the module notes.
-    roots : {"one", "many"}
-        ``"one"`` requires the root node to have a single edge (the inlet); ``"many"`` lets several
-        trees leave the root node.
-    sheet, encoding
-        As in :func:`allobranch.read_junctions`.
+    settings : TableSettings
+        Size, length and grouping columns, sheet and encoding; ``roots="one"`` requires the root node to
+        have a single edge (the inlet), ``"many"`` lets several trees leave it.
 
     Returns
     -------
@@ -147,17 +135,10 @@ def read_edge_forest(
         ``roots="one"``).
     """
     check_rule("loops", loops, LOOP_RULES)
-    check_rule("roots", roots, ROOT_RULES)
     cells = read_network_rows(
-        source,
-        ids=[(node_from, "from-node id", True), (node_to, "to-node id", True)],
-        size=size,
-        length=length,
-        taxon=taxon,
-        specimen=specimen,
-        sheet=sheet,
-        encoding=encoding,
+        source, ids=[(node_from, "from-node id", True), (node_to, "to-node id", True)], settings=settings
     )
+    size = settings.size
     out, rows, (a, b) = cells.out, cells.rows, cells.ids
     taxa_arr, spec_arr, sizes, lengths = cells.taxon, cells.specimen, cells.size, cells.length
     raise_fatal(out)
@@ -216,7 +197,7 @@ def read_edge_forest(
             continue
         kept, parent, lower, removed = _orient(u, v, sizes[positions], len(nodes), r)
         degree = int(((u == r) | (v == r)).sum())
-        if roots == "one" and degree > 1:
+        if settings.roots == "one" and degree > 1:
             out.add(
                 "fatal",
                 first,
@@ -287,15 +268,8 @@ def junctions_from_edges(
     root: str | Mapping[str, str],
     node_from: str = "from",
     node_to: str = "to",
-    length: str | None = None,
-    taxon: str | None = None,
-    specimen: str | None = None,
     loops: str = "break_thinnest",
-    continuations: str = "merge",
-    roots: str = "one",
-    sheet: str | int | None = None,
-    encoding: str | None = None,
-    **mapping_kwargs: Any,
+    **options: Any,
 ) -> NetworkJunctions:
     """Junctions of a vessel graph given as an edge list.
 
@@ -309,18 +283,12 @@ def junctions_from_edges(
         The root (inlet) node: one id for every specimen, or ``{specimen: id}``.
     node_from, node_to : str
         Columns with the two node ids (default ``"from"`` and ``"to"``; direction does not matter).
-    length, taxon, specimen : str, optional
-        Optional columns (lengths weight merged continuations).
     loops : {"break_thinnest", "error"}
         Loop handling (see the module notes).
-    continuations : {"merge", "keep"}
-        Nodes with one edge in and one out (see :mod:`allobranch.networks.segments`).
-    roots : {"one", "many"}
-        Whether the root node may have several edges.
-    sheet, encoding
-        As in :func:`allobranch.read_junctions`.
-    **mapping_kwargs
-        ``unit``, ``measure``, ``rel_error``, passed to :func:`allobranch.read_junctions`.
+    **options
+        As for :func:`allobranch.networks.segments.junctions_from_segments`: table settings (``roots``
+        there is whether the root node may have several edges; ``continuations`` concerns nodes with one
+        edge in and one out), then measurement conventions.
 
     Returns
     -------
@@ -335,21 +303,11 @@ def junctions_from_edges(
     >>> res.frame[["junction", "parent_segment", "daughter_segments"]].to_dict("records")
     [{'junction': '1', 'parent_segment': '0-1', 'daughter_segments': '2-1;1-3'}]
     """
+    settings, measurement = TableSettings.split(size, options)
     forest = read_edge_forest(
-        source,
-        node_from=node_from,
-        node_to=node_to,
-        size=size,
-        root=root,
-        length=length,
-        taxon=taxon,
-        specimen=specimen,
-        loops=loops,
-        roots=roots,
-        sheet=sheet,
-        encoding=encoding,
+        source, node_from=node_from, node_to=node_to, root=root, loops=loops, settings=settings
     )
-    rules = {"root": root if isinstance(root, str) else dict(root), "loops": loops, "roots": roots}
+    rules = {"root": root if isinstance(root, str) else dict(root), "loops": loops, "roots": settings.roots}
     return derive_from_forest(
-        forest, kind="edges", continuations=continuations, rules=rules, **mapping_kwargs
+        forest, kind="edges", continuations=settings.continuations, rules=rules, **measurement
     )

@@ -18,7 +18,8 @@ A recipe may describe a network instead of a junction table::
     # root = "0"                  #     one root node, or a table: root = { lung1 = "0", lung2 = "17" }
     # loops = "break_thinnest"    #     or "error"
     # swc = "cells/"              # ... or SWC file(s), with
-    # radius_rule = "trimmed_median"; trim = 2.0; near_points = 2; neurite_types = "dendrite"
+    # radius_rule = "trimmed_median"; trim_radii = 4.0 (or trim = 1.5); near_points = 2
+    # neurite_types = "dendrite"; branch_point_sections = "exclude"
 
 The keys are the fields of :class:`NetworkOptions`; the command-line options of the same names override them.
 """
@@ -28,6 +29,7 @@ from __future__ import annotations
 import dataclasses
 import os
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -40,9 +42,9 @@ from allobranch.intake.recipe import NETWORK_SIZE_COLUMNS, RECIPE_SECTIONS, _tom
 from allobranch.io import atomic_write, prepare_output_dir
 from allobranch.networks.graph import junctions_from_edges
 from allobranch.networks.result import NetworkJunctions
-from allobranch.networks.rules import CHOICES
+from allobranch.networks.rules import CHOICES, NEAR_POINTS
 from allobranch.networks.segments import junctions_from_segments
-from allobranch.networks.swc import NEAR_POINTS, junctions_from_swc
+from allobranch.networks.swc import RadiusRule, junctions_from_swc
 
 #: The recipe section holding the network options.
 NETWORK_SECTION = "network"
@@ -62,9 +64,34 @@ KIND_OF: dict[str, str] = {
     "swc": "swc",
     "radius_rule": "swc",
     "trim": "swc",
+    "trim_radii": "swc",
     "near_points": "swc",
     "neurite_types": "swc",
+    "branch_point_sections": "swc",
 }
+
+#: Options that segment tables and edge lists share (:class:`~allobranch.networks.cells.TableSettings`).
+TABLE_OPTIONS: tuple[str, ...] = ("size", "length", "continuations")
+
+#: The converter of each kind of input.
+CONVERTERS: dict[str, Callable[..., NetworkJunctions]] = {
+    "segments": junctions_from_segments,
+    "edges": junctions_from_edges,
+    "swc": junctions_from_swc,
+}
+
+
+def converter_options(kind: str) -> tuple[str, ...]:
+    """The :class:`NetworkOptions` fields a kind's converter takes, besides its input and ``roots``.
+
+    Examples
+    --------
+    >>> converter_options("segments")
+    ('segment_id', 'parent_id', 'size', 'length', 'continuations')
+    """
+    own = tuple(k for k, of in KIND_OF.items() if of == kind and k != kind)  # "edges"/"swc" name the input
+    return own + (TABLE_OPTIONS if kind != "swc" else ())
+
 
 #: Mapping fields that have no meaning for a network (its junctions are derived, one row each).
 NOT_FOR_NETWORKS: tuple[str, ...] = ("junction", "se", "repeats")
@@ -97,7 +124,7 @@ class NetworkOptions:
         Loop handling of edge lists.
     swc : str, optional
         SWC file or folder.
-    radius_rule, trim, near_points, neurite_types
+    radius_rule, trim, trim_radii, near_points, neurite_types, branch_point_sections
         SWC options (see :func:`allobranch.networks.junctions_from_swc`).
     """
 
@@ -116,8 +143,10 @@ class NetworkOptions:
     swc: str | None = None
     radius_rule: str = "trimmed_median"
     trim: float | None = None
+    trim_radii: float | None = None
     near_points: int = NEAR_POINTS
     neurite_types: str = "all"
+    branch_point_sections: str = "exclude"
     given: tuple[str, ...] = field(default_factory=tuple)
 
     def rule_values(self) -> dict[str, Any]:
@@ -126,9 +155,18 @@ class NetworkOptions:
         rules = {
             "segments": {"continuations": self.continuations, "roots": roots},
             "edges": {"continuations": self.continuations, "roots": roots, "loops": self.loops},
-            "swc": {"radius_rule": self.radius_rule, "neurite_types": self.neurite_types, "roots": roots},
+            "swc": {
+                **self.radius_rule_used().rules(),
+                "branch_point_sections": self.branch_point_sections,
+                "neurite_types": self.neurite_types,
+                "roots": roots,
+            },
         }[self.kind]
         return {**{k: getattr(self, k) for k in self.given}, **rules}
+
+    def radius_rule_used(self) -> RadiusRule:
+        """The SWC radius rule these options select (checked)."""
+        return RadiusRule(self.radius_rule, self.trim, self.trim_radii, self.near_points)
 
 
 #: The option names (recipe keys and keyword arguments).
@@ -149,9 +187,9 @@ def _type_problem(origin: str, key: str, value: Any) -> Problem | None:
             isinstance(value, dict) and all(isinstance(v, str) for v in value.values())
         )
         want = 'a node id in quotes, or a table {specimen = "id", ...}'
-    elif key == "trim":
+    elif key in ("trim", "trim_radii"):
         ok = isinstance(value, (int, float)) and not isinstance(value, bool) and value >= 0
-        want = "a distance of 0 or more"
+        want = "a number of 0 or more"
     elif key == "near_points":
         ok = isinstance(value, int) and not isinstance(value, bool) and value >= 1
         want = "a whole number of 1 or more"
@@ -337,43 +375,15 @@ def junctions_from_options(
     if mapping.covariates:
         measurement["covariates"] = list(mapping.covariates)
     roots = options.roots or ("many" if options.kind == "swc" else "one")
+    keywords = {k: getattr(options, k) for k in converter_options(options.kind)}
     if options.kind == "swc":
-        result = junctions_from_swc(
-            options.swc,
-            radius_rule=options.radius_rule,
-            trim=options.trim,
-            near_points=options.near_points,
-            neurite_types=options.neurite_types,
-            taxon=None,
-            roots=roots,
-            encoding=mapping.encoding,
-            **measurement,
-        )
+        source, grouping = options.swc, {"taxon": None}
     else:
-        common = {
-            "size": options.size,
-            "length": options.length,
-            "taxon": mapping.taxon,
-            "specimen": mapping.specimen,
-            "continuations": options.continuations,
-            "roots": roots,
-            "sheet": mapping.sheet,
-            "encoding": mapping.encoding,
-        }
-        if options.kind == "edges":
-            result = junctions_from_edges(
-                options.edges,
-                root=options.root,
-                node_from=options.node_from,
-                node_to=options.node_to,
-                loops=options.loops,
-                **common,
-                **measurement,
-            )
-        else:
-            result = junctions_from_segments(
-                table, segment_id=options.segment_id, parent_id=options.parent_id, **common, **measurement
-            )
+        source = table if options.kind == "segments" else options.edges
+        grouping = {"taxon": mapping.taxon, "specimen": mapping.specimen, "sheet": mapping.sheet}
+    result = CONVERTERS[options.kind](
+        source, **keywords, **grouping, roots=roots, encoding=mapping.encoding, **measurement
+    )
     result.mapping, result.options = mapping, options
     return result
 

@@ -9,10 +9,14 @@ from typing import Any
 
 import pandas as pd
 
+from allobranch import errors
 from allobranch.errors import InputError, Problem, RecipeError
 from allobranch.intake import read_junctions
 from allobranch.intake.table import JunctionTable
 from allobranch.networks.assemble import DAUGHTER_SEP, daughter_columns
+
+#: How many network-level problems of one kind :meth:`NetworkJunctions.describe` prints before a count.
+SHOWN_PROBLEMS = 10
 
 #: Columns of :attr:`NetworkJunctions.continuations`.
 CONTINUATION_COLUMNS: tuple[str, ...] = ("taxon", "specimen", "segment", "child", "source", "row")
@@ -46,7 +50,7 @@ def option_error(message: str, hint: str) -> RecipeError:
     RecipeError
         The error to raise.
     """
-    return RecipeError([Problem("fatal", "<options>", None, None, message, hint, "bad_option")])
+    return errors.option_error(message, hint, "bad_option")
 
 
 @dataclass
@@ -92,11 +96,24 @@ class NetworkJunctions:
     options: Any = None
 
     def describe(self) -> list[str]:
-        """Lines telling the user how the junctions were derived (rules, notes, network-level problems)."""
+        """Lines telling the user how the junctions were derived (rules, notes, network-level problems).
+
+        At most :data:`SHOWN_PROBLEMS` problems of each kind (code) are printed, then how many more there are;
+        :attr:`problems` holds them all.
+        """
         rules = "; ".join(f"{k} = {v}" for k, v in self.rules.items())
         lines = [f"Network ({self.kind}): {len(self.frame)} junctions derived; rules: {rules}"]
         lines += [f"  {note}" for note in self.notes]
-        lines += [f"  {p.format()}" for p in self.problems]
+        shown: dict[str, int] = {}
+        for p in self.problems:
+            shown[p.code] = shown.get(p.code, 0) + 1
+            if shown[p.code] <= SHOWN_PROBLEMS:
+                lines.append(f"  {p.format()}")
+        lines += [
+            f"  ... and {count - SHOWN_PROBLEMS} more '{code}' problem(s) like these"
+            for code, count in shown.items()
+            if count > SHOWN_PROBLEMS
+        ]
         return lines
 
 

@@ -21,6 +21,17 @@ LOOP_RULES: tuple[str, ...] = ("break_thinnest", "error")
 #: SWC section radius rules (see :mod:`allobranch.networks.swc`).
 RADIUS_RULES: tuple[str, ...] = ("trimmed_median", "near_branch", "median")
 
+#: ``trimmed_median``: default trim at each end of a section, in radii of the section's sample at that end
+#: (the reasons are in :mod:`allobranch.networks.swc`).
+TRIM_RADII = 4.0
+
+#: SWC sections made of one sample that is a branch point: leave out the junctions they belong to (listed),
+#: or keep them with the branch point's own radius (see :mod:`allobranch.networks.swc`).
+BRANCH_POINT_SECTION_RULES: tuple[str, ...] = ("exclude", "keep")
+
+#: ``near_branch``: default number of samples read next to a junction.
+NEAR_POINTS = 2
+
 #: SWC type codes.
 SOMA, AXON, BASAL, APICAL = 1, 2, 3, 4
 
@@ -39,5 +50,6 @@ CHOICES: dict[str, tuple[str, ...]] = {
     "roots": ROOT_RULES,
     "loops": LOOP_RULES,
     "radius_rule": RADIUS_RULES,
+    "branch_point_sections": BRANCH_POINT_SECTION_RULES,
     "neurite_types": tuple(NEURITE_TYPES),
 }

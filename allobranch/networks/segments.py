@@ -20,14 +20,14 @@ import pandas as pd
 from allobranch.errors import Problem
 from allobranch.intake.validate import _Collector
 from allobranch.networks.assemble import Runs, assemble_junctions, join_groups
-from allobranch.networks.cells import raise_fatal, read_network_rows
+from allobranch.networks.cells import TableSettings, raise_fatal, read_network_rows
 from allobranch.networks.result import (
     CONTINUATION_COLUMNS,
     NetworkJunctions,
     check_rule,
     validate_frame,
 )
-from allobranch.networks.rules import CONTINUATION_RULES, ROOT_RULES
+from allobranch.networks.rules import CONTINUATION_RULES
 from allobranch.networks.tree import build_topology, cycles, unreachable
 
 #: Separator between the pieces of a merged segment in its name and rows.
@@ -219,17 +219,7 @@ def check_forest(
 
 
 def read_segment_forest(
-    source: str | os.PathLike | pd.DataFrame,
-    *,
-    segment_id: str,
-    parent_id: str,
-    size: str,
-    length: str | None = None,
-    taxon: str | None = None,
-    specimen: str | None = None,
-    roots: str = "one",
-    sheet: str | int | None = None,
-    encoding: str | None = None,
+    source: str | os.PathLike | pd.DataFrame, *, segment_id: str, parent_id: str, settings: TableSettings
 ) -> SegmentForest:
     """Read and check a segment table.
 
@@ -237,16 +227,10 @@ def read_segment_forest(
     ----------
     source : str, path-like or pandas.DataFrame
         Any table :func:`allobranch.intake.readers.read_table` reads (CSV, TSV, Parquet, Excel, DataFrame).
-    segment_id, parent_id, size : str
-        Columns with the segment's id, its parent's id (empty for a root) and its size.
-    length : str, optional
-        Column with the segment's length (weights merged continuations).
-    taxon, specimen : str, optional
-        Grouping columns; ids are unique within a specimen.
-    roots : {"one", "many"}
-        Whether a specimen may hold several trees.
-    sheet, encoding
-        As in :func:`allobranch.read_junctions`.
+    segment_id, parent_id : str
+        Columns with the segment's id and its parent's id (empty for a root).
+    settings : TableSettings
+        Size, length and grouping columns, the roots rule, sheet and encoding.
 
     Returns
     -------
@@ -258,23 +242,15 @@ def read_segment_forest(
         Listing every problem with file, row and column: missing columns, missing or repeated ids, parent
         ids that are not segment ids, cycles, several roots, missing/unusable/non-positive sizes.
     """
-    check_rule("roots", roots, ROOT_RULES)
     cells = read_network_rows(
-        source,
-        ids=[(segment_id, "segment id", True), (parent_id, "parent id", False)],
-        size=size,
-        length=length,
-        taxon=taxon,
-        specimen=specimen,
-        sheet=sheet,
-        encoding=encoding,
+        source, ids=[(segment_id, "segment id", True), (parent_id, "parent id", False)], settings=settings
     )
     out, rows, (ids, parent_ids) = cells.out, cells.rows, cells.ids
     spec_arr = cells.specimen
     id_arr = np.array([s or "" for s in ids], dtype=object)
     parent = link_parents(spec_arr, id_arr, parent_ids, rows, (segment_id, parent_id), out)
     raise_fatal(out)
-    check_forest(parent, spec_arr, id_arr, rows, parent_id, roots, out)
+    check_forest(parent, spec_arr, id_arr, rows, parent_id, settings.roots, out)
     raise_fatal(out)
     return SegmentForest(
         taxon=cells.taxon,
@@ -285,7 +261,7 @@ def read_segment_forest(
         length=cells.length,
         rows=rows.astype(np.int64),
         source=cells.raw.label,
-        size_column=size,
+        size_column=settings.size,
         problems=list(out.other),
     )
 
@@ -393,19 +369,7 @@ def derive_from_forest(
 
 
 def junctions_from_segments(
-    source: str | os.PathLike | pd.DataFrame,
-    *,
-    segment_id: str,
-    parent_id: str,
-    size: str,
-    length: str | None = None,
-    taxon: str | None = None,
-    specimen: str | None = None,
-    continuations: str = "merge",
-    roots: str = "one",
-    sheet: str | int | None = None,
-    encoding: str | None = None,
-    **mapping_kwargs: Any,
+    source: str | os.PathLike | pd.DataFrame, *, segment_id: str, parent_id: str, size: str, **options: Any
 ) -> NetworkJunctions:
     """Junctions of a segment table (one row per segment with its parent's id).
 
@@ -415,19 +379,10 @@ def junctions_from_segments(
         The segment table (CSV, TSV, Parquet, Excel or a DataFrame, which is not changed).
     segment_id, parent_id, size : str
         Columns with the segment's id, its parent's id (empty for a root) and its size.
-    length : str, optional
-        Column of segment lengths; merged continuations then take the length-weighted mean size.
-    taxon, specimen : str, optional
-        Grouping columns (default: one taxon ``"all"``; one specimen per taxon).
-    continuations : {"merge", "keep"}
-        What to do with segments that have exactly one child (see the module notes).
-    roots : {"one", "many"}
-        ``"one"`` refuses a specimen with several root segments; ``"many"`` accepts a forest.
-    sheet, encoding
-        As in :func:`allobranch.read_junctions`.
-    **mapping_kwargs
-        Measurement conventions passed to :func:`allobranch.read_junctions`: ``unit``, ``measure``
-        (``"radius"`` or ``"diameter"``), ``rel_error``.
+    **options
+        The fields of :class:`~allobranch.networks.cells.TableSettings` (``length``, ``taxon``,
+        ``specimen``, ``continuations``, ``roots``, ``sheet``, ``encoding``), then the measurement
+        conventions passed to :func:`allobranch.read_junctions` (``unit``, ``measure``, ``rel_error``).
 
     Returns
     -------
@@ -447,18 +402,12 @@ def junctions_from_segments(
     >>> res.frame[["junction", "parent", "d1", "d2", "daughter_segments"]].to_dict("records")
     [{'junction': '1', 'parent': 1.0, 'd1': 0.8, 'd2': 0.7, 'daughter_segments': '2;3'}]
     """
-    forest = read_segment_forest(
-        source,
-        segment_id=segment_id,
-        parent_id=parent_id,
-        size=size,
-        length=length,
-        taxon=taxon,
-        specimen=specimen,
-        roots=roots,
-        sheet=sheet,
-        encoding=encoding,
-    )
+    settings, measurement = TableSettings.split(size, options)
+    forest = read_segment_forest(source, segment_id=segment_id, parent_id=parent_id, settings=settings)
     return derive_from_forest(
-        forest, kind="segments", continuations=continuations, rules={"roots": roots}, **mapping_kwargs
+        forest,
+        kind="segments",
+        continuations=settings.continuations,
+        rules={"roots": settings.roots},
+        **measurement,
     )

@@ -16,11 +16,17 @@ whatever their type, since they are the junction's physical daughters).
 **Radius rules** (:data:`RADIUS_RULES`); the choice changes the exponent, so it is recorded:
 
 ``"trimmed_median"`` (default)
-    The median radius of the section's samples, leaving out those within ``trim`` of either end (path
-    distance along the section, from the branch point it leaves to the one it reaches), where the taper
-    and swelling at branch points are. Default ``trim``: at each end, twice the radius of the section's
-    sample at that end (one local diameter; common practice, no single source). A section too short to
-    keep any sample uses its sample nearest the middle (counted in the notes).
+    The median radius of the section's samples, leaving out those closer than the trim to either end
+    (path distance along the section, from the branch point it leaves to the one it reaches), where the
+    flare and the swelling at branch points are. The trim scales with the local radius: at each end,
+    ``trim_radii`` (default :data:`TRIM_RADII`, 4) times the radius of the section's sample at that end;
+    or one distance ``trim`` in the file's unit for every section. Swelling at a branch point reaches
+    about one to two radii along a section; four radii leave e^-4 (2 %) of a swelling that decays over one
+    radius and e^-2 (14 %) of one that decays over two. This is our choice, checked against swellings of
+    15-50 % over 0.5-2 radii in ``benchmarks/networks.py``, not a published value; the earlier default,
+    two radii, is ``trim_radii=2``. A section too short to keep any sample under the trim is read at its
+    one sample nearest the middle (by path distance): counted in the notes and visible per junction in
+    ``parent_samples``/``daughter_samples`` (1).
 ``"near_branch"``
     Read next to the junction: a daughter's radius is the median of its first ``near_points`` samples
     beyond the branch point, the parent's the median of its last ``near_points`` samples before it (the
@@ -28,6 +34,16 @@ whatever their type, since they are the junction's physical daughters).
     as a parent.
 ``"median"``
     The median of all the section's samples (no trimming).
+
+Every rule records how many samples each radius was read from (the junction frame's ``parent_samples``
+and ``daughter_samples`` columns).
+
+**Sections that are only a branch point.** A section of one sample that is itself a branch point (two
+branch points on neighbouring samples) has no radius apart from that branch point's own, swollen one,
+whatever the rule. With ``branch_point_sections="exclude"`` (default) the junctions whose parent or a
+daughter is such a section are not used, and each is listed (severity ``excluded``, with its line); with
+``"keep"`` they are used with the branch point's radius. No section is dropped either way: the sections
+stay in the tree, so generations, orders and tips do not change.
 """
 
 from __future__ import annotations
@@ -44,19 +60,21 @@ from allobranch.errors import InputError, Problem
 from allobranch.intake.validate import DEFAULT_TAXON, _Collector
 from allobranch.networks.assemble import Runs, assemble_junctions
 from allobranch.networks.cells import raise_fatal
-from allobranch.networks.result import NetworkJunctions, check_rule, validate_frame
-from allobranch.networks.rules import NEURITE_TYPES, RADIUS_RULES, ROOT_RULES, SOMA
+from allobranch.networks.result import NetworkJunctions, check_rule, option_error, validate_frame
+from allobranch.networks.rules import (
+    BRANCH_POINT_SECTION_RULES,
+    NEAR_POINTS,
+    NEURITE_TYPES,
+    RADIUS_RULES,
+    ROOT_RULES,
+    SOMA,
+    TRIM_RADII,
+)
 from allobranch.networks.segments import check_forest, link_parents
 from allobranch.networks.tree import Topology, build_topology
 
 #: The seven fields of an SWC line, in order.
 SWC_FIELDS: tuple[str, ...] = ("id", "type", "x", "y", "z", "radius", "parent")
-
-#: Default trim at each end of a section, in radii of the section's sample at that end.
-TRIM_RADII = 2.0
-
-#: Default number of samples read next to a junction by the ``near_branch`` rule.
-NEAR_POINTS = 2
 
 #: The length unit of SWC files by convention.
 SWC_UNIT = "um"
@@ -313,21 +331,141 @@ def _path_from_section_start(topo: Topology, xyz: np.ndarray) -> tuple[np.ndarra
     return s, length
 
 
-def _median_by_run(run: np.ndarray, radius: np.ndarray, keep: np.ndarray, n: int) -> np.ndarray:
+@dataclass(frozen=True)
+class RadiusRule:
+    """How a section's radius is read from its samples (see the module notes): stated, checked, reported.
+
+    Attributes
+    ----------
+    name : {"trimmed_median", "near_branch", "median"}
+        The rule (:data:`RADIUS_RULES`).
+    trim : float, optional
+        ``trimmed_median``: one distance (in the file's unit) left out at each end of every section.
+    trim_radii : float, optional
+        ``trimmed_median``: the trim at each end in radii of the section's sample at that end; default
+        :data:`TRIM_RADII` when ``trim`` is not given.
+    near_points : int
+        ``near_branch``: samples read next to the junction.
+
+    Raises
+    ------
+    RecipeError
+        For an unknown rule, a negative or non-finite trim, ``trim`` and ``trim_radii`` given together, or
+        ``near_points`` below 1.
+
+    Examples
+    --------
+    >>> RadiusRule().rules()
+    {'radius_rule': 'trimmed_median', 'trim_radii': 4.0}
+    >>> RadiusRule("trimmed_median", trim=1.5).rules()
+    {'radius_rule': 'trimmed_median', 'trim': 1.5}
+    """
+
+    name: str = "trimmed_median"
+    trim: float | None = None
+    trim_radii: float | None = None
+    near_points: int = NEAR_POINTS
+
+    def __post_init__(self) -> None:
+        check_rule("radius_rule", self.name, RADIUS_RULES)
+        if self.trim is not None and self.trim_radii is not None:
+            raise option_error(
+                f"trim ({self.trim:g}) and trim_radii ({self.trim_radii:g}) given together",
+                "give one: trim (a distance) or trim_radii (radii of the end sample)",
+            )
+        for key in ("trim", "trim_radii"):
+            value = getattr(self, key)
+            if value is not None and not (np.isfinite(value) and value >= 0):
+                raise option_error(f"{key} must be 0 or more; got {value}", f"give {key} as a number >= 0")
+        if not (isinstance(self.near_points, (int, np.integer)) and self.near_points >= 1):
+            raise option_error(
+                f"near_points must be a whole number of 1 or more; got {self.near_points}",
+                "give near_points as 1, 2, ...",
+            )
+
+    @property
+    def end_radii(self) -> float:
+        """``trimmed_median`` without ``trim``: the trim at each end, in radii of the section's sample there."""
+        return float(TRIM_RADII if self.trim_radii is None else self.trim_radii)
+
+    def describe(self) -> str:
+        """The rule in words.
+
+        Examples
+        --------
+        >>> RadiusRule(trim=1.5).describe()
+        "trimmed_median: median of each section's samples at least 1.5 (the file's unit) from both ends"
+        """
+        if self.name == "median":
+            return "median: median of all of each section's samples"
+        if self.name == "near_branch":
+            return (
+                f"near_branch: median of the {self.near_points} sample(s) next to the junction on each side "
+                "(a parent's branch-point sample left out)"
+            )
+        params = self.rules()
+        trim = (
+            f"{params['trim']:g} (the file's unit)"
+            if "trim" in params
+            else f"{params['trim_radii']:g} radii (of the section's sample at that end)"
+        )
+        return f"trimmed_median: median of each section's samples at least {trim} from both ends"
+
+    def rules(self) -> dict[str, Any]:
+        """The rule's name and the parameter in effect (for reports, notes and recipes)."""
+        out: dict[str, Any] = {"radius_rule": self.name}
+        if self.name == "trimmed_median":
+            if self.trim is not None:
+                out["trim"] = float(self.trim)
+            else:
+                out["trim_radii"] = self.end_radii
+        elif self.name == "near_branch":
+            out["near_points"] = int(self.near_points)
+        return out
+
+
+@dataclass(frozen=True)
+class SectionRadii:
+    """Every section's radius by a rule and the number of samples behind it.
+
+    Arrays are indexed by the section's first sample (NaN or 0 at the other samples).
+
+    Attributes
+    ----------
+    size_end, size_start : numpy.ndarray of float
+        The radius read as a parent (towards the far end) and as a daughter (at the near end); equal except
+        under ``near_branch``.
+    used_end, used_start : numpy.ndarray of int
+        How many samples each radius was read from.
+    fallbacks : numpy.ndarray of int
+        First samples of the sections too short for the trim (read at their sample nearest the middle).
+    """
+
+    size_end: np.ndarray
+    size_start: np.ndarray
+    used_end: np.ndarray
+    used_start: np.ndarray
+    fallbacks: np.ndarray
+
+
+def _median_by_run(
+    run: np.ndarray, radius: np.ndarray, keep: np.ndarray, n: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Median of the kept samples of every run, and how many there were (at run starts)."""
     out = np.full(n, np.nan)
     med = pd.Series(radius[keep]).groupby(run[keep]).median()
     out[med.index.to_numpy()] = med.to_numpy()
-    return out
+    return out, np.bincount(run[keep], minlength=n)
 
 
-def section_radii(
-    topo: Topology,
-    samples: pd.DataFrame,
-    rule: str,
-    *,
-    trim: float | None = None,
-    near_points: int = NEAR_POINTS,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _nearest_middle(run: np.ndarray, s: np.ndarray, length: np.ndarray, short: np.ndarray) -> np.ndarray:
+    """For each run start in ``short``, its sample nearest the run's middle (the first such on a tie)."""
+    members = np.flatnonzero(np.isin(run, short))
+    gap = pd.Series(np.abs(s[members] - length[run[members]] / 2), index=members)
+    return gap.groupby(run[members]).idxmin().to_numpy()
+
+
+def section_radii(topo: Topology, samples: pd.DataFrame, rule: RadiusRule) -> SectionRadii:
     """Radius of every section by a rule, as a parent (far end) and as a daughter (near end).
 
     Parameters
@@ -336,58 +474,105 @@ def section_radii(
         Sections are its runs.
     samples : pandas.DataFrame
         Columns ``x, y, z, radius`` in the order of the topology's nodes.
-    rule : str
-        One of :data:`RADIUS_RULES`.
-    trim : float, optional
-        ``trimmed_median``: distance left out at both ends; default :data:`TRIM_RADII` radii of the end
-        samples.
-    near_points : int
-        ``near_branch``: samples read next to the junction.
+    rule : RadiusRule
+        The rule and its parameter.
 
     Returns
     -------
-    size_end, size_start : numpy.ndarray
-        Radii indexed by the section's first sample (NaN elsewhere).
-    fallbacks : numpy.ndarray
-        First samples of the sections too short for the trim, read at their sample nearest the middle.
+    SectionRadii
     """
-    check_rule("radius_rule", rule, RADIUS_RULES)
     n = len(topo.run)
     radius = samples["radius"].to_numpy(dtype=float)
     run = topo.run
-    if rule == "median":
-        med = _median_by_run(run, radius, np.ones(n, dtype=bool), n)
-        return med, med, np.zeros(0, dtype=np.int64)
+    none = np.zeros(0, dtype=np.int64)
+    if rule.name == "median":
+        med, used = _median_by_run(run, radius, np.ones(n, dtype=bool), n)
+        return SectionRadii(med, med, used, used, none)
     xyz = samples[["x", "y", "z"]].to_numpy(dtype=float)
     s, length = _path_from_section_start(topo, xyz)
-    if rule == "trimmed_median":
-        ends = topo.run_end[run]
-        lo = TRIM_RADII * radius[run] if trim is None else np.full(n, float(trim))
-        hi = TRIM_RADII * radius[ends] if trim is None else np.full(n, float(trim))
+    if rule.name == "trimmed_median":
+        if rule.trim is not None:
+            lo = hi = np.full(n, float(rule.trim))
+        else:
+            lo, hi = rule.end_radii * radius[run], rule.end_radii * radius[topo.run_end[run]]
         keep = (s >= lo) & (length[run] - s >= hi)
-        med = _median_by_run(run, radius, keep, n)
         heads = np.flatnonzero(topo.run_end >= 0)
-        short = heads[np.isnan(med[heads])]
-        if len(short):
-            gap = pd.Series(
-                np.abs(s - length[run] / 2)[np.isin(run, short)], index=np.flatnonzero(np.isin(run, short))
-            )
-            nearest = gap.groupby(run[gap.index.to_numpy()]).idxmin()
-            med[nearest.index.to_numpy()] = radius[nearest.to_numpy()]
-        return med, med, short
-    if near_points < 1:
-        raise InputError(f"near_points must be a positive whole number; got {near_points}")
+        counts = np.bincount(run[keep], minlength=n)
+        short = heads[counts[heads] == 0]
+        keep[_nearest_middle(run, s, length, short)] = True
+        med, used = _median_by_run(run, radius, keep, n)
+        return SectionRadii(med, med, used, used, short)
     order = pd.DataFrame({"run": run, "s": s, "r": radius}).sort_values(["run", "s"], kind="stable")
     order["from_start"] = order.groupby("run").cumcount()
     order["from_end"] = order.groupby("run").cumcount(ascending=False)
-    start = _median_by_run(
-        order["run"].to_numpy(), order["r"].to_numpy(), (order["from_start"] < near_points).to_numpy(), n
-    )
-    before_end = order["from_end"].between(1, near_points).to_numpy()
-    end = _median_by_run(order["run"].to_numpy(), order["r"].to_numpy(), before_end, n)
+    ordered_run, ordered_r = order["run"].to_numpy(), order["r"].to_numpy()
+    near = rule.near_points
+    start, used_start = _median_by_run(ordered_run, ordered_r, (order["from_start"] < near).to_numpy(), n)
+    before_end = order["from_end"].between(1, near).to_numpy()
+    end, used_end = _median_by_run(ordered_run, ordered_r, before_end, n)
     single = np.isnan(end) & ~np.isnan(start)  # a section of one sample: the branch point itself
     end[single] = start[single]
-    return end, start, np.zeros(0, dtype=np.int64)
+    used_end[single] = used_start[single]
+    return SectionRadii(end, start, used_end, used_start, none)
+
+
+def branch_point_section_junctions(topo: Topology, counted: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sections made of one sample that is a branch point, and the branch points whose junction has one.
+
+    Parameters
+    ----------
+    topo : Topology
+        Sections are its runs.
+    counted : numpy.ndarray of bool
+        Samples that may be junctions (outside the soma).
+
+    Returns
+    -------
+    touched : numpy.ndarray of bool
+        Branch points whose parent section or a daughter section is such a section.
+    point : numpy.ndarray of bool
+        The samples that are such a section on their own.
+
+    Examples
+    --------
+    >>> t = build_topology(np.array([-1, 0, 1, 1, 3, 3]))  # 0-1 branches at 1 into 2 and 3; 3 branches
+    >>> [np.flatnonzero(x).tolist() for x in branch_point_section_junctions(t, np.ones(6, dtype=bool))]
+    [[1, 3], [3]]
+    """
+    n = len(topo.run)
+    point = (topo.run_end == np.arange(n)) & (topo.n_children >= 2) & np.asarray(counted, dtype=bool)
+    touched = point.copy()
+    inner = np.flatnonzero(point & (topo.parent >= 0))
+    touched[topo.parent[inner]] = True
+    return touched & (topo.n_children >= 2), point
+
+
+def _left_out_problems(
+    topo: Topology, frame: pd.DataFrame, point: np.ndarray, nodes: np.ndarray
+) -> list[Problem]:
+    """One ``excluded`` problem per junction left out for a section of one branch-point sample."""
+    ids = frame["id"].astype(str).to_numpy()
+    indptr, children = topo.children()
+    problems = []
+    for j in nodes.tolist():
+        kids = [ids[c] for c in children[indptr[j] : indptr[j + 1]] if point[c]]
+        which = [f"parent section {ids[j]}"] * bool(point[j])
+        which += [f"daughter section{'s' * (len(kids) > 1)} {', '.join(kids)}"] * bool(kids)
+        problems.append(
+            Problem(
+                "excluded",
+                str(frame["source"].iat[j]),
+                int(frame["line"].iat[j]),
+                "radius",
+                f"junction {ids[j]} (specimen {frame['specimen'].iat[j]}): {' and '.join(which)} "
+                f"{'is' if len(kids) + point[j] == 1 else 'are each'} one branch-point sample (no radius apart from "
+                "the branch point's own); junction not used",
+                "trace more sample points there, or keep such junctions (branch_point_sections='keep', "
+                "--branch-point-sections keep)",
+                "branch_point_section",
+            )
+        )
+    return problems
 
 
 def junctions_from_swc(
@@ -395,8 +580,10 @@ def junctions_from_swc(
     *,
     radius_rule: str = "trimmed_median",
     trim: float | None = None,
+    trim_radii: float | None = None,
     near_points: int = NEAR_POINTS,
     neurite_types: str = "all",
+    branch_point_sections: str = "exclude",
     taxon: str | None = None,
     roots: str = "many",
     encoding: str | None = None,
@@ -412,12 +599,17 @@ def junctions_from_swc(
     radius_rule : {"trimmed_median", "near_branch", "median"}
         How a section's radius is read (see the module notes).
     trim : float, optional
-        ``trimmed_median``: the distance (in the file's unit) left out at each end of a section; default
-        :data:`TRIM_RADII` times the radius of the section's sample at that end.
+        ``trimmed_median``: one distance (in the file's unit) left out at each end of every section.
+    trim_radii : float, optional
+        ``trimmed_median``: the trim at each end in radii of the section's sample at that end (default
+        :data:`TRIM_RADII`; not with ``trim``).
     near_points : int
         ``near_branch``: samples read on each side of a junction.
     neurite_types : {"all", "dendrite", "basal", "apical", "axon"}
         Keep the junctions whose branch point has these types (see :data:`NEURITE_TYPES`).
+    branch_point_sections : {"exclude", "keep"}
+        Junctions whose parent or a daughter is a section of one branch-point sample: not used (listed in
+        ``.problems``) or used with that branch point's radius (see the module notes).
     taxon : str, optional
         Taxon of files not in a sub-folder.
     roots : {"many", "one"}
@@ -432,21 +624,22 @@ def junctions_from_swc(
     -------
     NetworkJunctions
         Junctions labelled by their branch point's sample id; sections named ``first-last`` sample id,
-        their rows ``first-last`` line.
+        their rows ``first-last`` line; ``parent_samples`` and ``daughter_samples`` give how many samples
+        each radius was read from. ``.rules`` holds the radius rule and its parameter in effect;
+        ``.problems`` lists the junctions left out by ``branch_point_sections="exclude"``.
 
     Raises
     ------
     InputError
         Naming file, line and field (see :func:`read_swc`), or when no junction is left.
     """
-    check_rule("radius_rule", radius_rule, RADIUS_RULES)
+    rule = RadiusRule(radius_rule, trim=trim, trim_radii=trim_radii, near_points=near_points)
     check_rule("neurite_types", neurite_types, tuple(NEURITE_TYPES))
+    check_rule("branch_point_sections", branch_point_sections, BRANCH_POINT_SECTION_RULES)
     if mapping_kwargs.get("measure", "radius") != "radius":
         raise InputError(
             "SWC files hold radii: leave the measure as 'radius' (no --measure diameter with --swc)"
         )
-    if trim is not None and not (np.isfinite(trim) and trim >= 0):
-        raise InputError(f"trim must be a distance of 0 or more; got {trim}")
     samples = read_swc(path, taxon=taxon, roots=roots, encoding=encoding)
     frame = samples.frame
     kind = frame["type"].to_numpy()
@@ -458,9 +651,7 @@ def junctions_from_swc(
     chosen = NEURITE_TYPES[neurite_types]
     selected = ~soma if chosen is None else np.isin(kind, chosen)
     eligible = ~soma & selected
-    size_end, size_start, fallbacks = section_radii(
-        topo, frame, radius_rule, trim=trim, near_points=near_points
-    )
+    radii = section_radii(topo, frame, rule)
     ids = frame["id"].astype(str).to_numpy(dtype=object)
     lines = frame["line"].astype(str).to_numpy(dtype=object)
     heads = np.flatnonzero(topo.run_end >= 0)
@@ -469,13 +660,23 @@ def junctions_from_swc(
     ends = topo.run_end[heads]
     label[heads] = [a if a == b else f"{a}-{b}" for a, b in zip(ids[heads], ids[ends])]
     rows[heads] = [a if a == b else f"{a}-{b}" for a, b in zip(lines[heads], lines[ends])]
+    touched, point = branch_point_section_junctions(topo, ~soma)
+    left_out = touched & eligible & (branch_point_sections == "exclude")
+    problems = _left_out_problems(topo, frame, point, np.flatnonzero(left_out))
     junction_frame = assemble_junctions(
         topo,
-        eligible,
+        eligible & ~left_out,
         taxon=frame["taxon"].to_numpy(dtype=object),
         specimen=frame["specimen"].to_numpy(dtype=object),
         junction=ids,
-        runs=Runs(label=label, rows=rows, size_end=size_end, size_start=size_start),
+        runs=Runs(
+            label=label,
+            rows=rows,
+            size_end=radii.size_end,
+            size_start=radii.size_start,
+            samples_end=radii.used_end,
+            samples_start=radii.used_start,
+        ),
         source=frame["source"].to_numpy(dtype=object),
     )
     n_roots = int((parent < 0).sum())
@@ -485,11 +686,19 @@ def junctions_from_swc(
         f"junctions (neurite types: {neurite_types}); {int((branch & soma).sum())} soma branch point(s) and "
         f"{int((parent_soma & ~soma).sum())} neurite(s) leaving the soma are not junctions",
         f"{n_roots} tree(s) (samples with parent -1) in {frame['source'].nunique()} file(s)",
-        f"{int((~soma[fallbacks]).sum())} section(s) too short for the trim, read at their sample nearest "
-        "the middle"
-        if radius_rule == "trimmed_median"
-        else f"radius rule: {radius_rule}",
+        f"radius rule: {rule.describe()}",
     ]
+    notes.append(
+        f"{int((touched & eligible).sum())} junction(s) with a parent or daughter section of one branch-point "
+        f"sample: {'left out (listed below)' if branch_point_sections == 'exclude' else 'kept'} "
+        f"(branch_point_sections = {branch_point_sections})"
+    )
+    if rule.name == "trimmed_median":
+        sections = int((~soma[heads]).sum())
+        notes.append(
+            f"{int((~soma[radii.fallbacks]).sum())} of {sections} section(s) too short for the trim: each read "
+            "at its one sample nearest the middle (parent_samples/daughter_samples 1); none left out"
+        )
     if not len(junction_frame):
         raise InputError(
             [
@@ -504,13 +713,16 @@ def junctions_from_swc(
                 )
             ]
         )
-    rules: dict[str, Any] = {"radius_rule": radius_rule, "neurite_types": neurite_types, "roots": roots}
-    if radius_rule == "trimmed_median":
-        rules["trim"] = trim if trim is not None else f"{TRIM_RADII:g} end radii"
-    if radius_rule == "near_branch":
-        rules["near_points"] = near_points
+    rules: dict[str, Any] = {
+        **rule.rules(),
+        "branch_point_sections": branch_point_sections,
+        "neurite_types": neurite_types,
+        "roots": roots,
+    }
     table = validate_frame(junction_frame, "radius", str(path), **{"unit": SWC_UNIT, **mapping_kwargs})
-    return NetworkJunctions(frame=junction_frame, table=table, kind="swc", rules=rules, notes=notes)
+    return NetworkJunctions(
+        frame=junction_frame, table=table, kind="swc", rules=rules, notes=notes, problems=problems
+    )
 
 
 def swc_text(samples: pd.DataFrame, header: str = "") -> str:
