@@ -19,7 +19,7 @@ Writes ``benchmarks/results/networks.md``, ``networks_recovery.csv`` and ``netwo
 
 Run::
 
-    /work/main/.venv/bin/python benchmarks/networks.py            # about 15-25 minutes on 2 cores
+    /work/main/.venv/bin/python benchmarks/networks.py            # about 10 minutes on a quiet 2-core machine
     /work/main/.venv/bin/python benchmarks/networks.py --no-fit   # skip the model fits (a few minutes)
 """
 
