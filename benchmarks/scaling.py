@@ -5,8 +5,9 @@ Tables: 20 taxa x 5 specimens x (n / 100) junctions, 5 % relative error, taxon s
 its peak memory (``resource.getrusage``, maximum resident set size) is its own:
 
 1. simulate and validate the table;
-2. ``allobranch.fit`` with default settings (4 chains x 1000 draws after 1000 tuning steps, automatic
-   escalation), timed;
+2. ``allobranch.fit`` with default settings (4 chains x 1000 draws, automatic escalation; the tuning length
+   and target acceptance are the fit's own size-aware defaults, :func:`allobranch.model.spec.sampler_defaults`:
+   1000 steps at 0.9 below 20,000 junctions, 300 steps at 0.8 from there on), timed;
 3. ``FitResult.save`` (the lean saved fit: no pointwise log-likelihood), timed, and the file's size;
 
 then, in a fresh process, ``FitResult.load`` and PSIS-LOO of the saved fit (the pointwise log-likelihood
@@ -14,15 +15,10 @@ recomputed in blocks of junctions, :func:`allobranch.comparison.loo.elpd_loo`), 
 memory. The growth exponent is the slope of log wall time against log junctions (least squares,
 :func:`numpy.polyfit`); 1 is linear.
 
-``--proposed`` replaces the fit's pointwise step (``allobranch.inference.fit.add_pointwise``, which holds
-the log-likelihood of every draw and junction in memory: 32 KB per junction at the default draws) by
-:func:`allobranch.inference.pointwise.add_predictive` (predictive draws only), the change proposed for
-``fit.py``; without it a 10^6-junction fit needs about 32 GB for that array alone.
-
 Run::
 
-    python benchmarks/scaling.py                          # 10^3, 10^4, 10^5
-    python benchmarks/scaling.py --sizes 1000000 --proposed --draws 100 --tune 100 --no-escalate --append
+    python benchmarks/scaling.py                          # 10^3 ... 10^6 (about 30 min on 2 quiet cores)
+    python benchmarks/scaling.py --sizes 1000 10000 --append
 """
 
 from __future__ import annotations
@@ -41,13 +37,13 @@ import numpy as np
 import pandas as pd
 
 RESULTS = Path(__file__).resolve().parent / "results"
-SIZES = (1_000, 10_000, 100_000)
+SIZES = (1_000, 10_000, 100_000, 1_000_000)
 SEED = 20251
 COLUMNS = (
     "junctions",
-    "route",
     "draws",
     "tune",
+    "target_accept",
     "escalate",
     "simulate_s",
     "fit_s",
@@ -55,6 +51,8 @@ COLUMNS = (
     "attempts",
     "divergences",
     "max_r_hat",
+    "min_ess_bulk",
+    "steps_per_draw",
     "ess_mu",
     "ess_per_s_mu",
     "fit_peak_gb",
@@ -69,15 +67,10 @@ def _peak_gb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2  # ru_maxrss is in KiB on Linux
 
 
-def child_fit(n: int, path: Path, proposed: bool, draws: int, tune: int, escalate: bool) -> dict:
+def child_fit(n: int, path: Path, draws: int, tune: int | None, escalate: bool) -> dict:
     """Simulate, fit and save one size (run in its own process)."""
     import allobranch as ab
 
-    if proposed:
-        import allobranch.inference.fit as fit_module
-        from allobranch.inference.pointwise import add_predictive
-
-        fit_module.add_pointwise = add_predictive
     started = time.perf_counter()
     design = ab.Design(taxa=20, specimens=5, junctions=n // 100, tau_taxon=0.3, tau_specimen=0.1, error=0.05)
     table = ab.simulate(design, seed=SEED).table
@@ -91,9 +84,9 @@ def child_fit(n: int, path: Path, proposed: bool, draws: int, tune: int, escalat
     kept = next(a for a in attempts if a["kept"])
     return {
         "junctions": n,
-        "route": "proposed" if proposed else "current",
         "draws": draws,
-        "tune": tune,
+        "tune": result.settings["tune"],
+        "target_accept": attempts[0]["target_accept"],
         "escalate": escalate,
         "simulate_s": simulated - started,
         "fit_s": fitted - simulated,
@@ -101,6 +94,8 @@ def child_fit(n: int, path: Path, proposed: bool, draws: int, tune: int, escalat
         "attempts": len(attempts),
         "divergences": kept["divergences"],
         "max_r_hat": kept["max_r_hat"],
+        "min_ess_bulk": kept["min_ess_bulk"],
+        "steps_per_draw": float(result.idata.sample_stats["n_steps"].mean()),
         "ess_mu": float(mu["ess_bulk"]),
         "ess_per_s_mu": float(mu["ess_bulk"]) / (fitted - simulated),
         "fit_peak_gb": _peak_gb(),
@@ -145,26 +140,25 @@ def write_markdown(frame: pd.DataFrame) -> str:
         "",
         "Tables: 20 taxa x 5 specimens x (n / 100) junctions, 5 % relative error, taxon spread 0.3, specimen "
         "spread 0.1, Dirichlet daughters (simulated, `allobranch.simulate`, seed "
-        f"{SEED}). Fits with default settings (4 chains, automatic escalation) on {os.cpu_count()} cores; "
-        "`draws` / `tune` per chain as listed (1000 / 1000 is the default). `fit_s` is the whole of "
-        "`allobranch.fit` (pilot, compiling, sampling, pointwise terms, diagnostics), `sampling_s` the sampling "
-        "attempts alone; `ess_per_s_mu` is the bulk ESS of mu per second of `fit_s`. Each size in its own process; peak memory is that "
-        "process's maximum resident set size. `saved_mb` is the lean `fit.nc` (no pointwise log-likelihood); "
-        "`loo_s` / `loo_peak_gb`: loading it and PSIS-LOO with the log-likelihood recomputed in blocks of "
-        "junctions, in a fresh process. Route `current`: `allobranch.fit` as shipped (holds the pointwise "
-        "log-likelihood of every draw in memory); `proposed`: its pointwise step replaced by "
-        "`allobranch.inference.pointwise.add_predictive` (see the module docstring of `benchmarks/scaling.py`).",
+        f"{SEED}). Fits with default settings (4 chains x 1000 draws, automatic escalation) on {os.cpu_count()} "
+        "cores; `tune` and `target_accept` are the fit's size-aware defaults (300 and 0.8 from 20,000 junctions "
+        "on). `fit_s` is the whole of `allobranch.fit` (pilot, compiling, sampling, predictive draws, "
+        "diagnostics), `sampling_s` the sampling attempts alone, `s_per_iteration` sampling seconds per "
+        "iteration of all chains; `min_ess_bulk` the lowest bulk ESS over mu, the spreads, the taxon and "
+        "specimen exponents; `ess_per_s_mu` the bulk ESS of mu per second of `fit_s`. Each size in its own "
+        "process; peak memory is that process's maximum resident set size. `saved_mb` is the saved `fit.nc` "
+        "(no pointwise log-likelihood); `loo_s` / `loo_peak_gb`: loading it and PSIS-LOO with the "
+        "log-likelihood recomputed in blocks of junctions, in a fresh process.",
         "",
         shown.to_markdown(index=False, floatfmt=".3g"),
         "",
     ]
-    for (route, draws), rows in frame.groupby(["route", "draws"]):
-        if len(rows) >= 2:
-            lines.append(
-                f"Growth exponent ({route} route, {draws} draws; slope of log time vs log junctions, 1 = linear): fit wall "
-                f"time {growth_exponent(rows, 'fit_s'):.2f}, sampling {growth_exponent(rows, 'sampling_s'):.2f}, "
-                f"saved size {growth_exponent(rows, 'saved_mb'):.2f}, LOO {growth_exponent(rows, 'loo_s'):.2f}."
-            )
+    if len(frame) >= 2:
+        lines.append(
+            "Growth exponent (slope of log time vs log junctions, 1 = linear): fit wall time "
+            f"{growth_exponent(frame, 'fit_s'):.2f}, sampling {growth_exponent(frame, 'sampling_s'):.2f}, "
+            f"saved size {growth_exponent(frame, 'saved_mb'):.2f}, LOO {growth_exponent(frame, 'loo_s'):.2f}."
+        )
     every = frame.assign(s_per_iteration=per_iteration(frame))
     lines.append(
         f"Growth exponent of the sampling time per iteration over every row: "
@@ -177,14 +171,13 @@ def write_markdown(frame: pd.DataFrame) -> str:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=list(SIZES))
-    parser.add_argument("--proposed", action="store_true", help="fit with the proposed pointwise step")
     parser.add_argument(
         "--append", action="store_true", help="add to results/scaling.csv instead of replacing"
     )
     parser.add_argument(
         "--draws", type=int, default=1000, help="draws per chain (default 1000, the fit's default)"
     )
-    parser.add_argument("--tune", type=int, default=1000, help="tuning steps per chain (default 1000)")
+    parser.add_argument("--tune", type=int, help="tuning steps per chain (default: the fit's own)")
     parser.add_argument(
         "--no-escalate", action="store_false", dest="escalate", help="one sampling attempt only"
     )
@@ -194,13 +187,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--path", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child_fit:
-        print(
-            json.dumps(
-                child_fit(
-                    args.child_fit, Path(args.path), args.proposed, args.draws, args.tune, args.escalate
-                )
-            )
-        )
+        print(json.dumps(child_fit(args.child_fit, Path(args.path), args.draws, args.tune, args.escalate)))
         return 0
     if args.child_loo:
         print(json.dumps(child_loo(Path(args.child_loo))))
@@ -218,9 +205,7 @@ def main(argv: list[str] | None = None) -> int:
             extra = [
                 "--draws",
                 str(args.draws),
-                "--tune",
-                str(args.tune),
-                *(["--proposed"] if args.proposed else []),
+                *(["--tune", str(args.tune)] if args.tune else []),
                 *([] if args.escalate else ["--no-escalate"]),
             ]
             row = _child(["--child-fit", str(n), "--path", str(path), *extra])

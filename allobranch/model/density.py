@@ -397,7 +397,7 @@ def _linear_buffers(lin: LinearTerms | None, specimen_idx: np.ndarray, n_specime
     ]
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _group_level(r, parent, log_tau, w, fixed, fixed_vals, use_fixed):
     """Partially centred group exponents: values, prior log density of the raw values, and the pieces of
     the chain rule (d a / d r, d a / d parent, d a / d log tau, and the prior's derivatives)."""
@@ -433,7 +433,7 @@ def _group_level(r, parent, log_tau, w, fixed, fixed_vals, use_fixed):
     return a, lp, da_dr, da_dp, da_dlt, dlp_dr, dlp_dp, dlp_dlt
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon):
     """Exponents of every level from the unconstrained vector, with what the gradient needs."""
     nt, ns = ints[_NT], ints[_NS]
@@ -493,7 +493,7 @@ def _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_
     return mu, taxon, specimen, p
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _conditioned_mu(x, ints, floats):
     """``mu`` from its standardised value ``x[0]`` given the groups under it (``x[1]`` their log spread,
     ``x[2:]`` their raw values; fixed groups excluded), with the pieces of the chain rule."""
@@ -523,7 +523,7 @@ def _conditioned_mu(x, ints, floats):
     return mu, sd, dmean_dr, dmean_dlt, dsd_dlt, dlogsd_dlt, m, skip
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _logp_grad(x, ints, floats, grad):
     """Log density and gradient (written into ``grad``) at the unconstrained point ``x``."""
     if ints[_WHITE]:
@@ -543,7 +543,7 @@ def _logp_grad(x, ints, floats, grad):
     return lp
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _hierarchy_at(x, ints, floats):
     """:func:`_hierarchy` with its data read from the packed buffers."""
     views = _views(ints, floats)
@@ -552,7 +552,7 @@ def _hierarchy_at(x, ints, floats):
     return _hierarchy(x, ints, floats, w_t, w_s, fixed_t, fixed_vals, pinned, specimen_taxon)
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _logp_grad_plain(x, ints, floats, grad):
     """Log density and gradient with ``x[0]`` the population exponent itself (when it is free)."""
     _n, nt, ns = ints[_N], ints[_NT], ints[_NS]
@@ -608,7 +608,7 @@ def _logp_grad_plain(x, ints, floats, grad):
     return lp
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _expand(x, ints, floats, out):
     """Stored values: mu, [tau_taxon], a_taxon, [tau_specimen], a_specimen, sigma_dev, [nu]."""
     nt, ns = ints[_NT], ints[_NS]
@@ -651,7 +651,7 @@ def _as_pointer(typingctx, address):
     return sig, codegen
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _unpack(user_data):
     ptrs = nb.carray(user_data, (2,), np.uint64)
     head = nb.carray(_as_pointer(ptrs[0]), (_HEAD,), np.int64)
@@ -672,7 +672,7 @@ _EXPAND_SIG = types.int64(
 )
 
 
-@nb.cfunc(_LOGP_SIG, cache=True, nogil=True)
+@nb.cfunc(_LOGP_SIG, cache=True, nogil=True, error_model="numpy")
 def logp_callback(dim, x_, grad_, logp_, user_data):  # pragma: no cover - called from nutpie's threads
     """C callback in nutpie's layout: returns 0 on success, 3/4 for a non-finite gradient / density."""
     ints, floats = _unpack(user_data)
@@ -691,7 +691,7 @@ def logp_callback(dim, x_, grad_, logp_, user_data):  # pragma: no cover - calle
     return 0
 
 
-@nb.cfunc(_EXPAND_SIG, cache=True, nogil=True)
+@nb.cfunc(_EXPAND_SIG, cache=True, nogil=True, error_model="numpy")
 def expand_callback(dim, n_expanded, x_, out_, user_data):  # pragma: no cover - called from nutpie
     """C callback writing the stored values of one draw."""
     ints, floats = _unpack(user_data)

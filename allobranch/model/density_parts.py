@@ -28,7 +28,7 @@ _LOG_HALF_NORMAL_CONST = 0.5 * math.log(2.0 / math.pi)
 _LOG2PI = math.log(2.0 * math.pi)
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _views(ints, floats):
     n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
     p = _HEAD
@@ -80,7 +80,7 @@ def _views(ints, floats):
     )
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _pilot_views(ints, floats):
     """The pilot's specimen exponents and precisions (whitened form)."""
     n, K, nt, ns = ints[_N], ints[_K], ints[_NT], ints[_NS]
@@ -88,7 +88,7 @@ def _pilot_views(ints, floats):
     return floats[q : q + ns], floats[q + ns : q + 2 * ns]
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _linear_views(ints, floats):
     """The linear predictor's data: junction covariates ``X`` (n, p), each specimen's mean covariates
     (ns, p), taxon traits (nt, q), the phylogeny's eigenvectors (nt, nt; empty without a tree) and
@@ -116,7 +116,7 @@ def _linear_views(ints, floats):
     return X, xbar, G, V, lam, beta_sd, tb_scale, gamma_sd
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _digamma(x):
     """Digamma by upward recurrence and the asymptotic series (error below 1e-13 for x > 0)."""
     acc = 0.0
@@ -134,7 +134,7 @@ def _digamma(x):
     )
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _half_normal_log(log_x, scale):
     """Half-normal log density of x = exp(log_x) plus the log-transform Jacobian, and its derivative."""
     x = math.exp(log_x)
@@ -142,7 +142,7 @@ def _half_normal_log(log_x, scale):
     return lp, 1.0 - (x / scale) ** 2
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _junction_likelihood_j(ints, floats, a_j, sdev, nu):
     """Summed junction log-likelihood at real per-junction exponents ``a_j`` (floored at :data:`A_FLOOR`),
     with its derivatives in every junction's exponent, the deviation scale and ``nu``."""
@@ -166,7 +166,7 @@ def _junction_likelihood_j(ints, floats, a_j, sdev, nu):
     return total, d_aj, d_sdev, d_nu
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _junction_likelihood(ints, floats, a_s, sdev, nu):
     """:func:`_junction_likelihood_j` when every junction takes its specimen's exponent ``a_s``; the
     derivatives are summed by specimen."""
@@ -179,7 +179,7 @@ def _junction_likelihood(ints, floats, a_s, sdev, nu):
     return total, d_as, d_sdev, d_nu
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _deviation_terms(x, k, ints, floats, d_sdev, d_nu, grad):
     """Prior, Jacobian and gradient of ``log sigma_dev`` at ``x[k]`` (and ``log nu`` at ``x[k + 1]`` for the
     Student-t), given the likelihood's derivatives in ``sigma_dev`` and ``nu``; returns their log density."""

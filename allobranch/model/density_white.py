@@ -57,7 +57,7 @@ from allobranch.model.density_parts import (
 )
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def white_blocks(ints):
     """Start of each block of the whitened coordinates: ``gamma``, ``beta``, ``tau_beta`` (then the taxon
     slope deviations), ``log tau_taxon`` (then ``logit lambda`` under a tree), the taxon deviations,
@@ -87,7 +87,7 @@ def white_blocks(ints):
     return k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, k
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _forward(x, ints, floats):
     """Natural parameters and their log prior plus log Jacobian from the whitened coordinates ``x``
     (complex, for complex-step derivatives).
@@ -242,7 +242,7 @@ def _forward(x, ints, floats):
     return a_s, beta_t, lp, mu, a_t, w, sdw, Td
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def junction_exponents(ints, floats, a_s, beta_t):
     """Every junction's exponent: its specimen's plus the covariate terms with its taxon's slopes."""
     n, p = ints[_N], ints[_P]
@@ -258,7 +258,7 @@ def junction_exponents(ints, floats, a_s, beta_t):
     return a_j
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def logp_grad_white(x, ints, floats, grad):
     """Log density and gradient of the whitened form (see the module docstring)."""
     n, nt, ns, p = ints[_N], ints[_NT], ints[_NS], ints[_P]
@@ -339,7 +339,7 @@ def logp_grad_white(x, ints, floats, grad):
     return total + lp_h.real + _deviation_terms(x, n_h, ints, floats, d_sdev, d_nu, grad)
 
 
-@nb.njit(cache=True, nogil=True)
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def expand_white(x, ints, floats, out):
     """Stored values: mu, [tau_taxon, [lambda]], a_taxon, [tau_specimen], a_specimen, [beta, [tau_beta,
     beta_taxon]], [gamma], sigma_dev, [nu]."""
