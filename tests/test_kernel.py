@@ -203,6 +203,29 @@ def test_fast_terms_equal_junction_terms_at_fixed_asymmetry(student: bool) -> No
     np.testing.assert_allclose(dll_f[:, cols], dll_j[:, cols], rtol=1e-8, atol=1e-8)
 
 
+@pytest.mark.parametrize("student", [False, True], ids=["normal", "student_t"])
+def test_fast_loglik_sums_fast_terms_and_floors_the_exponent(student: bool) -> None:
+    # Exact algebra: the sampler's loop is the sum of the per-junction terms; an exponent at or below the
+    # floor is evaluated at the floor with derivative 0 (the kernel's documented contract).
+    d = _junctions(seed=6)
+    mu, g, c, ybar, lld, s0sq = _pre(d)
+    a_j = d["a_specimen"][d["specimen_idx"]].copy()
+    a_j[0] = -1.0  # below the floor
+    floor = 0.05
+    d_a = np.empty(a_j.shape[0])
+    sdev, nu = POINT["sigma_dev"], POINT["nu"]
+    total, d_sdev, d_nu = kernel.fast_loglik(
+        d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, a_j, floor, sdev, nu, student, d_a
+    )
+    a_eff = np.maximum(a_j, floor)
+    ll, dll, _, _ = kernel.fast_terms(d["y0"], mu, g, c, ybar, d["M"], s0sq, lld, a_eff, sdev, nu, student)
+    np.testing.assert_allclose(total, ll.sum(), rtol=1e-10)
+    np.testing.assert_allclose(d_a[1:], dll[1:, 0], rtol=1e-8, atol=1e-10)
+    assert d_a[0] == 0.0
+    np.testing.assert_allclose(d_sdev, dll[:, 1].sum(), rtol=1e-8)
+    np.testing.assert_allclose(d_nu, dll[:, 4].sum(), rtol=1e-8, atol=1e-12)
+
+
 # -- posterior of the true daughters ----------------------------------------------------------------------
 def _explicit_posterior(y: np.ndarray, s2: np.ndarray, asym_var: float) -> tuple[np.ndarray, np.ndarray]:
     """Posterior mean and covariance by inverting the precision diag(1/s^2) + (I - 11'/k)/asym_var,

@@ -486,3 +486,17 @@ def test_spec_round_trips_through_a_dict() -> None:
     assert again == spec
     assert again.fixed_taxa == {"A": 2.0}
     assert spec.with_(deviation="normal").deviation == "normal" and spec.deviation == "student_t"
+
+
+def test_sampler_defaults_switch_only_for_large_tables_with_many_junctions_per_specimen() -> None:
+    # The rule as documented in allobranch.model.spec (a project choice measured in
+    # benchmarks/results/large_defaults.md, not a published value): 300 tuning steps at target acceptance
+    # 0.8 from 20,000 junctions with at least 100 per specimen on average; otherwise 1000 at 0.9.
+    from allobranch.model.spec import sampler_defaults
+
+    small = sampler_defaults(19_999, 10)
+    assert (small["tune"], small["target_accept"]) == (1000, 0.9)
+    large = sampler_defaults(20_000, 200)
+    assert (large["tune"], large["target_accept"], large["draws"], large["chains"]) == (300, 0.8, 1000, 4)
+    many_small_specimens = sampler_defaults(50_000, 5_000)  # 10 junctions per specimen: not large
+    assert (many_small_specimens["tune"], many_small_specimens["target_accept"]) == (1000, 0.9)
