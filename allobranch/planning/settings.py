@@ -46,7 +46,8 @@ def describe_fits(sampler: Mapping[str, Any]) -> str:
     sampler : mapping
         :func:`fit_settings` (a study's ``settings["sampler"]``).
     """
-    return f"fits with draws {sampler['draws']}, tune {sampler['tune']}, chains {sampler['chains']}"
+    tune = "the fit's default for the table's size" if sampler["tune"] is None else sampler["tune"]
+    return f"fits with draws {sampler['draws']}, tune {tune}, chains {sampler['chains']}"
 
 
 def study_options(func: F) -> F:
@@ -92,13 +93,15 @@ def fit_settings(given: Mapping[str, Any]) -> dict[str, Any]:
     unknown = sorted(set(given) - set(FIT_SETTINGS))
     if unknown:
         raise TypeError(f"unknown fit setting(s) {unknown}; allowed: {', '.join(FIT_SETTINGS)}")
-    out = {**SAMPLER_DEFAULTS, "escalate": True, **given}
+    # tune and target_accept left unset (None) are the fit's own size-aware defaults (sampler_defaults)
+    given = {k: v for k, v in given.items() if v is not None}
+    out = {**SAMPLER_DEFAULTS, "tune": None, "target_accept": None, "escalate": True, **given}
     return {
         "draws": int(out["draws"]),
-        "tune": int(out["tune"]),
+        "tune": None if out["tune"] is None else int(out["tune"]),
         "chains": int(out["chains"]),
         "sampler": str(out["sampler"]),
-        "target_accept": float(out["target_accept"]),
+        "target_accept": None if out["target_accept"] is None else float(out["target_accept"]),
         "escalate": bool(out["escalate"]),
     }
 
