@@ -99,6 +99,37 @@ def reference_text(result) -> str:
     return ", ".join(f"{k} = {v:.4g}" for k, v in refs.items())
 
 
+def curve_draws(
+    post, covariate: str, reference: float, grid: np.ndarray, taxon: str | None = None
+) -> np.ndarray:
+    """The exponent of every posterior draw along one covariate, other covariates at their reference.
+
+    Parameters
+    ----------
+    post : xarray.Dataset
+        Posterior with ``mu``, ``a_taxon``, ``beta`` (and ``beta_taxon`` when slopes vary by taxon).
+    covariate : str
+    reference : float
+        The covariate's reference value (where ``mu`` and ``a_taxon`` hold).
+    grid : numpy.ndarray (points,)
+    taxon : str, optional
+        The taxon's curve (its own slope when slopes vary by taxon); the population's otherwise.
+
+    Returns
+    -------
+    numpy.ndarray (draws, points)
+    """
+    k = [str(c) for c in post["covariate"].values].index(covariate)
+    if taxon is None:
+        level, slope = post["mu"], post["beta"]
+    else:
+        level = post["a_taxon"].sel(taxon=taxon)
+        slope = post["beta_taxon"].sel(taxon=taxon) if "beta_taxon" in post else post["beta"]
+    level = np.asarray(level.values, dtype=float).reshape(-1)
+    slope = np.asarray(slope.values, dtype=float)[..., k].reshape(-1)
+    return level[:, None] + slope[:, None] * (np.asarray(grid, dtype=float)[None, :] - reference)
+
+
 def exponent_curve(
     result, covariate: str, *, taxon: str | None = None, n_grid: int = 60, hdi_prob: float = 0.9
 ) -> pd.DataFrame:
@@ -127,19 +158,10 @@ def exponent_curve(
 
     from allobranch.model.linear import covariate_values
 
-    post = result.idata.posterior
-    k = [str(c) for c in post["covariate"].values].index(covariate)
     ref = reference_values(result)[covariate]
     values = covariate_values(result.table, covariate)
     grid = np.linspace(values.min(), values.max(), n_grid)
-    if taxon is None:
-        level = post["mu"].values.reshape(-1)
-        slope = post["beta"].values[..., k].reshape(-1)
-    else:
-        level = post["a_taxon"].sel(taxon=taxon).values.reshape(-1)
-        src = post["beta_taxon"].sel(taxon=taxon) if "beta_taxon" in post else post["beta"]
-        slope = src.values[..., k].reshape(-1)
-    draws = level[:, None] + slope[:, None] * (grid[None, :] - ref)
+    draws = curve_draws(result.idata.posterior, covariate, ref, grid, taxon)
     band = np.array([az.hdi(draws[:, i], hdi_prob=hdi_prob) for i in range(n_grid)])
     out = pd.DataFrame({"x": grid, "mean": draws.mean(axis=0), "hdi_low": band[:, 0], "hdi_high": band[:, 1]})
     out.attrs.update(covariate=covariate, reference=ref, group=taxon or "population", hdi_prob=hdi_prob)

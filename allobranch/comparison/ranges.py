@@ -36,6 +36,7 @@ from collections.abc import Iterable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
+from allobranch.comparative.summaries import curve_draws
 from allobranch.comparison.laws import Law
 from allobranch.comparison.rope import check_delta
 from allobranch.comparison.verdict import P_ROPE_DECLARE, P_ROPE_REJECT, UNDECIDED
@@ -223,37 +224,6 @@ def range_verdict(p: float, value: float, delta: float) -> tuple[str, str]:
     if p <= P_ROPE_REJECT:
         return REJECTED, f"{said} <= {P_ROPE_REJECT:g}"
     return UNDECIDED, f"{said}, between {P_ROPE_REJECT:g} and {P_ROPE_DECLARE:g}"
-
-
-def curve_draws(
-    post, covariate: str, reference: float, grid: np.ndarray, taxon: str | None = None
-) -> np.ndarray:
-    """The exponent of every posterior draw along one covariate, other covariates at their reference.
-
-    Parameters
-    ----------
-    post : xarray.Dataset
-        Posterior with ``mu``, ``a_taxon``, ``beta`` (and ``beta_taxon`` when slopes vary by taxon).
-    covariate : str
-    reference : float
-        The covariate's reference value (where ``mu`` and ``a_taxon`` hold).
-    grid : numpy.ndarray (points,)
-    taxon : str, optional
-        The taxon's curve (its own slope when slopes vary by taxon); the population's otherwise.
-
-    Returns
-    -------
-    numpy.ndarray (draws, points)
-    """
-    k = [str(c) for c in post["covariate"].values].index(covariate)
-    if taxon is None:
-        level, slope = post["mu"], post["beta"]
-    else:
-        level = post["a_taxon"].sel(taxon=taxon)
-        slope = post["beta_taxon"].sel(taxon=taxon) if "beta_taxon" in post else post["beta"]
-    level = np.asarray(level.values, dtype=float).reshape(-1)
-    slope = np.asarray(slope.values, dtype=float)[..., k].reshape(-1)
-    return level[:, None] + slope[:, None] * (np.asarray(grid, dtype=float)[None, :] - reference)
 
 
 def laws_over_range(
