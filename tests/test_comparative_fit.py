@@ -92,6 +92,22 @@ def test_taxon_prior_under_a_tree_and_traits_matches_numerical_integration() -> 
     assert log_prior_taxon(v, pr, terms=TaxonPrior(), seed=0) == plain
 
 
+def test_taxon_prior_with_lambda_fixed_matches_numerical_integration() -> None:
+    # Reference: scipy.integrate.quad of Normal(v; m, s^2 + tau^2 (lambda c + 1 - lambda)) against
+    # HalfNormal(tau; t) at the fixed lambda (no integral over lambda).
+    pr = ab.Priors()
+    v = 3.1
+    for lam in (0.0, 0.6, 1.0):
+        terms = TaxonPrior(tree_diag=1.3, phylo=True, pagel_lambda=lam)
+
+        def integrand(tau, lam=lam, terms=terms):
+            var = pr.mu_sd**2 + tau**2 * (lam * terms.tree_diag + 1 - lam)
+            return stats.norm.pdf(v, pr.mu_mean, np.sqrt(var)) * stats.halfnorm.pdf(tau, scale=pr.tau_taxon)
+
+        exact, _ = integrate.quad(integrand, 0, 8 * pr.tau_taxon)
+        assert log_prior_taxon(v, pr, terms=terms, seed=0) == pytest.approx(np.log(exact), abs=2e-3)
+
+
 @pytest.fixture(scope="module")
 def cli_folder(tmp_path_factory):
     d = tmp_path_factory.mktemp("comparative_cli")
@@ -166,6 +182,53 @@ def test_cli_fit_with_covariates_traits_and_tree(cli_folder, capsys) -> None:
     assert exps["covariates_at"].str.contains("log_parent_size = ").all()
 
 
+def test_cli_fit_with_pagel_lambda_fixed(cli_folder, capsys) -> None:
+    # lambda fixed at 1 (Brownian motion): no lambda in the posterior, the given value in variance.csv
+    # marked as fixed, and none of the caveat about an estimated lambda.
+    d = cli_folder
+    base = ["fit", str(d / "junctions.csv"), "--parent", "parent", "--daughters", "d1,d2", "--taxon", "taxon"]
+    base += ["--rel-error", "0.05", "--tree", str(d / "tree.nwk"), "--quiet"]
+    short = ["--draws", "150", "--tune", "150", "--chains", "2"]
+    code = main([*base, *short, "--pagel-lambda", "1", "--out", str(d / "fit_bm")])
+    assert code == 0
+    var = pd.read_csv(d / "fit_bm" / "variance.csv")
+    lam = var[var["component"] == "pagel_lambda"].iloc[0]
+    assert lam["mean"] == 1.0 and lam["sd"] == 0.0 and "fixed" in lam["source"]
+    fit = ab.FitResult.load(d / "fit_bm" / "fit.nc")
+    assert "pagel_lambda" not in fit.idata.posterior and fit.spec.pagel_lambda == 1.0
+    assert not any("Pagel's lambda is poorly determined" in w for w in fit.warnings)
+    # a value outside [0, 1], or lambda without a tree: a message, exit code 2, no traceback
+    for bad in (["--pagel-lambda", "1.5"], ["--pagel-lambda", "maybe"]):
+        with pytest.raises(SystemExit) as exc:
+            main([*base, *bad, "--out", str(d / "bad")])
+        assert exc.value.code == 2
+        assert "estimate" in capsys.readouterr().err
+    no_tree = [a for a in base if a not in ("--tree", str(d / "tree.nwk"))]
+    code = main([*no_tree, "--pagel-lambda", "1", "--out", str(d / "bad")])
+    err = capsys.readouterr().err
+    assert code == 2 and "--tree" in err and "Traceback" not in err
+
+
+def test_an_estimated_lambda_from_few_taxa_carries_a_caveat_naming_a_real_option(cli_folder) -> None:
+    # 4 taxa cannot pin lambda down: the fit says so and names --pagel-lambda, which the parser accepts.
+    from allobranch.cli import build_parser
+
+    d = cli_folder
+    table = ab.attach_tree(
+        ab.read_junctions(
+            d / "junctions.csv", parent="parent", daughters=["d1", "d2"], taxon="taxon", rel_error=0.05
+        ),
+        d / "tree.nwk",
+    )
+    fit = ab.fit(table, ab.ModelSpec(), seed=3, **FAST)
+    notes = [w for w in fit.warnings if "Pagel's lambda is poorly determined" in w]
+    assert len(notes) == 1 and "--pagel-lambda 1" in notes[0]
+    argv = ["fit", "x.csv", "--parent", "p", "--daughters", "a,b", "--out", "o", "--pagel-lambda", "1"]
+    args = build_parser().parse_args(argv)
+    assert args.pagel_lambda == 1.0
+    assert fit.converged or "R-hat" in " ".join(fit.warnings)  # the caveat never counts as a failed fit
+
+
 def test_cli_refuses_a_trait_without_its_table(cli_folder, capsys) -> None:
     d = cli_folder
     args = ["fit", str(d / "junctions.csv"), "--parent", "parent", "--daughters", "d1,d2", "--taxon", "taxon"]
@@ -201,6 +264,15 @@ def test_recipe_model_section(cli_folder) -> None:
     )
     with pytest.raises(ab.InputError, match="unknown key"):
         model_settings(parser.parse_args(["--recipe", str(d / "bad.toml")]))
+    # Pagel's lambda: estimated unless the recipe or the command line fixes it
+    assert s["pagel_lambda"] is None
+    (d / "bm.toml").write_text('[model]\ntree = "tree.nwk"\npagel_lambda = 1\n')
+    assert model_settings(parser.parse_args(["--recipe", str(d / "bm.toml")]))["pagel_lambda"] == 1.0
+    over = parser.parse_args(["--recipe", str(d / "bm.toml"), "--pagel-lambda", "estimate"])
+    assert model_settings(over)["pagel_lambda"] is None
+    (d / "bad_lambda.toml").write_text('[model]\ntree = "tree.nwk"\npagel_lambda = "strong"\n')
+    with pytest.raises(ab.InputError, match="pagel_lambda"):
+        model_settings(parser.parse_args(["--recipe", str(d / "bad_lambda.toml")]))
 
 
 def test_law_fit_with_a_covariate_and_tree_keeps_both(cli_folder) -> None:

@@ -41,7 +41,9 @@ def _tree_correlation(nt: int) -> np.ndarray:
     return C
 
 
-def _linear(data, p: int, q: int, by_taxon: bool, phylo: bool, seed: int = 0) -> LinearTerms:
+def _linear(
+    data, p: int, q: int, by_taxon: bool, phylo: bool, seed: int = 0, pagel_lambda: float | None = None
+) -> LinearTerms:
     rng = np.random.default_rng(seed)
     n, nt = data.n_junctions, len(data.taxa)
     X = rng.normal(size=(n, p))
@@ -61,6 +63,7 @@ def _linear(data, p: int, q: int, by_taxon: bool, phylo: bool, seed: int = 0) ->
         trait_ref=np.zeros(q),
         eig_vectors=vecs,
         eig_values=vals,
+        pagel_lambda=pagel_lambda,
         beta_sd=bsd,
         tau_beta_scale=tbs,
         gamma_sd=gsd,
@@ -138,6 +141,9 @@ def _natural_logp(dens, data, arrays, lin, y: np.ndarray, fixed_exponent=None) -
             lp += stats.uniform.logpdf(lam) + np.log(lam * (1 - lam))  # uniform prior, logit Jacobian
             C = lin.eig_vectors @ np.diag(lin.eig_values) @ lin.eig_vectors.T
             cov = lam * C + (1 - lam) * np.eye(nt)
+        elif lin.phylo:  # lambda fixed: no prior term, the given value
+            C = lin.eig_vectors @ np.diag(lin.eig_values) @ lin.eig_vectors.T
+            cov = lin.pagel_lambda * C + (1 - lin.pagel_lambda) * np.eye(nt)
         a_taxon = y[pos["r_taxon"]]
         lp += stats.multivariate_normal.logpdf(a_taxon, a_t, np.exp(2 * lt) * cov)
         a_t = a_taxon
@@ -186,11 +192,27 @@ CASES = {
     "trait": dict(p=0, q=1, by_taxon=False, phylo=False),
     "tree": dict(p=0, q=0, by_taxon=False, phylo=True),
     "tree, trait and covariate": dict(p=1, q=1, by_taxon=False, phylo=True),
+    "tree with lambda fixed at 0.7": dict(p=0, q=0, by_taxon=False, phylo=True, pagel_lambda=0.7),
+    "tree with lambda fixed at 1 and a covariate": dict(
+        p=1, q=0, by_taxon=False, phylo=True, pagel_lambda=1.0
+    ),
 }
 
 
-@pytest.mark.parametrize("case", list(CASES))
-def test_whitened_density_is_the_model_after_a_change_of_variables(setting, case) -> None:
+#: Every case, and the tree cases both with the exact conditional of the taxon deviations and with its
+#: diagonal approximation (the path above ``TREE_EXACT_MAX_TAXA`` taxa).
+PATHS = [(c, "exact") for c in CASES] + [(c, "diagonal") for c, k in CASES.items() if k["phylo"]]
+
+
+@pytest.fixture
+def tree_path(request, monkeypatch):
+    if request.param == "diagonal":
+        monkeypatch.setattr(D, "TREE_EXACT_MAX_TAXA", 0)
+    return request.param
+
+
+@pytest.mark.parametrize(("case", "tree_path"), PATHS, indirect=["tree_path"])
+def test_whitened_density_is_the_model_after_a_change_of_variables(setting, case, tree_path) -> None:
     data, arrays = setting
     lin = _linear(data, **CASES[case])
     dens = _pack(data, arrays, lin)
@@ -206,8 +228,8 @@ def test_whitened_density_is_the_model_after_a_change_of_variables(setting, case
     assert np.ptp(diffs) < 1e-5, diffs
 
 
-@pytest.mark.parametrize("case", list(CASES))
-def test_whitened_gradient_matches_finite_differences(setting, case) -> None:
+@pytest.mark.parametrize(("case", "tree_path"), PATHS, indirect=["tree_path"])
+def test_whitened_gradient_matches_finite_differences(setting, case, tree_path) -> None:
     # Reference: scipy.optimize.approx_fprime (forward differences) of the same compiled log density.
     data, arrays = setting
     lin = _linear(data, **CASES[case])
@@ -232,6 +254,19 @@ def test_fixed_exponent_with_a_covariate_keeps_the_slope_free(setting) -> None:
     lp2, _ = dens.logp(x + np.array([0.1, 0.0]))
     nat2 = _natural_logp(dens, data, arrays, lin, x + np.array([0.1, 0.0]), fixed_exponent=3.0)
     np.testing.assert_allclose(lp - nat, lp2 - nat2, atol=1e-8)
+
+
+def test_the_exact_tree_conditional_is_used_up_to_the_threshold(setting, monkeypatch) -> None:
+    # The header bit that selects the exact conditional follows TREE_EXACT_MAX_TAXA; both paths are the
+    # same model (the change-of-variables test above checks each against scipy), so their log densities
+    # differ only through the coordinates: at the same natural parameters they agree.
+    data, arrays = setting
+    lin = _linear(data, p=0, q=0, by_taxon=False, phylo=True)
+    exact = _pack(data, arrays, lin)
+    monkeypatch.setattr(D, "TREE_EXACT_MAX_TAXA", 0)
+    diag = _pack(data, arrays, lin)
+    assert exact.ints[D._PHYLO] & D.PHYLO_EXACT and not diag.ints[D._PHYLO] & D.PHYLO_EXACT
+    assert exact.layout.names == diag.layout.names
 
 
 def test_no_linear_terms_gives_the_same_density_as_before(setting) -> None:

@@ -10,6 +10,7 @@ The same settings can sit in the recipe's ``[model]`` section::
     trait = ["log_body_mass"]
     traits_taxon = "species"       # the trait table's taxon column (default "taxon")
     tree = "species.nwk"           # Newick, a length on every branch
+    pagel_lambda = "estimate"      # or a number in [0, 1], e.g. 1 for Brownian motion along the tree
 
 Options given on the command line override the recipe.
 """
@@ -35,7 +36,10 @@ MODEL_KEYS: dict[str, tuple[type | tuple[type, ...], str]] = {
     "trait": (list, 'a list of column names, e.g. ["log_body_mass"]'),
     "traits_taxon": (str, "a column name in quotes"),
     "tree": (str, "a file name in quotes"),
+    "pagel_lambda": ((str, int, float), '"estimate" or a number in [0, 1]'),
 }
+#: Word that asks for Pagel's lambda to be estimated.
+ESTIMATE = "estimate"
 
 
 def _option_error(message: str, hint: str) -> RecipeError:
@@ -48,6 +52,19 @@ def _recipe_error(path: Path, message: str, hint: str) -> Problem:
 
 def _names(text: str | None) -> list[str]:
     return [v.strip() for v in (text or "").split(",") if v.strip()]
+
+
+def pagel_lambda_value(text: str | float) -> float | None:
+    """``estimate`` (``None``) or a number in [0, 1] (``argparse`` type of ``--pagel-lambda``)."""
+    if isinstance(text, str) and text.strip().lower() == ESTIMATE:
+        return None
+    try:
+        value = float(text)
+    except (TypeError, ValueError):
+        value = float("nan")
+    if not 0.0 <= value <= 1.0:  # also refuses NaN
+        raise argparse.ArgumentTypeError(f"expected {ESTIMATE!r} or a number in [0, 1]; got {text!r}")
+    return value
 
 
 def _ref(text: str) -> tuple[str, float]:
@@ -99,6 +116,14 @@ def add_comparative_arguments(parser: argparse.ArgumentParser) -> None:
         help="Newick tree of the taxa (a length on every branch): taxon exponents correlated by shared "
         "ancestry, Pagel's lambda estimated",
     )
+    g.add_argument(
+        "--pagel-lambda",
+        metavar="estimate|VALUE",
+        type=pagel_lambda_value,
+        default=argparse.SUPPRESS,
+        help="under --tree: estimate Pagel's lambda (default) or fix it at VALUE in [0, 1] (1: Brownian "
+        "motion, a check when few taxa leave lambda poorly determined)",
+    )
 
 
 def recipe_model_options(recipe: str | None) -> dict[str, Any]:
@@ -124,6 +149,11 @@ def recipe_model_options(recipe: str | None) -> dict[str, Any]:
             problems.append(
                 _recipe_error(path, f"[model] {key}: expected {MODEL_KEYS[key][1]}", "correct the value")
             )
+    if isinstance(section.get("pagel_lambda"), (str, int, float)):
+        try:
+            pagel_lambda_value(section["pagel_lambda"])
+        except argparse.ArgumentTypeError as err:
+            problems.append(_recipe_error(path, f"[model] pagel_lambda: {err}", "correct the value"))
     if problems:
         raise RecipeError(problems)
     out = dict(section)
@@ -151,7 +181,17 @@ def model_settings(args: argparse.Namespace) -> dict[str, Any]:
         "trait": _names(args.trait) if args.trait else list(rec.get("trait", [])),
         "traits_taxon": args.traits_taxon or rec.get("traits_taxon", "taxon"),
         "tree": args.tree or rec.get("tree"),
+        "pagel_lambda": (
+            args.pagel_lambda
+            if hasattr(args, "pagel_lambda")
+            else pagel_lambda_value(rec.get("pagel_lambda", ESTIMATE))
+        ),
     }
+    if out["pagel_lambda"] is not None and not out["tree"]:
+        raise _option_error(
+            "--pagel-lambda given without --tree FILE.nwk",
+            "name the tree with --tree, or drop --pagel-lambda",
+        )
     if out["trait"] and not out["traits"]:
         raise _option_error("--trait given without --traits FILE", "name the trait table with --traits")
     if out["traits"] and not out["trait"]:
@@ -194,4 +234,5 @@ def spec_fields(args: argparse.Namespace) -> dict[str, Any]:
         "covariates_by_taxon": s["covariate_by_taxon"],
         "covariate_ref": s["covariate_ref"],
         "traits": tuple(s["trait"]),
+        "pagel_lambda": s["pagel_lambda"],
     }

@@ -78,11 +78,13 @@ CAVEAT = (
 @dataclass(frozen=True)
 class TaxonPrior:
     """What a taxon's marginal prior needs beyond the priors' scales: the prior variance its traits add
-    (``sum_k g_k^2 c_k^2``), its diagonal of the scaled tree covariance, and whether a tree is used."""
+    (``sum_k g_k^2 c_k^2``), its diagonal of the scaled tree covariance, whether a tree is used, and
+    Pagel's lambda when it is fixed (``None``: estimated, uniform prior)."""
 
     trait_var: float = 0.0
     tree_diag: float = 1.0
     phylo: bool = False
+    pagel_lambda: float | None = None
 
 
 @dataclass(frozen=True)
@@ -126,7 +128,7 @@ def log_prior_taxon(
 
     ``a_taxon = mu + g . gamma + u``, ``mu ~ Normal(m, s)``, trait slopes ``gamma_k ~ Normal(0, c_k)`` (the
     taxon's centred traits ``g``), and ``u ~ Normal(0, tau^2 (lambda C_tt + 1 - lambda))`` with
-    ``tau ~ HalfNormal(t)``, ``lambda ~ Uniform(0, 1)`` under a tree (``C_tt``: the taxon's diagonal of the
+    ``tau ~ HalfNormal(t)``, ``lambda ~ Uniform(0, 1)`` or fixed under a tree (``C_tt``: the taxon's diagonal of the
     scaled tree covariance) and ``lambda = 0`` without one. Given ``tau`` and ``lambda`` the sum is normal
     (exact: independent normal terms), ``Normal(m, s^2 + sum g_k^2 c_k^2 + tau^2 (lambda C_tt + 1 -
     lambda))``; ``tau`` and ``lambda`` are integrated by Monte Carlo from their priors. The marginal prior of
@@ -151,7 +153,12 @@ def log_prior_taxon(
     terms = terms or TaxonPrior()
     rng = np.random.default_rng(seed)
     tau = np.abs(rng.standard_normal(n_draws)) * priors.tau_taxon
-    lam = rng.uniform(size=n_draws) if terms.phylo else np.zeros(n_draws)
+    if not terms.phylo:
+        lam = np.zeros(n_draws)
+    elif terms.pagel_lambda is None:
+        lam = rng.uniform(size=n_draws)
+    else:
+        lam = np.full(n_draws, terms.pagel_lambda)
     var = priors.mu_sd**2 + terms.trait_var + tau**2 * (lam * terms.tree_diag + 1.0 - lam)
     logs = stats.norm.logpdf(value, priors.mu_mean, np.sqrt(var))
     return float(logsumexp(logs) - np.log(n_draws))

@@ -33,5 +33,6 @@ def taxon_prior_terms(table, spec) -> dict[str, TaxonPrior] | None:
         else np.ones(len(data.taxa))
     )
     return {
-        t: TaxonPrior(float(trait_var[i]), float(diag[i]), bool(lin.phylo)) for i, t in enumerate(data.taxa)
+        t: TaxonPrior(float(trait_var[i]), float(diag[i]), bool(lin.phylo), lin.pagel_lambda)
+        for i, t in enumerate(data.taxa)
     }

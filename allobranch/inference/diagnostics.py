@@ -92,6 +92,32 @@ def sampler_checks(idata: az.InferenceData) -> dict[str, float]:
     }
 
 
+#: Width of Pagel's lambda's 90 % HDI above which the fit says that lambda is poorly determined (our
+#: choice, no source: half the unit interval; 16 simulated taxa give widths of about 0.75).
+LAMBDA_WIDE = 0.5
+
+
+def pagel_lambda_caveat(posterior, n_taxa: int, hdi_prob: float = 0.9) -> str | None:
+    """A caveat when Pagel's lambda was estimated and its posterior is wide (``None`` otherwise).
+
+    Where lambda is poorly determined, the population exponent's interval mixes the narrow widths of
+    small lambda with the wide ones of lambda near 1, and so it can be too narrow when the true signal is
+    strong (simulated: ``benchmarks/results/comparative.md``). The remedy named is a refit at lambda = 1.
+    """
+    if "pagel_lambda" not in posterior:
+        return None
+    draws = np.asarray(posterior["pagel_lambda"].values, dtype=float)
+    low, high = (float(v) for v in az.hdi(draws.ravel(), hdi_prob=hdi_prob))
+    if high - low <= LAMBDA_WIDE:
+        return None
+    return (
+        f"Pagel's lambda is poorly determined by these {n_taxa} taxa ({hdi_prob:.0%} HDI [{low:.2f}, "
+        f"{high:.2f}]): the population exponent's interval averages over it and can be too narrow when "
+        "the true phylogenetic signal is strong. Try: refit with --pagel-lambda 1 (Brownian motion; "
+        "ModelSpec(pagel_lambda=1) in Python) and report the wider interval if the two differ."
+    )
+
+
 def diagnostic_warnings(table: pd.DataFrame, checks: dict[str, float]) -> list[str]:
     """Plain-language warnings for every failed check, each with what to try."""
     warnings = []

@@ -154,6 +154,23 @@ class FitResult:
                         **_summ(post[name].values, hdi_prob),
                     }
                 )
+        if (
+            "pagel_lambda" not in post
+            and self.spec.pagel_lambda is not None
+            and self.settings.get("phylogeny")
+        ):
+            lam = float(self.spec.pagel_lambda)
+            rows.append(
+                {
+                    "component": "pagel_lambda",
+                    "meaning": COMPONENTS["pagel_lambda"],
+                    "source": "fixed by the user (pagel_lambda)",
+                    "mean": lam,
+                    "sd": 0.0,
+                    "hdi_low": lam,
+                    "hdi_high": lam,
+                }
+            )
         mode = self.settings.get("error_mode")
         if mode == "known":
             rel = float(self.table.rel_error)
@@ -216,6 +233,9 @@ class FitResult:
                 "cannot tell measurement error from biological deviation, so rel_error rests on its prior "
                 "and sigma_dev absorbs the rest. Give the error if you know it."
             )
+        lam_note = dg.pagel_lambda_caveat(self.idata.posterior, len(self.table.taxa))
+        if lam_note:
+            out.append(lam_note)
         return out
 
     @property

@@ -64,6 +64,9 @@ from allobranch.model.density_parts import (
     _TS_SCALE,
     _TT_SCALE,
     _WHITE,
+    PHYLO_EXACT,
+    PHYLO_LAMBDA_FIXED,
+    PHYLO_TREE,
     _deviation_terms,
     _half_normal_log,
     _junction_likelihood,
@@ -71,6 +74,12 @@ from allobranch.model.density_parts import (
 )
 from allobranch.model.density_white import expand_white, logp_grad_white
 from allobranch.model.linear import LinearTerms
+
+#: Up to this many taxa under a tree, the taxon deviations are sampled from their exact conditional given the
+#: spreads (a Cholesky factor of the full data precision in the tree's eigenbasis, O(taxa^3) per density);
+#: above it, from the conditional with that precision's diagonal (O(taxa^2), rounder than no whitening but
+#: coupled to the specimen spread when the taxa's data precisions differ).
+TREE_EXACT_MAX_TAXA = 64
 
 #: Floor on the phylogeny's eigenvalues (a tree with zero-length tips has a singular covariance).
 EIGEN_FLOOR = 1e-6
@@ -246,6 +255,7 @@ def pack(
     q_tr = lin.q if lin is not None else 0
     by_taxon = bool(lin is not None and lin.by_taxon and p_cov)
     phylo = bool(lin is not None and lin.phylo)
+    lambda_free = phylo and lin.pagel_lambda is None
     names, shapes = [], []
     if mu_free:
         names.append("mu_z" if (condition_mu or white) else "mu")
@@ -262,7 +272,7 @@ def pack(
     if taxon_level:
         names.append("tau_taxon_log__")
         shapes.append(())
-        if phylo:
+        if lambda_free:
             names.append("lambda_logit__")
             shapes.append(())
         names.append("r_taxon")
@@ -283,7 +293,7 @@ def pack(
     out_names = (
         ["mu"]
         + (["tau_taxon"] if taxon_level else [])
-        + (["pagel_lambda"] if phylo else [])
+        + (["pagel_lambda"] if lambda_free else [])
         + ["a_taxon"]
         + (["tau_specimen"] if specimen_level else [])
         + ["a_specimen"]
@@ -327,7 +337,11 @@ def pack(
         condition_mu,
         white,
     ]
-    head[[_P, _BYTAXON, _Q, _PHYLO]] = [p_cov, by_taxon, q_tr, phylo]
+    phylo_bits = 0
+    if phylo:
+        phylo_bits = PHYLO_TREE | (0 if lambda_free else PHYLO_LAMBDA_FIXED)
+        phylo_bits |= PHYLO_EXACT if n_taxa <= TREE_EXACT_MAX_TAXA else 0
+    head[[_P, _BYTAXON, _Q, _PHYLO]] = [p_cov, by_taxon, q_tr, phylo_bits]
     ints = np.concatenate(
         [
             head,
@@ -385,6 +399,9 @@ def _linear_buffers(lin: LinearTerms | None, specimen_idx: np.ndarray, n_specime
         xbar[:, k] = np.bincount(specimen_idx, X[:, k], minlength=n_specimens) / np.maximum(counts, 1.0)
     V = np.asarray(lin.eig_vectors, dtype=float) if lin.phylo else np.zeros((0, 0))
     lam = np.maximum(np.asarray(lin.eig_values, dtype=float), EIGEN_FLOOR) if lin.phylo else np.zeros(n_taxa)
+    if lin.phylo and lin.pagel_lambda is not None:
+        # lambda fixed: the eigenvalues of lambda C + (1 - lambda) I, which the density uses at lambda = 1
+        lam = lin.pagel_lambda * lam + (1.0 - lin.pagel_lambda)
     return [
         X.ravel(),
         xbar.ravel(),

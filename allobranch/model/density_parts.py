@@ -21,6 +21,10 @@ A_FLOOR = 0.05
 (_N, _K, _NT, _NS, _MU_FREE, _TAXON, _SPEC, _STUDENT, _NDIM, _NEXP, _MU_COND, _WHITE) = range(12)
 (_P, _BYTAXON, _Q, _PHYLO, _NINT, _NFLOAT) = range(12, 18)
 _HEAD = 18
+# bits of the _PHYLO slot: a tree; Pagel's lambda fixed (eigenvalues passed already mixed, so the density
+# uses lambda = 1); the taxon deviations' exact conditional (full data precision in the eigenbasis) rather
+# than its diagonal approximation
+PHYLO_TREE, PHYLO_LAMBDA_FIXED, PHYLO_EXACT = 1, 2, 4
 # float header slots
 _MU_MEAN, _MU_SD, _TT_SCALE, _TS_SCALE, _SD_SCALE, _NU_A, _NU_B, _MU_FIXED = range(8)
 _FHEAD = 8

@@ -13,7 +13,10 @@ passed up the tree give each node's conditional normal given its parent and the 
 sampled as that conditional mean plus a standardised deviation times the conditional SD, top down. Under a
 tree the taxon deviations are written in the eigenbasis of ``C`` (``C = V diag(l) V'``, so the prior is
 independent across eigen-coordinates with variances ``tau^2 (lambda l_i + 1 - lambda)``) and the data's
-precision is approximated by its diagonal in that basis. Whatever the approximation, the map from the
+precision is taken in full (a Cholesky factor per density, up to
+:data:`allobranch.model.density.TREE_EXACT_MAX_TAXA` taxa) or by its diagonal in that basis (above; the
+diagonal alone couples the deviations to the specimen spread when the taxa's data precisions differ,
+which costs effective samples). Whatever the approximation, the map from the
 standardised coordinates to the natural parameters is an exact change of variables (its log Jacobian, the
 sum of the conditional log SDs, is added), so the posterior is exact; the approximation only decides how
 round the geometry is.
@@ -49,6 +52,8 @@ from allobranch.model.density_parts import (
     _TAXON,
     _TS_SCALE,
     _TT_SCALE,
+    PHYLO_EXACT,
+    PHYLO_LAMBDA_FIXED,
     _deviation_terms,
     _junction_likelihood_j,
     _linear_views,
@@ -58,9 +63,63 @@ from allobranch.model.density_parts import (
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
+def _lambda_free(ints):
+    """A tree with Pagel's lambda sampled."""
+    return ints[_PHYLO] != 0 and not (ints[_PHYLO] & PHYLO_LAMBDA_FIXED)
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
+def _cholesky_symmetric(A):
+    """Lower factor ``L`` of ``A = L L'`` for a complex symmetric ``A`` (transpose, no conjugate).
+
+    Without conjugation every entry of ``L`` is an analytic function of ``A``'s, which the complex-step
+    derivatives need (LAPACK's Hermitian factor conjugates). For real ``A`` it is the Cholesky factor.
+    """
+    n = A.shape[0]
+    L = np.zeros_like(A)
+    for j in range(n):
+        v = A[j, j]
+        for k in range(j):
+            v -= L[j, k] * L[j, k]
+        L[j, j] = np.sqrt(v)
+        for i in range(j + 1, n):
+            v = A[i, j]
+            for k in range(j):
+                v -= L[i, k] * L[j, k]
+            L[i, j] = v / L[j, j]
+    return L
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
+def _solve_lower(L, b):
+    """``L^-1 b`` for lower-triangular ``L``."""
+    n = L.shape[0]
+    y = np.empty(n, dtype=L.dtype)
+    for i in range(n):
+        v = b[i] + 0.0 * L[i, i]
+        for k in range(i):
+            v -= L[i, k] * y[k]
+        y[i] = v / L[i, i]
+    return y
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
+def _solve_upper_t(L, b):
+    """``L'^-1 b`` for lower-triangular ``L`` (transpose, no conjugate)."""
+    n = L.shape[0]
+    y = np.empty(n, dtype=L.dtype)
+    for i in range(n - 1, -1, -1):
+        v = b[i] + 0.0 * L[i, i]
+        for k in range(i + 1, n):
+            v -= L[k, i] * y[k]
+        y[i] = v / L[i, i]
+    return y
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def white_blocks(ints):
     """Start of each block of the whitened coordinates: ``gamma``, ``beta``, ``tau_beta`` (then the taxon
-    slope deviations), ``log tau_taxon`` (then ``logit lambda`` under a tree), the taxon deviations,
+    slope deviations), ``log tau_taxon`` (then ``logit lambda`` under a tree, unless lambda is fixed), the taxon deviations,
     ``log tau_specimen``, the specimen deviations, and the number of hierarchy coordinates. ``mu``'s
     deviation, when it is free, is coordinate 0."""
     nt, ns, p, q = ints[_NT], ints[_NS], ints[_P], ints[_Q]
@@ -74,7 +133,7 @@ def white_blocks(ints):
         k += p + nt * p
     k_tt = k
     if ints[_TAXON]:
-        k += 2 if ints[_PHYLO] else 1
+        k += 2 if _lambda_free(ints) else 1
     k_zt = k
     if ints[_TAXON]:
         k += nt
@@ -93,7 +152,8 @@ def _forward(x, ints, floats):
     (complex, for complex-step derivatives).
 
     Returns the specimen exponents, the taxon slopes (nt, p), the log density, ``mu``, the taxon
-    exponents, the eigen-coordinates of the taxon deviations, their conditional SDs and prior variances.
+    exponents, the eigen-coordinates of the taxon deviations, their conditional SDs and prior variances,
+    and the Cholesky factor of their exact conditional precision (empty unless that is used).
     """
     nt, ns = ints[_NT], ints[_NS]
     p, q = ints[_P], ints[_Q]
@@ -133,9 +193,11 @@ def _forward(x, ints, floats):
         lt_t = x[k_tt]
         T_t = np.exp(2.0 * lt_t)
         lp += _LOG_HALF_NORMAL_CONST - math.log(floats[_TT_SCALE]) - 0.5 * T_t / floats[_TT_SCALE] ** 2 + lt_t
-        if phylo:  # uniform prior on lambda, sampled on the logit scale
+        if _lambda_free(ints):  # uniform prior on lambda, sampled on the logit scale
             lam = 1.0 / (1.0 + np.exp(-x[k_tt + 1]))
             lp += np.log(lam) + np.log(1.0 - lam)
+        elif phylo:  # lambda fixed: the eigenvalues come mixed, lambda C + (1 - lambda) I
+            lam = 1.0 + 0.0j
     T_s = 0.0 + 0.0j
     if specimen_level:
         lt_s = x[k_ts]
@@ -184,13 +246,38 @@ def _forward(x, ints, floats):
     # message up to mu, then mu
     Pmu = 0.0 + 0.0j
     Mmu = 0.0 + 0.0j
-    for i in range(nt):
-        if q_e[i].real <= 0.0:
-            continue
-        v = T_t * d[i] + 1.0 / q_e[i]
-        r = c_e[i] / q_e[i]
-        Pmu += r * r / v
-        Mmu += r * (h0[i] / q_e[i]) / v
+    exact = taxon_level and phylo and (ints[_PHYLO] & PHYLO_EXACT) != 0
+    L = np.zeros((nt if exact else 0, nt if exact else 0), dtype=np.complex128)
+    yc = np.zeros(nt, dtype=np.complex128)
+    yh = np.zeros(nt, dtype=np.complex128)
+    if exact:
+        # the deviations' full conditional precision in the eigenbasis, A = diag(1/(T d)) + V' diag(upP) V
+        # = L L', and mu's message by the Schur complement: 1'D1 - c'A^-1 c and sum r - c'A^-1 h0
+        Vc = V.astype(np.complex128)
+        Vd = np.empty((nt, nt), dtype=np.complex128)
+        for t in range(nt):
+            for i in range(nt):
+                Vd[t, i] = V[t, i] * upP[t]
+        A = Vc.T @ Vd
+        for i in range(nt):
+            A[i, i] += 1.0 / (T_t * d[i])
+        L = _cholesky_symmetric(A)
+        yc = _solve_lower(L, c_e)
+        yh = _solve_lower(L, h0)
+        for t in range(nt):
+            Pmu += upP[t]
+            Mmu += upM[t] - upP[t] * gt[t]
+        for i in range(nt):
+            Pmu -= yc[i] * yc[i]
+            Mmu -= yc[i] * yh[i]
+    else:
+        for i in range(nt):
+            if q_e[i].real <= 0.0:
+                continue
+            v = T_t * d[i] + 1.0 / q_e[i]
+            r = c_e[i] / q_e[i]
+            Pmu += r * r / v
+            Mmu += r * (h0[i] / q_e[i]) / v
     if ints[_MU_FREE]:
         m0, s0 = floats[_MU_MEAN], floats[_MU_SD]
         P = 1.0 / (s0 * s0) + Pmu
@@ -204,7 +291,16 @@ def _forward(x, ints, floats):
     sdw = np.zeros(nt, dtype=np.complex128)
     Td = np.ones(nt, dtype=np.complex128)
     u = np.zeros(nt, dtype=np.complex128)
-    if taxon_level:
+    if exact:  # w = L'^-1 (L^-1 (h0 - mu c) + z), log Jacobian -sum log L_ii
+        zt = np.empty(nt, dtype=np.complex128)
+        for i in range(nt):
+            zt[i] = yh[i] - mu * yc[i] + x[k_zt + i]
+        w = _solve_upper_t(L, zt)
+        for i in range(nt):
+            Td[i] = T_t * d[i]
+            sdw[i] = 1.0 / L[i, i]
+            lp += -0.5 * _LOG2PI - 0.5 * np.log(Td[i]) - 0.5 * w[i] * w[i] / Td[i] - np.log(L[i, i])
+    elif taxon_level:
         for i in range(nt):
             if not phylo and fixed_t[i]:
                 lp += -0.5 * _LOG2PI - 0.5 * x[k_zt + i] ** 2
@@ -215,6 +311,7 @@ def _forward(x, ints, floats):
             sdw[i] = 1.0 / np.sqrt(Pi)
             w[i] = h / Pi + sdw[i] * x[k_zt + i]
             lp += -0.5 * _LOG2PI - 0.5 * np.log(Td[i]) - 0.5 * w[i] * w[i] / Td[i] + np.log(sdw[i])
+    if taxon_level:
         if phylo:
             for t in range(nt):
                 for i in range(nt):
@@ -239,7 +336,7 @@ def _forward(x, ints, floats):
             sds = 1.0 / np.sqrt(Ps)
             a_s[s] = (parent / T_s + prec[s] * ah[s]) / Ps + sds * x[k_zs + s]
             lp += -0.5 * _LOG2PI - 0.5 * np.log(T_s) - 0.5 * (a_s[s] - parent) ** 2 / T_s + np.log(sds)
-    return a_s, beta_t, lp, mu, a_t, w, sdw, Td
+    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
@@ -271,7 +368,7 @@ def logp_grad_white(x, ints, floats, grad):
     X, xbar, G, V = _linear_views(ints, floats)[:4]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
     xc = x[:n_h].astype(np.complex128)
-    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td = _forward(xc, ints, floats)
+    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L = _forward(xc, ints, floats)
     a_s = a_s_c.real.copy()
     beta_t = beta_t_c.real.copy()
     a_t = a_t_c.real.copy()
@@ -308,7 +405,16 @@ def logp_grad_white(x, ints, floats, grad):
         for s in range(ns):
             G_t[specimen_taxon[s]] += d_as[s]
     # taxon deviations (analytic): each moves one eigen-coordinate w_i = mean_i + sd_i z_i
-    if taxon_level:
+    if taxon_level and L.shape[0]:  # exact conditional: d lp / d z = L^-1 d lp / d w
+        g = np.zeros(nt)
+        for i in range(nt):
+            for t in range(nt):
+                g[i] += V[t, i] * G_t[t]
+            g[i] -= w[i].real / Td[i].real
+        gz = _solve_lower(np.ascontiguousarray(L.real), g)
+        for i in range(nt):
+            grad[k_zt + i] = gz[i]
+    elif taxon_level:
         for i in range(nt):
             if not phylo and fixed_t[i]:
                 grad[k_zt + i] = -x[k_zt + i]
@@ -327,7 +433,7 @@ def logp_grad_white(x, ints, floats, grad):
         if specimen_level and k_zs <= i < k_zs + ns:
             continue
         xc[i] += 1j * kernel.H
-        a_si, bt_i, lp_i, _, _, _, _, _ = _forward(xc, ints, floats)
+        a_si, bt_i, lp_i, _, _, _, _, _, _ = _forward(xc, ints, floats)
         xc[i] -= 1j * kernel.H
         gi = lp_i.imag / kernel.H
         for s in range(ns):
@@ -345,14 +451,14 @@ def expand_white(x, ints, floats, out):
     beta_taxon]], [gamma], sigma_dev, [nu]."""
     nt, ns, p, q = ints[_NT], ints[_NS], ints[_P], ints[_Q]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
-    a_s, beta_t, _, mu, a_t, _, _, _ = _forward(x[:n_h].astype(np.complex128), ints, floats)
+    a_s, beta_t, _, mu, a_t, _, _, _, _ = _forward(x[:n_h].astype(np.complex128), ints, floats)
     k = 0
     out[k] = mu.real
     k += 1
     if ints[_TAXON]:
         out[k] = math.exp(x[k_tt])
         k += 1
-        if ints[_PHYLO]:
+        if _lambda_free(ints):
             out[k] = 1.0 / (1.0 + math.exp(-x[k_tt + 1]))
             k += 1
     for i in range(nt):

@@ -51,6 +51,8 @@ class LinearTerms:
     eig_vectors, eig_values : ndarray or None
         Eigen-decomposition of the phylogenetic correlation ``C`` (taxa in the table's order), or ``None``
         without a tree.
+    pagel_lambda : float or None
+        Pagel's lambda fixed at this value under the tree; ``None``: estimated.
     beta_sd, tau_beta_scale, gamma_sd : ndarray
         Prior SD of each slope, half-normal scale of its spread over taxa, prior SD of each trait slope.
     """
@@ -64,6 +66,7 @@ class LinearTerms:
     trait_ref: np.ndarray = field(default_factory=lambda: np.zeros(0))
     eig_vectors: np.ndarray | None = None
     eig_values: np.ndarray | None = None
+    pagel_lambda: float | None = None
     beta_sd: np.ndarray = field(default_factory=lambda: np.zeros(0))
     tau_beta_scale: np.ndarray = field(default_factory=lambda: np.zeros(0))
     gamma_sd: np.ndarray = field(default_factory=lambda: np.zeros(0))
@@ -207,6 +210,7 @@ def build_linear_terms(table, data, spec) -> LinearTerms | None:
         trait_ref=trait_ref,
         eig_vectors=vecs,
         eig_values=vals,
+        pagel_lambda=spec.pagel_lambda if vecs is not None else None,
     )
     lin.beta_sd, lin.tau_beta_scale = slope_prior_scales(X + np.asarray(refs)) if cols else (np.zeros(0),) * 2
     lin.gamma_sd = slope_prior_scales(traits)[0] if spec.traits else np.zeros(0)

@@ -146,6 +146,11 @@ class ModelSpec:
     phylogeny : bool
         Use the tree attached to the table (:func:`allobranch.comparative.attach_tree`): taxon deviations
         correlated by shared ancestry with Pagel's lambda estimated. Ignored when no tree is attached.
+    pagel_lambda : float or None
+        Fix Pagel's lambda under the tree at this value in [0, 1] (1: Brownian motion along the tree, 0: no
+        phylogenetic signal) instead of estimating it (``None``, the default, with a uniform prior). With a
+        few dozen taxa or fewer lambda is often poorly determined, and the population exponent's interval
+        then depends on it; a fit at ``pagel_lambda=1`` shows how much (the fit warns when this applies).
     """
 
     taxon_level: bool | None = None
@@ -162,6 +167,7 @@ class ModelSpec:
     covariate_ref: Mapping[str, float] = field(default_factory=dict)
     traits: tuple[str, ...] = ()
     phylogeny: bool = True
+    pagel_lambda: float | None = None
 
     def __post_init__(self) -> None:
         for name in ("covariates", "traits"):
@@ -189,6 +195,11 @@ class ModelSpec:
             if value is not None and not (0 < float(value) < 20):
                 raise ValueError(f"fixed exponent for {label!r} must lie in (0, 20), got {value!r}")
         object.__setattr__(self, "fixed_taxa", {str(k): float(v) for k, v in dict(self.fixed_taxa).items()})
+        if self.pagel_lambda is not None:
+            lam = float(self.pagel_lambda)
+            if not 0.0 <= lam <= 1.0:
+                raise ValueError(f"pagel_lambda must lie in [0, 1] (or be None to estimate it); got {lam!r}")
+            object.__setattr__(self, "pagel_lambda", lam)
 
     def with_(self, **changes: Any) -> ModelSpec:
         """Return a copy with some fields changed."""
