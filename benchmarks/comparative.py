@@ -73,6 +73,12 @@ TREE_LEVELS = 4  # 2**4 = 16 tips
 BRANCH = 0.25  # every branch; root-to-tip 1.0
 PHYLO_MU, PHYLO_TAU = 2.5, 0.3
 LAMBDAS = (0.0, 1.0)
+#: The models each phylogeny table is fitted with: label -> ModelSpec fields.
+PHYLO_MODELS: dict[str, dict] = {
+    "tree": {},
+    "tree, lambda = 1": {"pagel_lambda": 1.0},
+    "no tree": {"phylogeny": False},
+}
 PHYLO_DESIGN = dict(specimens_per_taxon=2, junctions_per_specimen=30, tau_specimen=0.05, rel_error=0.05)
 
 
@@ -264,53 +270,127 @@ def oracle_posterior(a_taxon: np.ndarray, C: np.ndarray, lambda_prior=None) -> d
     }
 
 
-#: Priors on lambda the oracle study compares: the model's uniform prior and two leaning towards 1.
+#: Priors on lambda the oracle study compares: the model's uniform prior, two leaning towards 1, and lambda
+#: fixed at 1 (``ModelSpec(pagel_lambda=1)``, a point mass on the grid's last value).
 ORACLE_LAMBDA_PRIORS = {
     "uniform (the model's)": None,
     "Beta(1.5, 1)": lambda lam: beta_dist.pdf(np.clip(lam, 1e-9, 1.0), 1.5, 1.0),
     "Beta(2, 1)": lambda lam: beta_dist.pdf(lam, 2.0, 1.0),
+    "fixed at 1 (--pagel-lambda 1)": lambda lam: np.where(lam >= 1.0, 1.0, 0.0),
 }
+#: Other trees of the oracle study (the model's prior and lambda fixed at 1 only): Yule trees of growing
+#: size and a larger balanced tree.
+ORACLE_TREES = {"balanced 64": ("balanced", 6), **{f"Yule {n}": ("yule", n) for n in (16, 32, 64, 128)}}
+ORACLE_TREE_PRIORS = ("uniform (the model's)", "fixed at 1 (--pagel-lambda 1)")
 
 
-def oracle_study(C: np.ndarray, replicates: int, out: Path | None) -> str:
+def yule_newick(n: int, seed: int) -> tuple[str, list[str]]:
+    """A pure-birth (Yule) tree of ``n`` tips ``T1``..., ultrametric, as Newick (simulated; numpy's generator).
+
+    Every lineage splits at rate 1; the tips are read one waiting time after the ``n``-th lineage appears.
+    """
+    rng = np.random.default_rng(seed)
+    children: dict[int, list[int]] = {0: []}
+    start = {0: 0.0}
+    alive = [0]
+    t, next_id = 0.0, 1
+    while len(alive) < n:
+        t += rng.exponential(1.0 / len(alive))
+        parent = alive.pop(int(rng.integers(len(alive))))
+        for _ in range(2):
+            children[parent].append(next_id)
+            children[next_id] = []
+            start[next_id] = t
+            alive.append(next_id)
+            next_id += 1
+    end = t + rng.exponential(1.0 / len(alive))
+    names: list[str] = []
+
+    def text(node: int) -> str:
+        kids = children[node]
+        length = (start[kids[0]] if kids else end) - start[node]
+        if not kids:
+            names.append(f"T{len(names) + 1}")
+            return f"{names[-1]}:{length:.6f}"
+        return "(" + ",".join(text(c) for c in kids) + f"):{length:.6f}"
+
+    return text(0).rsplit(":", 1)[0] + ";", names
+
+
+def tree_correlation(newick: str, names: list[str]) -> np.ndarray:
+    """The model's tree correlation of a Newick string (read by :func:`allobranch.comparative.read_tree`)."""
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "tree.nwk"
+        path.write_text(newick + "\n", encoding="utf-8")
+        return read_tree(path, names).correlation(names)
+
+
+def oracle_coverage(C: np.ndarray, lam: float, priors: dict, replicates: int) -> dict[str, int]:
+    """How many of ``replicates`` exact posteriors (one per prior) hold mu in their 90 % HDI."""
+    covered = {name: 0 for name in priors}
+    for seed in range(10_000, 10_000 + replicates):
+        a_taxon = draw_taxa(lam, seed, C)
+        for name, prior in priors.items():
+            covered[name] += oracle_posterior(a_taxon, C, prior)["oracle_mu_covered"]
+    return covered
+
+
+def oracle_study(C: np.ndarray, replicates: int, out: Path | None, tree_replicates: int = 200) -> str:
     """Coverage of mu's 90 % HDI by the exact posterior with the true taxon exponents known, over many
-    replicates (cheap: no fit), at lambda 0, 0.5 and 1 and for each prior in :data:`ORACLE_LAMBDA_PRIORS`.
+    replicates (cheap: no fit): on the phylogeny study's tree at lambda 0, 0.5 and 1 for each prior in
+    :data:`ORACLE_LAMBDA_PRIORS`; on :data:`ORACLE_TREES` at lambda 0 and 1 for the model's prior and
+    lambda fixed at 1.
 
     This separates what the model's posterior does (the oracle) from what the sampler does (the fits):
     when the oracle under-covers, the shortfall belongs to the design and the prior, not to the fit.
     """
     rows = []
-    for lam in (0.0, 0.5, 1.0):
-        covered = {name: 0 for name in ORACLE_LAMBDA_PRIORS}
-        for seed in range(10_000, 10_000 + replicates):
-            a_taxon = draw_taxa(lam, seed, C)
-            for name, prior in ORACLE_LAMBDA_PRIORS.items():
-                covered[name] += oracle_posterior(a_taxon, C, prior)["oracle_mu_covered"]
-        for name, k in covered.items():
-            se = np.sqrt(max(k, 1) * max(replicates - k, 1) / replicates**3)
-            rows.append(
-                {
-                    "lambda_true": lam,
-                    "lambda_prior": name,
-                    "replicates": replicates,
-                    "coverage": k / replicates,
-                    "se": se,
-                }
-            )
+    designs = [(f"balanced {len(C)} (the fits' tree)", C, (0.0, 0.5, 1.0), ORACLE_LAMBDA_PRIORS, replicates)]
+    for label, (shape, size) in ORACLE_TREES.items():
+        newick, names = (
+            balanced_newick(size, 1.0 / size) if shape == "balanced" else yule_newick(size, seed=size)
+        )
+        priors = {k: ORACLE_LAMBDA_PRIORS[k] for k in ORACLE_TREE_PRIORS}
+        designs.append((label, tree_correlation(newick, names), (0.0, 1.0), priors, tree_replicates))
+    for label, Ct, lambdas, priors, reps in designs:
+        n_eff = float(np.ones(len(Ct)) @ np.linalg.solve(Ct, np.ones(len(Ct))))
+        for lam in lambdas:
+            for name, k in oracle_coverage(Ct, lam, priors, reps).items():
+                rows.append(
+                    {
+                        "tree": label,
+                        "taxa": len(Ct),
+                        "effective_taxa_at_lambda_1": n_eff,
+                        "lambda_true": lam,
+                        "lambda_prior": name,
+                        "replicates": reps,
+                        "coverage": k / reps,
+                        "se": np.sqrt(max(k, 1) * max(reps - k, 1) / reps**3),
+                    }
+                )
+            print(f"oracle {label} lambda {lam:g} done", flush=True)
     frame = pd.DataFrame(rows)
-    table = frame.pivot(index="lambda_prior", columns="lambda_true", values="coverage")
+    table = frame.pivot_table(
+        index=["tree", "effective_taxa_at_lambda_1", "lambda_prior"],
+        columns="lambda_true",
+        values="coverage",
+        sort=False,
+    ).reset_index()
     text = "\n".join(
         [
-            "# Oracle coverage of the population exponent on the 16-taxon tree",
+            "# Oracle coverage of the population exponent",
             "",
             f"Generated by `benchmarks/comparative.py --oracle-replicates {replicates}`. Taxon exponents drawn "
-            f"from MVN({PHYLO_MU}, {PHYLO_TAU}^2 (lambda C + (1 - lambda) I)) on the balanced 16-taxon tree of "
-            "the phylogeny study (simulated); the exact posterior of mu given the true taxon exponents on a "
-            "(mu, tau, lambda) grid with the model's priors on mu and tau and the listed prior on lambda; "
-            "coverage of mu's 90 % HDI (binomial SE about "
-            f"{float(frame['se'].max()):.3f}).",
+            f"from MVN({PHYLO_MU}, {PHYLO_TAU}^2 (lambda C + (1 - lambda) I)) on each tree (simulated); the exact "
+            "posterior of mu given the true taxon exponents on a (mu, tau, lambda) grid with the model's priors "
+            "on mu and tau and the listed prior on lambda; coverage of mu's 90 % HDI at each true lambda "
+            f"(columns). Replicates: {replicates} on the fits' tree (binomial SE about "
+            f"{float(frame[frame['replicates'] == replicates]['se'].max()):.3f}), {tree_replicates} on the "
+            f"others (SE about {float(frame[frame['replicates'] == tree_replicates]['se'].max()):.3f}). Yule "
+            "trees: pure-birth, seed = number of tips. Effective taxa at lambda 1: 1' C^-1 1, the number of "
+            "independent taxa that would pin mu down as well under Brownian motion.",
             "",
-            table.to_markdown(floatfmt=".3f"),
+            table.to_markdown(index=False, floatfmt=".3f"),
             "",
         ]
     )
@@ -332,17 +412,17 @@ def run_phylo(
     )
     table = attach_tree(ab.read_junctions(sim.frame, sim.mapping), tree_path)
     rows = []
-    for with_tree in (True, False):
+    for model, fields in PHYLO_MODELS.items():
+        with_tree = model != "no tree"
         started = time.perf_counter()
-        result = ab.fit(
-            table, ab.ModelSpec(phylogeny=with_tree), draws=draws, tune=draws, seed=seed, progress=False
-        )
+        result = ab.fit(table, ab.ModelSpec(**fields), draws=draws, tune=draws, seed=seed, progress=False)
         wall = time.perf_counter() - started
         post = result.idata.posterior
         row = {
             "lambda_true": lam,
             "seed": seed,
             "tree": with_tree,
+            "model": model,
             "taxon_mean_true": float(a_taxon.mean()),
             **oracle,
             **{f"mu_{k}": v for k, v in _interval(post["mu"].values, PHYLO_MU).items()},
@@ -350,7 +430,7 @@ def run_phylo(
             **_diagnostics(result),
             "seconds": round(wall, 1),
         }
-        if with_tree:
+        if "pagel_lambda" in post:
             lam_draws = post["pagel_lambda"].values
             row |= {f"lambda_{k}": v for k, v in _interval(lam_draws).items()}
             row["lambda_p_above_half"] = float((lam_draws > 0.5).mean())
@@ -358,12 +438,12 @@ def run_phylo(
             row["lambda_ess_bulk"] = float(az.ess(post["pagel_lambda"], method="bulk").to_array().min())
         rows.append(row)
         print(
-            f"phylo lambda {lam:.0f} seed {seed:3d} {'tree   ' if with_tree else 'no tree'}: mu {row['mu_mean']:.3f} "
+            f"phylo lambda {lam:.0f} seed {seed:3d} {model:<16}: mu {row['mu_mean']:.3f} "
             f"(sd {row['mu_sd']:.3f}, covered {row['mu_covered']}; taxon mean {row['taxon_mean_true']:.3f}), "
             f"tau {row['tau_mean']:.3f}"
             + (
                 f", lambda {row['lambda_mean']:.2f} [{row['lambda_hdi_low']:.2f}, {row['lambda_hdi_high']:.2f}]"
-                if with_tree
+                if "pagel_lambda" in post
                 else ""
             )
             + f", R-hat {row['max_r_hat']:.3f}, div {row['divergences']}, {row['seconds']:.1f} s",
@@ -385,7 +465,7 @@ def summarise_phylo(frame: pd.DataFrame) -> pd.DataFrame:
         mu_sq_error=(frame["mu_mean"] - PHYLO_MU) ** 2,
         oracle_sq_error=(frame["oracle_mu_mean"] - PHYLO_MU) ** 2,
     )
-    g = frame.groupby(["lambda_true", "tree"], sort=False)
+    g = frame.groupby(["lambda_true", "model"], sort=False)
     out = g.agg(
         replicates=("seed", "size"),
         mu_coverage=("mu_covered", "mean"),
@@ -439,7 +519,7 @@ def figure(slopes: pd.DataFrame, phylo: pd.DataFrame, path: Path) -> None:
     ax.set_title("Size-dependent exponent")
     ax.invert_yaxis()
     ax = axes[1]
-    tree = phylo[phylo["tree"]].reset_index(drop=True)
+    tree = phylo[phylo["model"] == "tree"].reset_index(drop=True)
     for i, lam in enumerate(LAMBDAS):
         d = tree[tree["lambda_true"] == lam].reset_index(drop=True)
         y = i + np.linspace(-0.35, 0.35, len(d))
@@ -453,10 +533,11 @@ def figure(slopes: pd.DataFrame, phylo: pd.DataFrame, path: Path) -> None:
     ax.invert_yaxis()
     ax = axes[2]
     labels = []
-    for i, ((lam, with_tree), d) in enumerate(phylo.groupby(["lambda_true", "tree"], sort=False)):
+    colours = {model: f"C{k}" for k, model in enumerate(PHYLO_MODELS)}
+    for i, ((lam, model), d) in enumerate(phylo.groupby(["lambda_true", "model"], sort=False)):
         jitter = np.random.default_rng(i).uniform(-0.2, 0.2, len(d))
-        ax.plot(d["mu_z"], i + jitter, "o", ms=3, color="C0" if with_tree else "C3")
-        labels.append(f"lambda {lam:g}, {'tree' if with_tree else 'no tree'}")
+        ax.plot(d["mu_z"], i + jitter, "o", ms=3, color=colours[model])
+        labels.append(f"lambda {lam:g}, {model}")
     for x in (-1.645, 1.645):
         ax.axvline(x, color="grey", ls="--", lw=0.8)
     ax.set_yticks(range(len(labels)), labels)
@@ -530,11 +611,12 @@ def markdown(slopes, slope_summary, scale, phylo, phylo_summary, C, args, minute
         f"exponents ~ MVN({PHYLO_MU}, {PHYLO_TAU}^2 (lambda C + (1 - lambda) I)), C the shared-path matrix at "
         f"unit diagonal; {PHYLO_DESIGN['specimens_per_taxon']} specimens x {PHYLO_DESIGN['junctions_per_specimen']} "
         f"junctions per taxon, specimen spread {PHYLO_DESIGN['tau_specimen']}, "
-        f"{PHYLO_DESIGN['rel_error']:.0%} error. Same tables fitted with the tree (Pagel's lambda, uniform "
-        "prior) and without it. Coverage is of the MVN's mean "
+        f"{PHYLO_DESIGN['rel_error']:.0%} error. Same tables fitted with the tree (Pagel's lambda estimated, "
+        "uniform prior), with the tree at lambda fixed at 1 (`--pagel-lambda 1`, Brownian motion) and without "
+        "the tree. Coverage is of the MVN's mean "
         f"{PHYLO_MU} (the population parameter), not of the drawn taxa's average.",
         "",
-        "| true lambda | tree in model | replicates | lambda: mean posterior mean | lambda: mean 90 % HDI "
+        "| true lambda | model | replicates | lambda: mean posterior mean | lambda: mean 90 % HDI "
         "| lambda: mean P(lambda > 0.5) | share of replicates with lambda mean > 0.5 | mu: 90 % HDI coverage "
         "| mu: mean posterior SD | mu: RMSE | SD of taxa's average about mu (exact) | SD of mu's z "
         "| tau_taxon mean | max R-hat | fits with R-hat > 1.01 (of them on lambda) | lambda: min bulk ESS "
@@ -547,19 +629,19 @@ def markdown(slopes, slope_summary, scale, phylo, phylo_summary, C, args, minute
                 f"{r['lambda_mean']:.2f} | [{r['lambda_hdi_low']:.2f}, {r['lambda_hdi_high']:.2f}] "
                 f"| {r['lambda_p_above_half']:.2f} | {r['lambda_above_half']:.0%}"
             )
-            if r["tree"]
-            else "- | - | - | -"
+            if r["model"] == "tree"
+            else ("fixed at 1 | - | - | -" if r["model"] == "tree, lambda = 1" else "- | - | - | -")
         )
         lines.append(
-            f"| {r['lambda_true']:g} | {'yes' if r['tree'] else 'no'} | {r['replicates']} | {lam} "
+            f"| {r['lambda_true']:g} | {r['model']} | {r['replicates']} | {lam} "
             f"| {r['mu_coverage']:.0%} | {r['mu_sd']:.3f} | {r['mu_rmse']:.3f} "
             f"| {taxon_average_sd(r['lambda_true'], C):.3f} | {r['mu_z_sd']:.2f} "
             f"| {r['tau_mean']:.3f} | {r['max_r_hat']:.3f} | {r['r_hat_over']}"
-            + (f" ({r['lambda_r_hat_over']}) | {r['lambda_min_ess']:.0f}" if r["tree"] else " | -")
+            + (f" ({r['lambda_r_hat_over']}) | {r['lambda_min_ess']:.0f}" if r["model"] == "tree" else " | -")
             + f" | {r['max_attempts']} "
             f"| {r['divergences']} | {r['median_seconds']:.1f} |"
         )
-        if not r["tree"]:
+        if r["model"] == "no tree":
             lines.append(
                 f"| {r['lambda_true']:g} | oracle: true taxon exponents, exact posterior on a grid | "
                 f"{r['replicates']} | {r['oracle_lambda_mean']:.2f} | - | - | {r['oracle_lambda_above_half']:.0%} "
@@ -568,8 +650,8 @@ def markdown(slopes, slope_summary, scale, phylo, phylo_summary, C, args, minute
                 "| - |"
             )
     slow = phylo[phylo["max_r_hat"] > 1.01]
-    paired = phylo.pivot_table(index=["lambda_true", "seed"], columns="tree", values="mu_mean")
-    shift = (paired[True] - paired[False]).abs().groupby(level=0).mean()
+    paired = phylo.pivot_table(index=["lambda_true", "seed"], columns="model", values="mu_mean")
+    shift = (paired["tree"] - paired["no tree"]).abs().groupby(level=0).mean()
     lines += [
         "",
         "An SD of mu's z near 1 means the posterior SD matches the actual scatter of the estimate; above 1, "
@@ -588,9 +670,14 @@ def markdown(slopes, slope_summary, scale, phylo, phylo_summary, C, args, minute
         "the sampler or the density.",
         "",
         f"Convergence: {len(slow)} of {len(phylo)} fits ended with R-hat > 1.01 after their retries "
-        f"({int(slow['tree'].sum())} with the tree, {int((~slow['tree']).sum())} without); the variable with "
+        "(" + ", ".join(f"{n} {m}" for m, n in slow["model"].value_counts().items()) + "); the variable with "
         "the largest R-hat in those fits: "
         + (", ".join(f"{k} {v}" for k, v in slow["worst_r_hat_variable"].value_counts().items()) or "none")
+        + ". Fits that needed a retry (the first attempt had a divergence or R-hat > 1.01): "
+        + ", ".join(
+            f"{m} {int((phylo[phylo['model'] == m]['attempts'] > 1).sum())} of {int((phylo['model'] == m).sum())}"
+            for m in PHYLO_MODELS
+        )
         + ".",
         "",
         f"Load average when written: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores. Total run time "
@@ -606,6 +693,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--phylo-replicates", type=int, default=30, help="per true lambda")
     parser.add_argument("--draws", type=int, default=500, help="draws and tuning steps per chain")
     parser.add_argument("--quick", action="store_true", help="1 replicate each, 200 draws; nothing written")
+    parser.add_argument(
+        "--phylo-only",
+        action="store_true",
+        help="re-run only the phylogeny study; the slope study is read from comparative_slopes.csv",
+    )
     parser.add_argument("--out", type=Path, default=RESULTS)
     parser.add_argument(
         "--oracle-replicates",
@@ -629,10 +721,13 @@ def main(argv: list[str] | None = None) -> int:
     print(
         f"covariate scale (error-free): slope {scale['slope']:+.4f}, shift {scale['shift']:+.4f}", flush=True
     )
-    slope_rows = []
-    for seed in range(1, args.slope_replicates + 1):
-        slope_rows += run_slope(seed, args.draws)
-    slopes = pd.DataFrame(slope_rows)
+    if args.phylo_only:
+        slopes = pd.read_csv(args.out / "comparative_slopes.csv")
+    else:
+        slope_rows = []
+        for seed in range(1, args.slope_replicates + 1):
+            slope_rows += run_slope(seed, args.draws)
+        slopes = pd.DataFrame(slope_rows)
     slope_summary = summarise_slope(slopes)
 
     newick, names = balanced_newick(TREE_LEVELS, BRANCH)

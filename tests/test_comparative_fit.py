@@ -212,6 +212,7 @@ def test_cli_fit_with_pagel_lambda_fixed(cli_folder, capsys) -> None:
 def test_an_estimated_lambda_from_few_taxa_carries_a_caveat_naming_a_real_option(cli_folder) -> None:
     # 4 taxa cannot pin lambda down: the fit says so and names --pagel-lambda, which the parser accepts.
     from allobranch.cli import build_parser
+    from allobranch.reporting.warning_groups import warning_kind
 
     d = cli_folder
     table = ab.attach_tree(
@@ -223,6 +224,7 @@ def test_an_estimated_lambda_from_few_taxa_carries_a_caveat_naming_a_real_option
     fit = ab.fit(table, ab.ModelSpec(), seed=3, **FAST)
     notes = [w for w in fit.warnings if "Pagel's lambda is poorly determined" in w]
     assert len(notes) == 1 and "--pagel-lambda 1" in notes[0]
+    assert warning_kind(notes[0]) == "Pagel's lambda poorly determined"  # its own line in the report
     argv = ["fit", "x.csv", "--parent", "p", "--daughters", "a,b", "--out", "o", "--pagel-lambda", "1"]
     args = build_parser().parse_args(argv)
     assert args.pagel_lambda == 1.0

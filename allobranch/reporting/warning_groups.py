@@ -20,6 +20,7 @@ WARNING_KINDS: tuple[tuple[str, str], ...] = (
     ("divergent transitions", r"divergent transition"),
     ("low E-BFMI", r"E-BFMI"),
     ("measurement error not given", r"^no measurement error was given"),
+    ("Pagel's lambda poorly determined", r"Pagel's lambda is poorly determined"),
     ("posterior predictive check fails", r"^posterior predictive check"),
     ("unreliable LOO (high Pareto k)", r"^LOO UNRELIABLE"),
     ("Bayes factors from a normal approximation", r"normal approximation"),
