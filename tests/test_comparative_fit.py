@@ -121,6 +121,14 @@ def cli_folder(tmp_path_factory):
     return d
 
 
+def _tree_table(d):
+    """The CLI folder's junction table with its tree attached."""
+    table = ab.read_junctions(
+        d / "junctions.csv", parent="parent", daughters=["d1", "d2"], taxon="taxon", rel_error=0.05
+    )
+    return ab.attach_tree(table, d / "tree.nwk")
+
+
 def test_cli_fit_with_covariates_traits_and_tree(cli_folder, capsys) -> None:
     d = cli_folder
     code = main(
@@ -215,12 +223,7 @@ def test_an_estimated_lambda_from_few_taxa_carries_a_caveat_naming_a_real_option
     from allobranch.reporting.warning_groups import warning_kind
 
     d = cli_folder
-    table = ab.attach_tree(
-        ab.read_junctions(
-            d / "junctions.csv", parent="parent", daughters=["d1", "d2"], taxon="taxon", rel_error=0.05
-        ),
-        d / "tree.nwk",
-    )
+    table = _tree_table(d)
     fit = ab.fit(table, ab.ModelSpec(), seed=3, **FAST)
     notes = [w for w in fit.warnings if "Pagel's lambda is poorly determined" in w]
     assert len(notes) == 1 and "--pagel-lambda 1" in notes[0]
@@ -281,12 +284,7 @@ def test_law_fit_with_a_covariate_and_tree_keeps_both(cli_folder) -> None:
     # A classic law at the reference size: exponent fixed, slope still free, tree irrelevant (no taxon
     # level) -- and never a silent fall-back to a model without the covariate.
     d = cli_folder
-    table = ab.attach_tree(
-        ab.read_junctions(
-            d / "junctions.csv", parent="parent", daughters=["d1", "d2"], taxon="taxon", rel_error=0.05
-        ),
-        d / "tree.nwk",
-    )
+    table = _tree_table(d)
     spec = ab.ModelSpec(covariates=("log_parent_size",), fixed_exponent=3.0)
     fit = ab.fit(table, spec, seed=1, **FAST)
     post = fit.idata.posterior

@@ -91,6 +91,37 @@ def _cholesky_symmetric(A):
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
+def _data_precision(V, upP):
+    """``V' diag(upP) V``, the taxa's data precision in the tree's eigenbasis, by plain loops.
+
+    No BLAS: the sampler evaluates the density on several threads at once, and a threaded BLAS under each
+    of them oversubscribes the cores (measured: a 64-taxon fit took 2-3 times as long). The imaginary part
+    (complex step in the specimen spread) is computed only when ``upP`` has one.
+    """
+    nt = V.shape[0]
+    VT = np.ascontiguousarray(V.T)
+    pr = upP.real.copy()
+    pi = upP.imag.copy()
+    imag = False
+    for t in range(nt):
+        if pi[t] != 0.0:
+            imag = True
+    Q = np.zeros((nt, nt), dtype=np.complex128)
+    for i in range(nt):
+        for j in range(i + 1):
+            sr = 0.0
+            si = 0.0
+            for t in range(nt):
+                vv = VT[i, t] * VT[j, t]
+                sr += vv * pr[t]
+                if imag:
+                    si += vv * pi[t]
+            Q[i, j] = sr + 1j * si
+            Q[j, i] = Q[i, j]
+    return Q
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def _solve_lower(L, b):
     """``L^-1 b`` for lower-triangular ``L``."""
     n = L.shape[0]
@@ -147,13 +178,16 @@ def white_blocks(ints):
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def _forward(x, ints, floats):
+def _forward(x, ints, floats, Q_known, L_known):
     """Natural parameters and their log prior plus log Jacobian from the whitened coordinates ``x``
     (complex, for complex-step derivatives).
 
     Returns the specimen exponents, the taxon slopes (nt, p), the log density, ``mu``, the taxon
     exponents, the eigen-coordinates of the taxon deviations, their conditional SDs and prior variances,
-    and the Cholesky factor of their exact conditional precision (empty unless that is used).
+    and the Cholesky factor of their exact conditional precision (empty unless that is used), and the
+    data precision in the eigenbasis it was built from. ``Q_known`` is that precision from an earlier call
+    when only coordinates it does not depend on (all but the specimen spread) have moved, else empty;
+    ``L_known`` likewise the factor when neither spread nor lambda has moved.
     """
     nt, ns = ints[_NT], ints[_NS]
     p, q = ints[_P], ints[_Q]
@@ -250,18 +284,15 @@ def _forward(x, ints, floats):
     L = np.zeros((nt if exact else 0, nt if exact else 0), dtype=np.complex128)
     yc = np.zeros(nt, dtype=np.complex128)
     yh = np.zeros(nt, dtype=np.complex128)
+    Q = np.zeros((0, 0), dtype=np.complex128)
     if exact:
         # the deviations' full conditional precision in the eigenbasis, A = diag(1/(T d)) + V' diag(upP) V
         # = L L', and mu's message by the Schur complement: 1'D1 - c'A^-1 c and sum r - c'A^-1 h0
-        Vc = V.astype(np.complex128)
-        Vd = np.empty((nt, nt), dtype=np.complex128)
-        for t in range(nt):
-            for i in range(nt):
-                Vd[t, i] = V[t, i] * upP[t]
-        A = Vc.T @ Vd
+        Q = Q_known.copy() if Q_known.shape[0] == nt else _data_precision(V, upP)
+        A = Q.copy()
         for i in range(nt):
             A[i, i] += 1.0 / (T_t * d[i])
-        L = _cholesky_symmetric(A)
+        L = L_known.copy() if L_known.shape[0] == nt else _cholesky_symmetric(A)
         yc = _solve_lower(L, c_e)
         yh = _solve_lower(L, h0)
         for t in range(nt):
@@ -336,7 +367,7 @@ def _forward(x, ints, floats):
             sds = 1.0 / np.sqrt(Ps)
             a_s[s] = (parent / T_s + prec[s] * ah[s]) / Ps + sds * x[k_zs + s]
             lp += -0.5 * _LOG2PI - 0.5 * np.log(T_s) - 0.5 * (a_s[s] - parent) ** 2 / T_s + np.log(sds)
-    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L
+    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L, Q
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
@@ -368,7 +399,8 @@ def logp_grad_white(x, ints, floats, grad):
     X, xbar, G, V = _linear_views(ints, floats)[:4]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
     xc = x[:n_h].astype(np.complex128)
-    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L = _forward(xc, ints, floats)
+    no_Q = np.zeros((0, 0), dtype=np.complex128)
+    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L, Q = _forward(xc, ints, floats, no_Q, no_Q)
     a_s = a_s_c.real.copy()
     beta_t = beta_t_c.real.copy()
     a_t = a_t_c.real.copy()
@@ -433,7 +465,13 @@ def logp_grad_white(x, ints, floats, grad):
         if specimen_level and k_zs <= i < k_zs + ns:
             continue
         xc[i] += 1j * kernel.H
-        a_si, bt_i, lp_i, _, _, _, _, _, _ = _forward(xc, ints, floats)
+        # the data precision depends on the specimen spread alone, its factor also on the taxon spread and
+        # lambda: reuse them for every other coordinate
+        moved_Q = specimen_level and i == k_ts
+        moved_L = moved_Q or (taxon_level and (i == k_tt or (_lambda_free(ints) and i == k_tt + 1)))
+        a_si, bt_i, lp_i, _, _, _, _, _, _, _ = _forward(
+            xc, ints, floats, no_Q if moved_Q else Q, no_Q if moved_L else L
+        )
         xc[i] -= 1j * kernel.H
         gi = lp_i.imag / kernel.H
         for s in range(ns):
@@ -451,7 +489,8 @@ def expand_white(x, ints, floats, out):
     beta_taxon]], [gamma], sigma_dev, [nu]."""
     nt, ns, p, q = ints[_NT], ints[_NS], ints[_P], ints[_Q]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
-    a_s, beta_t, _, mu, a_t, _, _, _, _ = _forward(x[:n_h].astype(np.complex128), ints, floats)
+    no_Q = np.zeros((0, 0), dtype=np.complex128)
+    a_s, beta_t, _, mu, a_t, _, _, _, _, _ = _forward(x[:n_h].astype(np.complex128), ints, floats, no_Q, no_Q)
     k = 0
     out[k] = mu.real
     k += 1
