@@ -145,6 +145,9 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--out", type=Path, default=RESULTS)
     parser.add_argument("--no-write", action="store_true")
+    parser.add_argument(
+        "--append", action="store_true", help="add the rows to those of an earlier run (tree_taxa.csv)"
+    )
     args = parser.parse_args(argv)
     rows = []
     for n in (int(v) for v in args.taxa.split(",")):
@@ -161,6 +164,8 @@ def main(argv: list[str] | None = None) -> int:
         rows.append(row)
         print(" ".join(f"{k}={v}" for k, v in row.items()), flush=True)
     frame = pd.DataFrame(rows)
+    if args.append and (args.out / "tree_taxa.csv").exists():
+        frame = pd.concat([pd.read_csv(args.out / "tree_taxa.csv"), frame], ignore_index=True)
     text = "\n".join(
         [
             "# Fits under a tree as the number of taxa grows: exact vs diagonal conditional",
