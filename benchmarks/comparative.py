@@ -537,7 +537,7 @@ def figure(slopes: pd.DataFrame, phylo: pd.DataFrame, path: Path) -> None:
     for i, ((lam, model), d) in enumerate(phylo.groupby(["lambda_true", "model"], sort=False)):
         jitter = np.random.default_rng(i).uniform(-0.2, 0.2, len(d))
         ax.plot(d["mu_z"], i + jitter, "o", ms=3, color=colours[model])
-        labels.append(f"lambda {lam:g}, {model}")
+        labels.append(f"true lambda {lam:g}: {model}")
     for x in (-1.645, 1.645):
         ax.axvline(x, color="grey", ls="--", lw=0.8)
     ax.set_yticks(range(len(labels)), labels)
