@@ -122,7 +122,7 @@ def main() -> None:
     print("\n== Does the exponent depend on vessel size? ==")
     tests = ab.compare_covariates(fit, seed=args.seed, draws=args.draws, tune=args.tune)
     for row in tests.itertuples():
-        print(f"  {row.covariate}: {row.verdict} ({row.reason})")
+        print(f"  {row.covariate}, {row.group}: {row.verdict} ({row.reason})")
     tests.to_csv(args.out / "slopes.csv", index=False)
 
     points = ab.junction_points(fit, COVARIATE)
