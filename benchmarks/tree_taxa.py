@@ -148,9 +148,17 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument(
         "--append", action="store_true", help="add the rows to those of an earlier run (tree_taxa.csv)"
     )
+    parser.add_argument(
+        "--note", default="", help="a sentence added to tree_taxa.md (e.g. how loaded the machine was)"
+    )
+    parser.add_argument(
+        "--report-only", action="store_true", help="no fits: rewrite tree_taxa.md from tree_taxa.csv"
+    )
     args = parser.parse_args(argv)
     rows = []
-    for n in (int(v) for v in args.taxa.split(",")):
+    if args.report_only:
+        args.append, args.taxa, args.timing_only = True, "", ""
+    for n in (int(v) for v in filter(None, args.taxa.split(","))):
         for lam in (float(v) for v in args.lambdas.split(",")):
             for path in args.paths.split(","):
                 if f"{n}:{path}" in args.timing_only.split(","):
@@ -181,7 +189,7 @@ def main(argv: list[str] | None = None) -> int:
             "",
             frame.to_markdown(index=False, floatfmt=".3g"),
             "",
-            f"Load average when written: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores.",
+            args.note or f"Load average when written: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores.",
             "",
         ]
     )

@@ -95,7 +95,7 @@ def _data_precision(V, upP):
     """``V' diag(upP) V``, the taxa's data precision in the tree's eigenbasis, by plain loops.
 
     No BLAS: the sampler evaluates the density on several threads at once, and a threaded BLAS under each
-    of them oversubscribes the cores (measured: a 64-taxon fit took 2-3 times as long). The imaginary part
+    of them oversubscribes the cores (measured: a 64-taxon fit took about twice as long). The imaginary part
     (complex step in the specimen spread) is computed only when ``upP`` has one.
     """
     nt = V.shape[0]
