@@ -76,12 +76,13 @@ from allobranch.model.density_white import expand_white, logp_grad_white
 from allobranch.model.linear import LinearTerms
 
 #: Up to this many taxa under a tree, the taxon deviations are sampled from their exact conditional given the
-#: spreads (a Cholesky factor of the full data precision in the tree's eigenbasis, O(taxa^3) per density);
-#: above it, from the conditional with that precision's diagonal (O(taxa^2), rounder than no whitening but
-#: coupled to the specimen spread when the taxa's data precisions differ). Measured on Yule trees
-#: (benchmarks/results/tree_taxa.md): at 200 taxa the exact path converged on its first attempt with ten
-#: times the diagonal path's effective samples per second; above a few hundred taxa its cubic cost rules.
-TREE_EXACT_MAX_TAXA = 256
+#: spreads (one real Cholesky factor of the full data precision in the tree's eigenbasis per density,
+#: O(taxa^3); :mod:`allobranch.model.tree_algebra`); above it, from the conditional with that precision's
+#: diagonal (O(taxa^2), rounder than no whitening but coupled to the specimen spread when the taxa's data
+#: precisions differ). Measured on Yule trees (benchmarks/results/tree_taxa.md): at 200 taxa the diagonal
+#: path needed three attempts and left a tenth of the exact path's effective samples; per gradient the
+#: exact path costs 3.3 ms at 200 taxa, 20 ms at 400 and 57 ms at 600 (the diagonal 1.7, 6.6 and 11 ms).
+TREE_EXACT_MAX_TAXA = 512
 
 #: Floor on the phylogeny's eigenvalues (a tree with zero-length tips has a singular covariance).
 EIGEN_FLOOR = 1e-6

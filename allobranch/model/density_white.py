@@ -22,7 +22,10 @@ sum of the conditional log SDs, is added), so the posterior is exact; the approx
 round the geometry is.
 
 Derivatives: analytic for the specimen and taxon deviations (each moves one node, or one eigen-coordinate,
-given everything above it); complex step (Squire & Trapp 1998) for the few coordinates above them.
+given everything above it); complex step (Squire & Trapp 1998) for the few coordinates above them. On the
+exact path the complex steps reuse the real Cholesky factor of the point itself, taking the factor's
+imaginary parts to first order (:mod:`allobranch.model.tree_algebra`), so a density costs one factor
+whatever the number of coordinates above the deviations.
 """
 
 from __future__ import annotations
@@ -33,6 +36,7 @@ import numba as nb
 import numpy as np
 
 from allobranch.model import kernel
+from allobranch.model import tree_algebra as ta
 from allobranch.model.density_parts import (
     _BYTAXON,
     _LOG2PI,
@@ -69,85 +73,6 @@ def _lambda_free(ints):
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def _cholesky_symmetric(A):
-    """Lower factor ``L`` of ``A = L L'`` for a complex symmetric ``A`` (transpose, no conjugate).
-
-    Without conjugation every entry of ``L`` is an analytic function of ``A``'s, which the complex-step
-    derivatives need (LAPACK's Hermitian factor conjugates). For real ``A`` it is the Cholesky factor.
-    """
-    n = A.shape[0]
-    L = np.zeros_like(A)
-    for j in range(n):
-        v = A[j, j]
-        for k in range(j):
-            v -= L[j, k] * L[j, k]
-        L[j, j] = np.sqrt(v)
-        for i in range(j + 1, n):
-            v = A[i, j]
-            for k in range(j):
-                v -= L[i, k] * L[j, k]
-            L[i, j] = v / L[j, j]
-    return L
-
-
-@nb.njit(cache=True, nogil=True, error_model="numpy")
-def _data_precision(V, upP):
-    """``V' diag(upP) V``, the taxa's data precision in the tree's eigenbasis, by plain loops.
-
-    No BLAS: the sampler evaluates the density on several threads at once, and a threaded BLAS under each
-    of them oversubscribes the cores (measured: a 64-taxon fit took about twice as long). The imaginary part
-    (complex step in the specimen spread) is computed only when ``upP`` has one.
-    """
-    nt = V.shape[0]
-    VT = np.ascontiguousarray(V.T)
-    pr = upP.real.copy()
-    pi = upP.imag.copy()
-    imag = False
-    for t in range(nt):
-        if pi[t] != 0.0:
-            imag = True
-    Q = np.zeros((nt, nt), dtype=np.complex128)
-    for i in range(nt):
-        for j in range(i + 1):
-            sr = 0.0
-            si = 0.0
-            for t in range(nt):
-                vv = VT[i, t] * VT[j, t]
-                sr += vv * pr[t]
-                if imag:
-                    si += vv * pi[t]
-            Q[i, j] = sr + 1j * si
-            Q[j, i] = Q[i, j]
-    return Q
-
-
-@nb.njit(cache=True, nogil=True, error_model="numpy")
-def _solve_lower(L, b):
-    """``L^-1 b`` for lower-triangular ``L``."""
-    n = L.shape[0]
-    y = np.empty(n, dtype=L.dtype)
-    for i in range(n):
-        v = b[i] + 0.0 * L[i, i]
-        for k in range(i):
-            v -= L[i, k] * y[k]
-        y[i] = v / L[i, i]
-    return y
-
-
-@nb.njit(cache=True, nogil=True, error_model="numpy")
-def _solve_upper_t(L, b):
-    """``L'^-1 b`` for lower-triangular ``L`` (transpose, no conjugate)."""
-    n = L.shape[0]
-    y = np.empty(n, dtype=L.dtype)
-    for i in range(n - 1, -1, -1):
-        v = b[i] + 0.0 * L[i, i]
-        for k in range(i + 1, n):
-            v -= L[k, i] * y[k]
-        y[i] = v / L[i, i]
-    return y
-
-
-@nb.njit(cache=True, nogil=True, error_model="numpy")
 def white_blocks(ints):
     """Start of each block of the whitened coordinates: ``gamma``, ``beta``, ``tau_beta`` (then the taxon
     slope deviations), ``log tau_taxon`` (then ``logit lambda`` under a tree, unless lambda is fixed), the taxon deviations,
@@ -178,16 +103,16 @@ def white_blocks(ints):
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
-def _forward(x, ints, floats, Q_known, L_known):
+def _forward(x, ints, floats, L_known, context):
     """Natural parameters and their log prior plus log Jacobian from the whitened coordinates ``x``
     (complex, for complex-step derivatives).
 
     Returns the specimen exponents, the taxon slopes (nt, p), the log density, ``mu``, the taxon
     exponents, the eigen-coordinates of the taxon deviations, their conditional SDs and prior variances,
-    and the Cholesky factor of their exact conditional precision (empty unless that is used), and the
-    data precision in the eigenbasis it was built from. ``Q_known`` is that precision from an earlier call
-    when only coordinates it does not depend on (all but the specimen spread) have moved, else empty;
-    ``L_known`` likewise the factor when neither spread nor lambda has moved.
+    and the real Cholesky factor of their exact conditional precision (empty unless that is used).
+    ``L_known`` is that factor from the call at the real point and ``context`` its
+    :func:`allobranch.model.tree_algebra.factor_context` (for a complex step: the step's imaginary parts
+    are then taken to first order from them); pass empty arrays to factor afresh at a real point.
     """
     nt, ns = ints[_NT], ints[_NS]
     p, q = ints[_P], ints[_Q]
@@ -281,26 +206,33 @@ def _forward(x, ints, floats, Q_known, L_known):
     Pmu = 0.0 + 0.0j
     Mmu = 0.0 + 0.0j
     exact = taxon_level and phylo and (ints[_PHYLO] & PHYLO_EXACT) != 0
-    L = np.zeros((nt if exact else 0, nt if exact else 0), dtype=np.complex128)
-    yc = np.zeros(nt, dtype=np.complex128)
-    yh = np.zeros(nt, dtype=np.complex128)
-    Q = np.zeros((0, 0), dtype=np.complex128)
+    L = np.zeros((0, 0))
+    b_c = np.zeros(nt, dtype=np.complex128)
+    b_h = np.zeros(nt, dtype=np.complex128)
+    e_im = np.zeros(nt)
+    f_im = np.zeros(nt)
     if exact:
         # the deviations' full conditional precision in the eigenbasis, A = diag(1/(T d)) + V' diag(upP) V
-        # = L L', and mu's message by the Schur complement: 1'D1 - c'A^-1 c and sum r - c'A^-1 h0
-        Q = Q_known.copy() if Q_known.shape[0] == nt else _data_precision(V, upP)
-        A = Q.copy()
-        for i in range(nt):
-            A[i, i] += 1.0 / (T_t * d[i])
-        L = L_known.copy() if L_known.shape[0] == nt else _cholesky_symmetric(A)
-        yc = _solve_lower(L, c_e)
-        yh = _solve_lower(L, h0)
+        # = L L' (real; complex steps enter to first order, see tree_algebra), and mu's message by the
+        # Schur complement: 1'D1 - c'A^-1 c and sum r - c'A^-1 h0
+        e0 = 1.0 / (T_t * d)
+        e_im = e0.imag.copy()
+        f_im = upP.imag.copy()
+        if L_known.shape[0] == nt:
+            L = L_known
+        else:
+            A = ta.data_precision(V, np.ascontiguousarray(upP.real))
+            for i in range(nt):
+                A[i, i] += e0[i].real
+            L = ta.cholesky(A)
+        b_c = ta.a_solve(L, V, e_im, f_im, c_e)
+        b_h = ta.a_solve(L, V, e_im, f_im, h0)
         for t in range(nt):
             Pmu += upP[t]
             Mmu += upM[t] - upP[t] * gt[t]
         for i in range(nt):
-            Pmu -= yc[i] * yc[i]
-            Mmu -= yc[i] * yh[i]
+            Pmu -= c_e[i] * b_c[i]
+            Mmu -= c_e[i] * b_h[i]
     else:
         for i in range(nt):
             if q_e[i].real <= 0.0:
@@ -322,15 +254,15 @@ def _forward(x, ints, floats, Q_known, L_known):
     sdw = np.zeros(nt, dtype=np.complex128)
     Td = np.ones(nt, dtype=np.complex128)
     u = np.zeros(nt, dtype=np.complex128)
-    if exact:  # w = L'^-1 (L^-1 (h0 - mu c) + z), log Jacobian -sum log L_ii
-        zt = np.empty(nt, dtype=np.complex128)
-        for i in range(nt):
-            zt[i] = yh[i] - mu * yc[i] + x[k_zt + i]
-        w = _solve_upper_t(L, zt)
+    if exact:  # w = A^-1 (h0 - mu c) + L'^-1 z, log Jacobian -sum log L_ii
+        dinv, ddata, S_e, S_f = context
+        z = np.ascontiguousarray(x[k_zt : k_zt + nt].real)
+        w = b_h - mu * b_c + ta.upper_t_solve_z(L, z, e_im, f_im, S_e, S_f)
         for i in range(nt):
             Td[i] = T_t * d[i]
             sdw[i] = 1.0 / L[i, i]
-            lp += -0.5 * _LOG2PI - 0.5 * np.log(Td[i]) - 0.5 * w[i] * w[i] / Td[i] - np.log(L[i, i])
+            lp += -0.5 * _LOG2PI - 0.5 * np.log(Td[i]) - 0.5 * w[i] * w[i] / Td[i]
+        lp -= ta.half_log_det(L, e_im, f_im, dinv, ddata)
     elif taxon_level:
         for i in range(nt):
             if not phylo and fixed_t[i]:
@@ -367,7 +299,7 @@ def _forward(x, ints, floats, Q_known, L_known):
             sds = 1.0 / np.sqrt(Ps)
             a_s[s] = (parent / T_s + prec[s] * ah[s]) / Ps + sds * x[k_zs + s]
             lp += -0.5 * _LOG2PI - 0.5 * np.log(T_s) - 0.5 * (a_s[s] - parent) ** 2 / T_s + np.log(sds)
-    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L, Q
+    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
@@ -399,8 +331,13 @@ def logp_grad_white(x, ints, floats, grad):
     X, xbar, G, V = _linear_views(ints, floats)[:4]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
     xc = x[:n_h].astype(np.complex128)
-    no_Q = np.zeros((0, 0), dtype=np.complex128)
-    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L, Q = _forward(xc, ints, floats, no_Q, no_Q)
+    no_L = np.zeros((0, 0))
+    no_context = (np.zeros(0), np.zeros(0), no_L, no_L)
+    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L = _forward(xc, ints, floats, no_L, no_context)
+    context = no_context
+    if L.shape[0]:
+        z = np.ascontiguousarray(x[k_zt : k_zt + nt])
+        context = ta.factor_context(L, V, z, specimen_level)
     a_s = a_s_c.real.copy()
     beta_t = beta_t_c.real.copy()
     a_t = a_t_c.real.copy()
@@ -443,7 +380,7 @@ def logp_grad_white(x, ints, floats, grad):
             for t in range(nt):
                 g[i] += V[t, i] * G_t[t]
             g[i] -= w[i].real / Td[i].real
-        gz = _solve_lower(np.ascontiguousarray(L.real), g)
+        gz = ta.solve_lower(L, g)
         for i in range(nt):
             grad[k_zt + i] = gz[i]
     elif taxon_level:
@@ -465,13 +402,8 @@ def logp_grad_white(x, ints, floats, grad):
         if specimen_level and k_zs <= i < k_zs + ns:
             continue
         xc[i] += 1j * kernel.H
-        # the data precision depends on the specimen spread alone, its factor also on the taxon spread and
-        # lambda: reuse them for every other coordinate
-        moved_Q = specimen_level and i == k_ts
-        moved_L = moved_Q or (taxon_level and (i == k_tt or (_lambda_free(ints) and i == k_tt + 1)))
-        a_si, bt_i, lp_i, _, _, _, _, _, _, _ = _forward(
-            xc, ints, floats, no_Q if moved_Q else Q, no_Q if moved_L else L
-        )
+        # the exact conditional's factor is reused: the step's imaginary parts enter to first order
+        a_si, bt_i, lp_i, _, _, _, _, _, _ = _forward(xc, ints, floats, L, context)
         xc[i] -= 1j * kernel.H
         gi = lp_i.imag / kernel.H
         for s in range(ns):
@@ -489,8 +421,11 @@ def expand_white(x, ints, floats, out):
     beta_taxon]], [gamma], sigma_dev, [nu]."""
     nt, ns, p, q = ints[_NT], ints[_NS], ints[_P], ints[_Q]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
-    no_Q = np.zeros((0, 0), dtype=np.complex128)
-    a_s, beta_t, _, mu, a_t, _, _, _, _, _ = _forward(x[:n_h].astype(np.complex128), ints, floats, no_Q, no_Q)
+    no_L = np.zeros((0, 0))
+    no_context = (np.zeros(0), np.zeros(0), no_L, no_L)
+    a_s, beta_t, _, mu, a_t, _, _, _, _ = _forward(
+        x[:n_h].astype(np.complex128), ints, floats, no_L, no_context
+    )
     k = 0
     out[k] = mu.real
     k += 1
