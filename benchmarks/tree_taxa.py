@@ -3,9 +3,10 @@ against its diagonal approximation.
 
 Under a tree the compiled density samples the taxon deviations in the tree's eigenbasis, from their
 conditional given the spreads. Up to :data:`allobranch.model.density.TREE_EXACT_MAX_TAXA` taxa it uses the
-exact conditional (a Cholesky factor of the full data precision per density evaluation, O(taxa^3)); above,
-the conditional with that precision's diagonal (O(taxa^2)). This script fits simulated tables (simulated
-data) on pure-birth (Yule) trees of 16 to 200 taxa with both paths and reports what each costs and buys.
+exact conditional (one Cholesky factor of the full data precision per density evaluation, O(taxa^3));
+above, the conditional with that precision's diagonal (O(taxa^2)). This script fits simulated tables
+(simulated data) on pure-birth (Yule) trees of 16 to a few hundred taxa with both paths and reports what
+each costs and buys.
 
 Design: taxon exponents from ``MVN(2.5, 0.3^2 (lambda C + (1 - lambda) I))`` at lambda 0 and 1, 2
 specimens x 30 junctions per taxon, specimen spread 0.05, 5 % error (the phylogeny study of
@@ -21,6 +22,8 @@ Usage::
 
     python benchmarks/tree_taxa.py                      # 16, 64, 200 taxa x lambda 0, 1 x both paths
     python benchmarks/tree_taxa.py --taxa 16 --lambdas 1 --paths exact
+    python benchmarks/tree_taxa.py --taxa 200,400 --lambdas 1 --paths exact \
+        --timing-only 400:diagonal,600:exact,600:diagonal --append
 """
 
 from __future__ import annotations
