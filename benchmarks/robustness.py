@@ -30,6 +30,7 @@ from pathlib import Path
 import arviz as az
 import numpy as np
 import pandas as pd
+from common import chosen_designs  # benchmarks/common.py
 
 import allobranch as ab
 
@@ -210,10 +211,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--designs", default=",".join(DESIGNS))
     parser.add_argument("--out", type=Path, default=RESULTS)
     args = parser.parse_args(argv)
-    names = [d for d in args.designs.split(",") if d]
-    unknown = set(names) - set(DESIGNS)
-    if unknown:
-        parser.error(f"unknown designs {sorted(unknown)}; known: {', '.join(DESIGNS)}")
+    names = chosen_designs(parser, args.designs, DESIGNS)
     rows = []
     for name in names:
         for seed in range(1, args.seeds + 1):

@@ -29,6 +29,7 @@ from pathlib import Path
 import arviz as az
 import numpy as np
 import pandas as pd
+from common import chosen_designs, write_table  # benchmarks/common.py
 from comparative import yule_newick  # benchmarks/comparative.py (run from this folder's scripts)
 
 import allobranch as ab
@@ -158,10 +159,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=RESULTS)
     parser.add_argument("--no-write", action="store_true")
     args = parser.parse_args(argv)
-    names = args.designs.split(",")
-    unknown = set(names) - set(DESIGNS)
-    if unknown:
-        parser.error(f"unknown designs {sorted(unknown)}; known: {', '.join(DESIGNS)}")
+    names = chosen_designs(parser, args.designs, DESIGNS)
     rows = []
     for name in names:
         for seed in range(1, args.seeds + 1):
@@ -178,8 +176,10 @@ def main(argv: list[str] | None = None) -> int:
             f"seed), taxon exponents MVN({MU}, {TAU}^2 (lambda C + (1 - lambda) I)) with lambda 1 unless "
             "stated; base table 2 specimens x 30 junctions per taxon, specimen spread 0.05, 5 % error; each "
             "row changes one thing. Default fit, Pagel's lambda estimated. `mu_z`: (posterior mean - truth) / "
-            "posterior SD; `oracle_mu_z`: the same for the generalised least-squares estimate from the true taxon exponents and covariance (how far the tree's draw itself lies from the truth; the seeds share it across designs); `taxa_covered`: share of taxon exponents inside their 90 % HDI; `warnings`: "
-            "number of warnings the fit carried (the lambda caveat among them).",
+            "posterior SD; `oracle_mu_z`: the same for the generalised least-squares estimate from the true "
+            "taxon exponents and covariance (how far the tree's draw itself lies from the truth; the seeds "
+            "share it across designs); `taxa_covered`: share of taxon exponents inside their 90 % HDI; "
+            "`warnings`: number of warnings the fit carried (the lambda caveat among them).",
             "",
             frame.to_markdown(index=False, floatfmt=".3g"),
             "",
@@ -187,11 +187,7 @@ def main(argv: list[str] | None = None) -> int:
             "",
         ]
     )
-    print(text)
-    if not args.no_write:
-        args.out.mkdir(parents=True, exist_ok=True)
-        frame.to_csv(args.out / "tree_designs.csv", index=False)
-        (args.out / "tree_designs.md").write_text(text, encoding="utf-8")
+    write_table(frame, text, args.out, "tree_designs", write=not args.no_write)
     return 0
 
 

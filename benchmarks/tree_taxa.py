@@ -37,6 +37,7 @@ from pathlib import Path
 import arviz as az
 import numpy as np
 import pandas as pd
+from common import write_table  # benchmarks/common.py
 from comparative import yule_newick  # benchmarks/comparative.py (run from this folder's scripts)
 
 import allobranch as ab
@@ -196,11 +197,7 @@ def main(argv: list[str] | None = None) -> int:
             "",
         ]
     )
-    print(text)
-    if not args.no_write:
-        args.out.mkdir(parents=True, exist_ok=True)
-        frame.to_csv(args.out / "tree_taxa.csv", index=False)
-        (args.out / "tree_taxa.md").write_text(text, encoding="utf-8")
+    write_table(frame, text, args.out, "tree_taxa", write=not args.no_write)
     return 0
 
 
