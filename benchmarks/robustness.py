@@ -30,7 +30,7 @@ from pathlib import Path
 import arviz as az
 import numpy as np
 import pandas as pd
-from common import chosen_designs  # benchmarks/common.py
+from common import chosen_designs, run_designs  # benchmarks/common.py
 
 import allobranch as ab
 
@@ -205,6 +205,16 @@ def figure(summary: pd.DataFrame, frame: pd.DataFrame, path: Path) -> None:
     plt.close(fig)
 
 
+def _progress_line(name: str, seed: int, got: list[dict]) -> str:
+    r = got[0]
+    return (
+        f"{name:16s} seed {seed}: {r['junctions']:6d} junctions, attempts {r['attempts']}, "
+        f"divergences {r['divergences']} (first {r['first_divergences']}), R-hat {r['max_r_hat']:.3f}, "
+        f"ESS {r['min_ess_bulk']:.0f}, {r['seconds']:.1f} s, "
+        f"|z| max {max(abs(x['z']) for x in got):.2f}"
+    )
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--seeds", type=int, default=3)
@@ -212,19 +222,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=RESULTS)
     args = parser.parse_args(argv)
     names = chosen_designs(parser, args.designs, DESIGNS)
-    rows = []
-    for name in names:
-        for seed in range(1, args.seeds + 1):
-            got = run_one(name, seed)
-            rows += got
-            r = got[0]
-            print(
-                f"{name:16s} seed {seed}: {r['junctions']:6d} junctions, attempts {r['attempts']}, "
-                f"divergences {r['divergences']} (first {r['first_divergences']}), R-hat {r['max_r_hat']:.3f}, "
-                f"ESS {r['min_ess_bulk']:.0f}, {r['seconds']:.1f} s, "
-                f"|z| max {max(abs(x['z']) for x in got):.2f}",
-                flush=True,
-            )
+    rows = run_designs(names, args.seeds, run_one, _progress_line)
     frame = pd.DataFrame(rows)
     summary = summarise(frame)
     args.out.mkdir(parents=True, exist_ok=True)

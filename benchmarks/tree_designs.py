@@ -29,7 +29,7 @@ from pathlib import Path
 import arviz as az
 import numpy as np
 import pandas as pd
-from common import chosen_designs, write_table  # benchmarks/common.py
+from common import chosen_designs, run_designs, write_table  # benchmarks/common.py
 from comparative import yule_newick  # benchmarks/comparative.py (run from this folder's scripts)
 
 import allobranch as ab
@@ -160,12 +160,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--no-write", action="store_true")
     args = parser.parse_args(argv)
     names = chosen_designs(parser, args.designs, DESIGNS)
-    rows = []
-    for name in names:
-        for seed in range(1, args.seeds + 1):
-            row = run_one(name, seed)
-            rows.append(row)
-            print(" ".join(f"{k}={v}" for k, v in row.items()), flush=True)
+    rows = run_designs(
+        names, args.seeds, run_one, lambda name, seed, got: " ".join(f"{k}={v}" for k, v in got[0].items())
+    )
     frame = pd.DataFrame(rows)
     frame.insert(1, "what", [DESIGNS[d][0] for d in frame["design"]])
     text = "\n".join(
