@@ -76,7 +76,9 @@ def gradient_ms(repeats: int = 200) -> float:
     return 1000 * (time.perf_counter() - started) / repeats
 
 
-def run(n_taxa: int, lam: float, path: str, seed: int, timing_only: bool = False) -> dict:
+def run(
+    n_taxa: int, lam: float, path: str, seed: int, timing_only: bool = False, by_taxon: bool = False
+) -> dict:
     newick, names = yule_newick(n_taxa, seed)
     with tempfile.TemporaryDirectory() as tmp:
         tree_path = Path(tmp) / "yule.nwk"
@@ -94,16 +96,23 @@ def run(n_taxa: int, lam: float, path: str, seed: int, timing_only: bool = False
     short = dict(draws=30, tune=30, chains=1, escalate=False) if timing_only else {}
     try:
         started = time.perf_counter()
-        res = ab.fit(table, ab.ModelSpec(), seed=seed, progress=False, **short)
+        spec = (
+            ab.ModelSpec(covariates=("log_parent_size",), covariates_by_taxon=True)
+            if by_taxon
+            else ab.ModelSpec()
+        )
+        res = ab.fit(table, spec, seed=seed, progress=False, **short)
         wall = time.perf_counter() - started
         ms = gradient_ms()
     finally:
         density_module.TREE_EXACT_MAX_TAXA = saved
+    model = "log_parent_size slope by taxon" if by_taxon else "no covariate"
     if timing_only:
         return {
             "taxa": n_taxa,
             "lambda_true": lam,
             "path": path,
+            "model": model,
             "junctions": len(sim.frame),
             "ms_per_gradient": ms,
         }
@@ -118,6 +127,7 @@ def run(n_taxa: int, lam: float, path: str, seed: int, timing_only: bool = False
         "taxa": n_taxa,
         "lambda_true": lam,
         "path": path,
+        "model": model,
         "junctions": len(sim.frame),
         "attempts": len(attempts),
         "first_clean": bool(first.get("divergences", 1) == 0 and first.get("max_r_hat", 2.0) <= 1.01),
@@ -147,6 +157,11 @@ def main(argv: list[str] | None = None) -> int:
         help="TAXA:PATH[,TAXA:PATH] fitted only long enough to time one gradient (a full fit would take "
         "too long); '' for none",
     )
+    parser.add_argument(
+        "--slope-by-taxon",
+        action="store_true",
+        help="fit the built-in covariate log_parent_size with a slope per taxon (true slope 0)",
+    )
     parser.add_argument("--out", type=Path, default=RESULTS)
     parser.add_argument("--no-write", action="store_true")
     parser.add_argument(
@@ -167,17 +182,20 @@ def main(argv: list[str] | None = None) -> int:
             for path in args.paths.split(","):
                 if f"{n}:{path}" in args.timing_only.split(","):
                     continue
-                row = run(n, lam, path, args.seed)
+                row = run(n, lam, path, args.seed, by_taxon=args.slope_by_taxon)
                 rows.append(row)
                 print(" ".join(f"{k}={v}" for k, v in row.items()), flush=True)
     for item in filter(None, args.timing_only.split(",")):
         n, path = item.split(":")
-        row = run(int(n), 1.0, path, args.seed, timing_only=True)
+        row = run(int(n), 1.0, path, args.seed, timing_only=True, by_taxon=args.slope_by_taxon)
         rows.append(row)
         print(" ".join(f"{k}={v}" for k, v in row.items()), flush=True)
     frame = pd.DataFrame(rows)
     if args.append and (args.out / "tree_taxa.csv").exists():
-        frame = pd.concat([pd.read_csv(args.out / "tree_taxa.csv"), frame], ignore_index=True)
+        earlier = pd.read_csv(args.out / "tree_taxa.csv")
+        if "model" not in earlier:  # rows written before the option existed
+            earlier.insert(3, "model", "no covariate")
+        frame = pd.concat([earlier, frame], ignore_index=True)
     text = "\n".join(
         [
             "# Fits under a tree as the number of taxa grows: exact vs diagonal conditional",

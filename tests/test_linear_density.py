@@ -196,6 +196,7 @@ CASES = {
     "tree with lambda fixed at 1 and a covariate": dict(
         p=1, q=0, by_taxon=False, phylo=True, pagel_lambda=1.0
     ),
+    "tree, trait and two covariates by taxon": dict(p=2, q=1, by_taxon=True, phylo=True),
 }
 
 

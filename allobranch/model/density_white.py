@@ -22,7 +22,9 @@ sum of the conditional log SDs, is added), so the posterior is exact; the approx
 round the geometry is.
 
 Derivatives: analytic for the specimen and taxon deviations (each moves one node, or one eigen-coordinate,
-given everything above it); complex step (Squire & Trapp 1998) for the few coordinates above them. On the
+given everything above it) and for the taxon slope deviations (one per taxon and covariate: reverse mode
+through the pilot exponents they move, :func:`_pilot_adjoint`); complex step (Squire & Trapp 1998) for the
+few coordinates above them. On the
 exact path the complex steps reuse the real Cholesky factor of the point itself, taking the factor's
 imaginary parts to first order (:mod:`allobranch.model.tree_algebra`), so a density costs one factor
 whatever the number of coordinates above the deviations.
@@ -109,7 +111,9 @@ def _forward(x, ints, floats, L_known, context):
 
     Returns the specimen exponents, the taxon slopes (nt, p), the log density, ``mu``, the taxon
     exponents, the eigen-coordinates of the taxon deviations, their conditional SDs and prior variances,
-    and the real Cholesky factor of their exact conditional precision (empty unless that is used).
+    the real Cholesky factor of their exact conditional precision (empty unless that is used), and the
+    real parts of what :func:`_pilot_adjoint` needs (``c_e``, ``q_e``, ``d``, ``A^-1 c_e``, mu's
+    conditional precision, the two spreads squared).
     ``L_known`` is that factor from the call at the real point and ``context`` its
     :func:`allobranch.model.tree_algebra.factor_context` (for a complex step: the step's imaginary parts
     are then taken to first order from them); pass empty arrays to factor afresh at a real point.
@@ -241,6 +245,7 @@ def _forward(x, ints, floats, L_known, context):
             r = c_e[i] / q_e[i]
             Pmu += r * r / v
             Mmu += r * (h0[i] / q_e[i]) / v
+    P = 1.0 + 0.0j
     if ints[_MU_FREE]:
         m0, s0 = floats[_MU_MEAN], floats[_MU_SD]
         P = 1.0 / (s0 * s0) + Pmu
@@ -299,7 +304,8 @@ def _forward(x, ints, floats, L_known, context):
             sds = 1.0 / np.sqrt(Ps)
             a_s[s] = (parent / T_s + prec[s] * ah[s]) / Ps + sds * x[k_zs + s]
             lp += -0.5 * _LOG2PI - 0.5 * np.log(T_s) - 0.5 * (a_s[s] - parent) ** 2 / T_s + np.log(sds)
-    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L
+    messages = (c_e.real.copy(), q_e.real.copy(), d.real.copy(), b_c.real.copy(), P.real, T_t.real, T_s.real)
+    return a_s, beta_t, lp, mu, a_t, w, sdw, Td, L, messages
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
@@ -319,6 +325,85 @@ def junction_exponents(ints, floats, a_s, beta_t):
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
+def _pilot_adjoint(ints, floats, a_s, a_t, w, Td, d_as, G_t, L, messages, mu):
+    """Derivative of the log density in each specimen's pilot exponent (at the reference covariate values),
+    everything else held: reverse mode through the messages up the hierarchy and the conditional means
+    down it (see :func:`_forward`). ``G_t`` is each taxon exponent's total derivative through its
+    specimens, ``messages`` :func:`_forward`'s last output."""
+    nt, ns = ints[_NT], ints[_NS]
+    taxon_level = ints[_TAXON] != 0
+    specimen_level = ints[_SPEC] != 0
+    phylo = ints[_PHYLO] != 0
+    specimen_taxon, fixed_t, pinned = _views(ints, floats)[1:4]
+    prec = _pilot_views(ints, floats)[1]
+    V = _linear_views(ints, floats)[3]
+    c_e, q_e, d, b_c, P_mu, T_t, T_s = messages
+    d_ah = np.zeros(ns)
+    # each specimen's conditional mean (a_t / T_s + prec ah) / (1 / T_s + prec)
+    if specimen_level:
+        for s in range(ns):
+            if not pinned[s]:
+                Ps = 1.0 / T_s + prec[s]
+                d_ah[s] = (d_as[s] - (a_s[s] - a_t[specimen_taxon[s]]) / T_s) * prec[s] / Ps
+    # the taxon exponents mu + g.gamma + u, u = V w (w without a tree)
+    d_mu = 0.0
+    for t in range(nt):
+        if not fixed_t[t]:
+            d_mu += G_t[t]
+    d_h0 = np.zeros(nt)
+    d_bh = np.zeros(nt)
+    exact = L.shape[0] > 0
+    if taxon_level:
+        d_w = np.zeros(nt)
+        for i in range(nt):
+            if not phylo and fixed_t[i]:
+                continue
+            if phylo:
+                for t in range(nt):
+                    d_w[i] += V[t, i] * G_t[t]
+            else:
+                d_w[i] = G_t[i]
+            d_w[i] -= w[i] / Td[i]
+        for i in range(nt):
+            if exact:  # w = A^-1 (h0 - mu c) + L'^-1 z
+                d_bh[i] += d_w[i]
+                d_mu -= b_c[i] * d_w[i]
+            elif phylo or not fixed_t[i]:  # w_i = (h0_i - mu c_i) / (1 / Td_i + q_i) + sd_i z_i
+                Pi = 1.0 / Td[i] + q_e[i]
+                d_h0[i] += d_w[i] / Pi
+                d_mu -= c_e[i] * d_w[i] / Pi
+    # mu = (m0 / s0^2 + Mmu) / P + sd z with its prior; Mmu collects the messages
+    d_M = 0.0
+    if ints[_MU_FREE]:
+        m0, s0 = floats[_MU_MEAN], floats[_MU_SD]
+        d_mu -= (mu - m0) / (s0 * s0)
+        d_M = d_mu / P_mu
+    d_upM = np.zeros(nt)
+    if exact:  # Mmu = sum(upM - upP g) - c'A^-1 h0
+        for t in range(nt):
+            d_upM[t] += d_M
+            d_bh[t] -= d_M * c_e[t]
+        d_h0 = ta.solve_upper_t(L, ta.solve_lower(L, d_bh))
+    else:
+        for i in range(nt):
+            if q_e[i] > 0.0:
+                v = T_t * d[i] + 1.0 / q_e[i]
+                d_h0[i] += d_M * (c_e[i] / q_e[i]) / (q_e[i] * v)
+    for t in range(nt):  # h0 = V'(upM - upP g) (the identity without a tree)
+        if phylo:
+            for i in range(nt):
+                d_upM[t] += V[t, i] * d_h0[i]
+        elif not fixed_t[t]:
+            d_upM[t] += d_h0[t]
+    for s in range(ns):  # upM_t = sum of ah_s / (T_s + 1 / prec_s)
+        if pinned[s] or prec[s] <= 0.0:
+            continue
+        v = T_s + 1.0 / prec[s] if specimen_level else 1.0 / prec[s]
+        d_ah[s] += d_upM[specimen_taxon[s]] / v
+    return d_ah
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
 def logp_grad_white(x, ints, floats, grad):
     """Log density and gradient of the whitened form (see the module docstring)."""
     n, nt, ns, p = ints[_N], ints[_NT], ints[_NS], ints[_P]
@@ -333,7 +418,7 @@ def logp_grad_white(x, ints, floats, grad):
     xc = x[:n_h].astype(np.complex128)
     no_L = np.zeros((0, 0))
     no_context = (np.zeros(0), np.zeros(0), no_L, no_L)
-    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L = _forward(xc, ints, floats, no_L, no_context)
+    a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L, messages = _forward(xc, ints, floats, no_L, no_context)
     context = no_context
     if L.shape[0]:
         z = np.ascontiguousarray(x[k_zt : k_zt + nt])
@@ -395,15 +480,33 @@ def logp_grad_white(x, ints, floats, grad):
             else:
                 gw = G_t[i]
             grad[k_zt + i] = sdw[i].real * (gw - w[i].real / Td[i].real)
+    # the taxon slope deviations (analytic): a taxon's slopes move its junctions' exponents and, through the
+    # pilot exponents moved to the reference covariate values, its specimens' messages
+    by_taxon = ints[_BYTAXON] != 0
+    if by_taxon:
+        d_ah = _pilot_adjoint(
+            ints, floats, a_s, a_t, w.real.copy(), Td.real.copy(), d_as, G_t, L, messages, mu.real
+        )
+        dbeta = dB.copy()
+        for s in range(ns):
+            for kk in range(p):
+                dbeta[specimen_taxon[s], kk] -= xbar[s, kk] * d_ah[s]
+        for kk in range(p):
+            tb = math.exp(x[k_tb + kk])
+            for t in range(nt):
+                k = k_tb + p + t * p + kk
+                grad[k] = tb * dbeta[t, kk] - x[k]
     # everything above them by complex step
     for i in range(n_h):
         if taxon_level and k_zt <= i < k_zt + nt:
             continue
         if specimen_level and k_zs <= i < k_zs + ns:
             continue
+        if by_taxon and k_tb + p <= i < k_tb + p + nt * p:
+            continue
         xc[i] += 1j * kernel.H
         # the exact conditional's factor is reused: the step's imaginary parts enter to first order
-        a_si, bt_i, lp_i, _, _, _, _, _, _ = _forward(xc, ints, floats, L, context)
+        a_si, bt_i, lp_i, _, _, _, _, _, _, _ = _forward(xc, ints, floats, L, context)
         xc[i] -= 1j * kernel.H
         gi = lp_i.imag / kernel.H
         for s in range(ns):
@@ -423,7 +526,7 @@ def expand_white(x, ints, floats, out):
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
     no_L = np.zeros((0, 0))
     no_context = (np.zeros(0), np.zeros(0), no_L, no_L)
-    a_s, beta_t, _, mu, a_t, _, _, _, _ = _forward(
+    a_s, beta_t, _, mu, a_t, _, _, _, _, _ = _forward(
         x[:n_h].astype(np.complex128), ints, floats, no_L, no_context
     )
     k = 0
