@@ -24,10 +24,9 @@ round the geometry is.
 Derivatives: analytic for the specimen and taxon deviations (each moves one node, or one eigen-coordinate,
 given everything above it) and for the taxon slope deviations (one per taxon and covariate: reverse mode
 through the pilot exponents they move, :func:`_pilot_adjoint`); complex step (Squire & Trapp 1998) for the
-few coordinates above them. On the
-exact path the complex steps reuse the real Cholesky factor of the point itself, taking the factor's
-imaginary parts to first order (:mod:`allobranch.model.tree_algebra`), so a density costs one factor
-whatever the number of coordinates above the deviations.
+few coordinates above them. On the exact path the complex steps reuse the real Cholesky factor of the point
+itself, taking the factor's imaginary parts to first order (:mod:`allobranch.model.tree_algebra`), so a
+density costs one factor whatever the number of coordinates above the deviations.
 """
 
 from __future__ import annotations
@@ -102,6 +101,13 @@ def white_blocks(ints):
     if ints[_SPEC]:
         k += ns
     return k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, k
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy")
+def _no_factor():
+    """Empty ``L_known`` and ``context`` for :func:`_forward`: factor afresh at a real point."""
+    no_L = np.zeros((0, 0))
+    return no_L, (np.zeros(0), np.zeros(0), no_L, no_L)
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy")
@@ -416,8 +422,7 @@ def logp_grad_white(x, ints, floats, grad):
     X, xbar, G, V = _linear_views(ints, floats)[:4]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
     xc = x[:n_h].astype(np.complex128)
-    no_L = np.zeros((0, 0))
-    no_context = (np.zeros(0), np.zeros(0), no_L, no_L)
+    no_L, no_context = _no_factor()
     a_s_c, beta_t_c, lp_h, mu, a_t_c, w, sdw, Td, L, messages = _forward(xc, ints, floats, no_L, no_context)
     context = no_context
     if L.shape[0]:
@@ -524,8 +529,7 @@ def expand_white(x, ints, floats, out):
     beta_taxon]], [gamma], sigma_dev, [nu]."""
     nt, ns, p, q = ints[_NT], ints[_NS], ints[_P], ints[_Q]
     k_gamma, k_beta, k_tb, k_tt, k_zt, k_ts, k_zs, n_h = white_blocks(ints)
-    no_L = np.zeros((0, 0))
-    no_context = (np.zeros(0), np.zeros(0), no_L, no_L)
+    no_L, no_context = _no_factor()
     a_s, beta_t, _, mu, a_t, _, _, _, _, _ = _forward(
         x[:n_h].astype(np.complex128), ints, floats, no_L, no_context
     )

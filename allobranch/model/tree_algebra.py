@@ -190,6 +190,8 @@ def a_solve(L, V, e, f, v):
     """``A^-1 v`` for complex ``v`` and ``A = L L' + i (diag(e) + V' diag(f) V)``, to first order in ``i``."""
     xr = solve_upper_t(L, solve_lower(L, np.ascontiguousarray(v.real)))
     rhs = v.imag - _a_imag_times(V, e, f, xr)
+    if not np.any(rhs != 0.0):  # a real point, or a step that moves neither A nor v
+        return xr + 0.0j
     xi = solve_upper_t(L, solve_lower(L, rhs))
     return xr + 1j * xi
 
